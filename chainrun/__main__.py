@@ -1,0 +1,6 @@
+"""``python -m chainrun``: the same as the ``chainrun`` console script."""
+import sys
+
+from .cli import main
+
+sys.exit(main())

@@ -1,0 +1,265 @@
+"""The guard: prove a designed chain stable and bound its gain, before any audio.
+
+For a :class:`~chainrun.design.Chain` at one sample rate, :func:`assess` finds
+
+* the largest pole radius (rejected above ``1 - pole_margin``);
+* the time the impulse response takes to fall 60 dB below its peak
+  (warned above ``max_decay_s``);
+* the largest and smallest gain of the whole chain and where they are, on a
+  dense logarithmic grid refined locally (rejected above ``max_gain_db``);
+* the worst-case peak gain: the L1 norm of the impulse response,
+  ``sum |h[n]|``. For every input, ``max |y| <= sum |h[n]| * max |x|``, and the
+  bound is reached by some input, so it is the tight bound on sample peaks. The
+  steady-state gain ``max |H|`` bounds only steady tones and is never larger.
+
+Raw ``iir`` sections are checked first, on the roots of their own denominator,
+so an unstable hand-typed filter is named as such.
+
+References
+----------
+.. [1] A. V. Oppenheim, R. W. Schafer, "Discrete-Time Signal Processing",
+   BIBO stability: a causal LTI system is stable iff sum |h[n]| is finite; for a
+   rational H(z), iff all poles lie inside the unit circle.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize, signal
+
+from .design import Chain
+from .recipe import Guard, Location, Recipe
+
+__all__ = ["Problem", "Assessment", "assess", "response_db", "check_raw_sections"]
+
+GRID_POINTS = 4096          # log-spaced frequencies between LOWEST_HZ and Nyquist
+LOWEST_HZ = 1.0
+FLOOR_DB = -300.0           # gains below this (a notch's exact zero) read as this
+IMPULSE_BLOCK = 1 << 16     # impulse response computed in blocks of this many samples
+IMPULSE_CAP = 1 << 23       # ... up to this many samples, then a geometric tail estimate
+_CHUNK = 64                 # decay time resolution, samples
+
+
+@dataclass(frozen=True)
+class Problem:
+    """A guard finding: ``severity`` is ``"error"`` (rejects) or ``"warning"``."""
+
+    severity: str
+    message: str
+    where: Location | None = None
+
+    def __str__(self) -> str:
+        loc = f"{self.where}: " if self.where else ""
+        return f"{loc}{self.severity}: {self.message}"
+
+    def to_dict(self) -> dict:
+        return {"severity": self.severity, "message": self.message,
+                "where": str(self.where) if self.where else None}
+
+
+@dataclass(frozen=True)
+class Assessment:
+    """What the guard found for one chain at one rate. Gains in dB, times in s."""
+
+    rate: int
+    rows: int
+    max_pole_radius: float
+    decay_s: float
+    decay_exact: bool
+    max_gain_db: float
+    max_gain_hz: float
+    min_gain_db: float
+    min_gain_hz: float
+    peak_gain: float
+    peak_gain_exact: bool
+    problems: tuple[Problem, ...]
+
+    @property
+    def accepted(self) -> bool:
+        return not any(p.severity == "error" for p in self.problems)
+
+    @property
+    def peak_gain_db(self) -> float:
+        return 20.0 * math.log10(self.peak_gain) if self.peak_gain > 0 else -math.inf
+
+    def to_dict(self) -> dict:
+        def num(x):
+            return None if x is None or not math.isfinite(x) else float(x)
+        return {
+            "rate": self.rate, "accepted": self.accepted, "rows": self.rows,
+            "max_pole_radius": num(self.max_pole_radius),
+            "decay_60db_s": num(self.decay_s), "decay_exact": self.decay_exact,
+            "max_gain_db": num(self.max_gain_db), "max_gain_hz": num(self.max_gain_hz),
+            "min_gain_db": num(self.min_gain_db), "min_gain_hz": num(self.min_gain_hz),
+            "worst_case_peak_gain": num(self.peak_gain), "worst_case_peak_gain_db": num(self.peak_gain_db),
+            "worst_case_exact": self.peak_gain_exact,
+            "problems": [p.to_dict() for p in self.problems],
+        }
+
+
+def response_db(sos: np.ndarray, freqs: np.ndarray, rate: float) -> np.ndarray:
+    """Magnitude of the cascade in dB at ``freqs`` (Hz), floored at FLOOR_DB."""
+    _, h = signal.freqz_sos(sos, worN=np.asarray(freqs, dtype=float), fs=rate)
+    with np.errstate(divide="ignore"):
+        return np.maximum(20.0 * np.log10(np.abs(h)), FLOOR_DB)
+
+
+def pole_radii(sos: np.ndarray) -> np.ndarray:
+    """Largest pole radius of each row (0 for a row without feedback)."""
+    out = np.zeros(len(sos))
+    for i, row in enumerate(sos):
+        roots = np.roots(row[3:6] / row[3]) if np.any(row[4:6]) else np.zeros(0)
+        out[i] = np.max(np.abs(roots)) if roots.size else 0.0
+    return out
+
+
+def check_raw_sections(recipe: Recipe) -> list[Problem]:
+    """Stability of each raw ``iir`` section from the roots of its own denominator."""
+    limit = 1.0 - recipe.guard.pole_margin
+    problems = []
+    for s in recipe.sections:
+        if s.kind != "iir" or len(s.params["a"]) < 2:
+            continue
+        radius = float(np.max(np.abs(np.roots(np.asarray(s.params["a"]) / s.params["a"][0]))))
+        if radius > limit:
+            problems.append(Problem(
+                "error",
+                f"chain[{s.index}] iir is unstable: its denominator has a root at radius {radius:.6g} "
+                f"(feedback that never dies away); allowed: every root inside radius {limit:.9g} "
+                "(1 - guard.pole_margin)",
+                s.locate("a")))
+    return problems
+
+
+def _extremes(sos: np.ndarray, rate: float, extra_hz: list[float]) -> tuple[float, float, float, float]:
+    nyq = rate / 2.0
+    grid = np.concatenate([[0.0], np.geomspace(min(LOWEST_HZ, nyq / 2), nyq, GRID_POINTS),
+                           [f for f in extra_hz if 0 < f < nyq]])
+    grid = np.unique(grid)
+    db = response_db(sos, grid, rate)
+
+    def refine(i: int, sign: float) -> tuple[float, float]:
+        lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
+        best = (float(db[i]), float(grid[i]))
+        if hi > lo:
+            res = optimize.minimize_scalar(lambda f: -sign * response_db(sos, [f], rate)[0],
+                                           bounds=(lo, hi), method="bounded",
+                                           options={"xatol": max(lo, 1e-3) * 1e-7})
+            val = -sign * float(res.fun)
+            if sign * val > sign * best[0]:
+                best = (val, float(res.x))
+        return best
+
+    hi_db, hi_hz = refine(int(np.argmax(db)), +1.0)
+    lo_db, lo_hz = refine(int(np.argmin(db)), -1.0)
+    return hi_db, hi_hz, lo_db, lo_hz
+
+
+def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool, float, bool]:
+    """L1 norm of the impulse response and the 60 dB decay time, by running it.
+
+    The response is computed block by block with carried state until the state
+    has died away to rounding level; past IMPULSE_CAP samples the remaining tail
+    is estimated as a geometric series at the largest pole radius.
+    """
+    zi = np.zeros((len(sos), 2))
+    impulse = np.zeros(IMPULSE_BLOCK)
+    impulse[0] = 1.0
+    silence = np.zeros(IMPULSE_BLOCK)
+    total, peak, n = 0.0, 0.0, 0
+    chunk_max: list[np.ndarray] = []
+    exact = True
+    while True:
+        y, zi = signal.sosfilt(sos, impulse if n == 0 else silence, zi=zi)
+        ay = np.abs(y)
+        block_l1 = float(ay.sum())
+        total += block_l1
+        peak = max(peak, float(ay.max()))
+        chunk_max.append(ay.reshape(-1, _CHUNK).max(axis=1))
+        n += IMPULSE_BLOCK
+        if float(np.abs(zi).max(initial=0.0)) <= 1e-15 * max(peak, 1e-300) and block_l1 <= 1e-13 * total:
+            break
+        if n >= IMPULSE_CAP:
+            exact = False
+            ratio = r_max ** IMPULSE_BLOCK
+            total += block_l1 * ratio / (1.0 - ratio) if ratio < 1.0 else math.inf
+            break
+    env = np.concatenate(chunk_max)
+    above = np.nonzero(env >= peak * 1e-3)[0]
+    decay_samples = (above[-1] + 1) * _CHUNK if above.size else 0
+    decay = float(decay_samples) / rate
+    if not exact and r_max < 1.0:
+        decay = max(decay, math.log(1e-3) / math.log(r_max) / rate)
+    return total, exact, decay, exact
+
+
+def assess(chain: Chain, guard: Guard, recipe: Recipe | None = None) -> Assessment:
+    """Run the guard over a designed chain.
+
+    Parameters
+    ----------
+    chain
+        From :func:`chainrun.design.design`.
+    guard
+        The recipe's limits.
+    recipe
+        The recipe the chain was designed from; used to check raw ``iir``
+        sections first and to point problems at the section that causes them.
+
+    Returns
+    -------
+    Assessment
+        ``accepted`` is False when any problem is an error.
+    """
+    sos, rate = chain.sos, chain.rate
+    problems: list[Problem] = check_raw_sections(recipe) if recipe is not None else []
+    sections = recipe.sections if recipe is not None else None
+
+    def where_of_row(row: int) -> Location | None:
+        return sections[chain.rows[row]].where if sections is not None else None
+
+    radii = pole_radii(sos)
+    worst_row = int(np.argmax(radii))
+    r_max = float(radii[worst_row])
+    limit = 1.0 - guard.pole_margin
+    unstable = r_max > limit
+    if unstable and not any(p.severity == "error" for p in problems):
+        problems.append(Problem(
+            "error",
+            f"at {rate} Hz {chain.labels[worst_row]} has a pole at radius {r_max:.9g}; allowed: inside "
+            f"{limit:.9g} (1 - guard.pole_margin)",
+            where_of_row(worst_row)))
+
+    extra = [s.params["freq"] for s in sections if "freq" in s.params] if sections else []
+    hi_db, hi_hz, lo_db, lo_hz = _extremes(sos, rate, extra)
+
+    if unstable:
+        l1, l1_exact, decay, decay_exact = math.inf, False, math.inf, False
+    else:
+        l1, l1_exact, decay, decay_exact = _impulse(sos, rate, r_max)
+
+    if hi_db > guard.max_gain_db:
+        where = None
+        if sections is not None:
+            contrib = [(response_db(sos[[r]], [hi_hz], rate)[0], r) for r in range(len(sos))]
+            best_db, best_row = max(contrib)
+            where = where_of_row(best_row)
+            culprit = f"; {sections[chain.rows[best_row]].title} contributes {best_db:+.1f} dB there"
+        else:
+            culprit = ""
+        problems.append(Problem(
+            "error",
+            f"at {rate} Hz the chain's gain reaches {hi_db:+.2f} dB at {hi_hz:.1f} Hz, above "
+            f"guard.max_gain_db {guard.max_gain_db:g} dB{culprit}",
+            where))
+    if not unstable and decay > guard.max_decay_s:
+        problems.append(Problem(
+            "warning",
+            f"at {rate} Hz the impulse response takes {decay:.2f} s to fall 60 dB, longer than "
+            f"guard.max_decay_s {guard.max_decay_s:g} s ({chain.labels[worst_row]} rings longest)",
+            where_of_row(worst_row)))
+    return Assessment(rate=rate, rows=len(sos), max_pole_radius=r_max, decay_s=decay, decay_exact=decay_exact,
+                      max_gain_db=hi_db, max_gain_hz=hi_hz, min_gain_db=lo_db, min_gain_hz=lo_hz,
+                      peak_gain=l1, peak_gain_exact=l1_exact, problems=tuple(problems))
