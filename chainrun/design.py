@@ -21,6 +21,7 @@ References
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 from typing import Any, Callable, Mapping
 
@@ -178,11 +179,24 @@ def _gain(p, rate):
 
 
 def _iir(p, rate):
-    """Raw coefficients, normalised by a[0] and factored with scipy.signal.tf2sos."""
+    """Raw coefficients, normalised by a[0] and factored with scipy.signal.tf2sos.
+
+    Note: leading zeros of ``b`` are a pure delay (``b: [0, 1]`` is z^-1). tf2sos
+    would drop them, with a BadCoefficients warning, and so shift the output
+    earlier; they are kept here as delay rows ``[0, 0, 1, 1, 0, 0]`` (z^-2) and
+    ``[0, 1, 0, 1, 0, 0]`` (z^-1) after the factored sections.
+    """
     a0 = p["a"][0]
     b = np.asarray(p["b"], dtype=float) / a0
     a = np.asarray(p["a"], dtype=float) / a0
-    return signal.tf2sos(b, a)
+    k = 0            # scipy.signal.normalize treats |b[i]| <= 1e-14 as a leading zero
+    while k < len(b) - 1 and abs(b[k]) <= 1e-14:
+        k += 1
+    with warnings.catch_warnings():   # only an all-tiny numerator is left to warn about; it is kept as is
+        warnings.simplefilter("ignore", signal.BadCoefficients)
+        sos = signal.tf2sos(b[k:], a)
+    delay = [[0.0, 0.0, 1.0, 1.0, 0.0, 0.0]] * (k // 2) + [[0.0, 1.0, 0.0, 1.0, 0.0, 0.0]] * (k % 2)
+    return np.vstack([sos, np.array(delay)]) if delay else sos
 
 
 # Section type -> designer(params, rate) -> SOS rows. Adding a type: one function, one row

@@ -100,10 +100,16 @@ class Assessment:
 
 
 def response_db(sos: np.ndarray, freqs: np.ndarray, rate: float) -> np.ndarray:
-    """Magnitude of the cascade in dB at ``freqs`` (Hz), floored at FLOOR_DB."""
-    _, h = signal.freqz_sos(sos, worN=np.asarray(freqs, dtype=float), fs=rate)
-    with np.errstate(divide="ignore"):
-        return np.maximum(20.0 * np.log10(np.abs(h)), FLOOR_DB)
+    """Magnitude of the cascade in dB at ``freqs`` (Hz), floored at FLOOR_DB.
+
+    A pole exactly on the unit circle (a rejected, unstable chain) makes the
+    response infinite there; scipy then yields inf or nan, read here as +inf dB,
+    without numpy's divide/invalid warnings on stderr.
+    """
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        _, h = signal.freqz_sos(sos, worN=np.asarray(freqs, dtype=float), fs=rate)
+        db = 20.0 * np.log10(np.abs(h))
+    return np.maximum(np.where(np.isnan(db), np.inf, db), FLOOR_DB)
 
 
 def pole_radii(sos: np.ndarray) -> np.ndarray:

@@ -202,6 +202,8 @@ def _yaml_problem(exc: yaml.YAMLError) -> str:
     """The library's one-line reason, without its multi-line "in <unicode string>" excerpt."""
     if isinstance(exc, yaml.MarkedYAMLError):
         what = exc.problem or exc.context
+        if exc.problem and exc.context:      # "expected a single document in the stream, but found another document"
+            what = f"{exc.context}{',' if exc.problem.startswith('but') else ':'} {exc.problem}"
     elif isinstance(exc, yaml.reader.ReaderError) and isinstance(exc.character, str):
         what = f"unacceptable character #x{ord(exc.character):04x}: {exc.reason}"
     else:
@@ -543,7 +545,8 @@ def _read_text(path: str, where: Location | None) -> str:
     except FileNotFoundError:
         raise fail(f"recipe file '{path}' does not exist; give the path of a .yaml recipe") from None
     except OSError as exc:
-        raise fail(f"cannot read recipe file '{path}': {exc.strerror or exc}; a recipe must be a readable file") from None
+        raise fail(f"cannot read recipe file '{path}': {exc.strerror or exc}; "
+                   "a recipe must be a readable file") from None
     try:
         return data.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -611,6 +614,9 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None) -> tup
         at = entries["chain"][1].where if "chain" in entries else root.where
         raise RecipeError.at(at, "the chain is empty; give at least one section "
                                  f"(types: {', '.join(SECTION_TYPES)})")
+    # Every file's guard and output are validated, though only the top recipe's apply.
+    _guard(entries["guard"][1] if "guard" in entries else None)
+    _output(entries["output"][1] if "output" in entries else None)
     return entries, sections, included
 
 
@@ -638,7 +644,7 @@ def load(path: str | os.PathLike) -> Recipe:
     >>> from chainrun.recipe import load
     >>> recipe = load("recipes/marsh-cleanup.yaml")     # doctest: +SKIP
     >>> [s.kind for s in recipe.sections]                 # doctest: +SKIP
-    ['highpass', 'notch', 'notch', 'notch', 'peak']
+    ['highpass', 'notch', 'notch', 'notch', 'notch']
     """
     path = os.fspath(path)
     entries, sections, included = _load_file(path, (), None)

@@ -1,0 +1,333 @@
+"""The guard: stability, gain extremes, the L1 worst-case bound, decay, located problems.
+
+Independent oracles: analytic results for first-order sections, scipy.signal for
+frequency responses and Butterworth poles, numpy.roots for pole radii.
+"""
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+from scipy import signal
+
+from chainrun.design import design
+from chainrun.guard import FLOOR_DB, assess
+from chainrun.recipe import load
+
+_freqz_sos = getattr(signal, "freqz_sos", None) or signal.sosfreqz
+
+
+def dense_max_abs_h(sos: np.ndarray, rate: float, n: int = 1 << 15) -> tuple[float, float]:
+    """max |H| and its frequency on a dense linear + log grid (scipy.signal, reference library)."""
+    f = np.unique(np.concatenate([np.linspace(0.0, rate / 2, n), np.geomspace(1.0, rate / 2, n)]))
+    _, h = _freqz_sos(sos, worN=f, fs=rate)
+    i = int(np.argmax(np.abs(h)))
+    return float(np.abs(h[i])), float(f[i])
+
+
+def assess_text(path, text: str, rate: int):
+    path.write_text(text, encoding="utf-8")
+    recipe = load(path)
+    chain = design(recipe, rate)
+    return recipe, chain, assess(chain, recipe.guard, recipe)
+
+
+@pytest.fixture
+def run(tmp_path):
+    """``run(text, rate)`` -> (recipe, chain, assessment) for recipe ``text``."""
+    return lambda text, rate=48000: assess_text(tmp_path / "r.yaml", text, rate)
+
+
+def iir_recipe(c: float, guard: str = "max_gain_db: 120") -> str:
+    return f"format: 1\nchain:\n  - {{type: iir, b: [1], a: [1, {c}]}}\nguard: {{{guard}}}\n"
+
+
+# --------------------------------------------------------------------------- first-order feedback
+
+@pytest.mark.parametrize("rate", [44100, 48000])
+@pytest.mark.parametrize("c", [0.5, 0.9, -0.5, -0.9, 0.25, -0.999, 0.999])
+def test_first_order_feedback_assessment(run, rate, c):
+    _, _, a = run(iir_recipe(c), rate)
+    nyq = rate / 2
+    hi_hz, lo_hz = (nyq, 0.0) if c > 0 else (0.0, nyq)
+    # analytic: H(z) = 1/(1 + c z^-1); |H| peaks at z = -sign(c) with 1/(1-|c|), dips to 1/(1+|c|)
+    assert_allclose(a.max_gain_db, 20 * math.log10(1 / (1 - abs(c))), atol=1e-6)
+    assert_allclose(a.max_gain_hz, hi_hz, atol=1e-3)
+    assert_allclose(a.min_gain_db, 20 * math.log10(1 / (1 + abs(c))), atol=1e-6)
+    assert_allclose(a.min_gain_hz, lo_hz, atol=1e-3)
+    # analytic (geometric series): h[n] = (-c)^n, sum |h[n]| = 1/(1-|c|)
+    assert_allclose(a.peak_gain, 1 / (1 - abs(c)), rtol=1e-9)
+    assert a.peak_gain_exact
+    assert_allclose(a.max_pole_radius, abs(c), rtol=1e-12)     # analytic: the pole is at z = -c
+    # analytic: |h[n]| = |c|^n falls 60 dB after ln(1e-3)/ln|c| samples (guard resolution 64 samples)
+    n60 = math.log(1e-3) / math.log(abs(c))
+    assert abs(a.decay_s * rate - n60) <= 64 + 1
+    assert a.accepted and a.problems == ()
+
+
+@pytest.mark.parametrize("c,dc_db,nyq_db", [(0.5, -3.52, 6.02), (0.9, -5.58, 20.00)])
+def test_first_order_feedback_rounded_values(run, c, dc_db, nyq_db):
+    _, _, a = run(iir_recipe(c), 44100)
+    # analytic: 20 log10(1/(1+c)) and 20 log10(1/(1-c)), rounded to 0.01 dB
+    assert_allclose([a.min_gain_db, a.max_gain_db], [dc_db, nyq_db], atol=0.005)
+
+
+@pytest.mark.parametrize("c", [1, 1.5, -1, -1.0001, 2.5])
+def test_first_order_feedback_unstable_rejected_at_a(run, tmp_path, c):
+    _, _, a = run(iir_recipe(c), 48000)
+    assert not a.accepted
+    errors = [p for p in a.problems if p.severity == "error"]
+    first = errors[0]
+    assert "iir is unstable" in first.message
+    assert f"radius {abs(c):.6g}" in first.message           # analytic: the root of 1 + c z^-1 is -c
+    # located at the value of key `a` in line 3: "  - {type: iir, b: [1], a: [1, c]}"
+    assert (first.where.path, first.where.line, first.where.col) == (str(tmp_path / "r.yaml"), 3, 28)
+    assert str(first).startswith(f"{tmp_path / 'r.yaml'}:3:28: error: chain[0] iir is unstable")
+    assert math.isinf(a.peak_gain) and not a.peak_gain_exact
+    json.dumps(a.to_dict(), allow_nan=False)                 # JSON-safe even when unstable
+
+
+@pytest.mark.parametrize("c", [0.999, -0.999, 0.9999, -0.99999])
+def test_first_order_feedback_just_inside_is_stable(run, c):
+    _, _, a = run(iir_recipe(c), 48000)
+    assert a.accepted, [str(p) for p in a.problems]
+    assert_allclose(a.peak_gain, 1 / (1 - abs(c)), rtol=1e-6)   # analytic: geometric series
+
+
+def test_pole_margin_applies_to_raw_iir(run):
+    # 1 - 0.999 = 1e-3 < pole_margin 2e-3 -> rejected; the same section passes at the default margin
+    _, _, a = run(iir_recipe(0.999, "max_gain_db: 120, pole_margin: 2.0e-3"))
+    assert not a.accepted
+    assert any("iir is unstable" in p.message and "0.998" in p.message for p in a.problems)
+
+
+# --------------------------------------------------------------------------- property tests
+
+_rates = st.sampled_from([44100, 48000, 96000])
+_freq = st.floats(30.0, 15000.0)
+_gain = st.floats(-15.0, 15.0).map(lambda g: round(g, 3))
+_q = st.floats(0.3, 10.0).map(lambda q: round(q, 3))
+
+
+def _section_text():
+    peak = st.builds(lambda f, g, q: f"{{type: peak, freq: {f!r}, gain_db: {g}, q: {q}}}", _freq, _gain, _q)
+    peak_bw = st.builds(lambda f, g, b: f"{{type: peak, freq: {f!r}, gain_db: {g}, bw: {b}}}",
+                        _freq, _gain, st.floats(0.1, 3.0).map(lambda b: round(b, 3)))
+    shelf = st.builds(lambda k, f, g, s: f"{{type: {k}, freq: {f!r}, gain_db: {g}, slope: {s}}}",
+                      st.sampled_from(["low_shelf", "high_shelf"]), _freq, _gain,
+                      st.floats(0.2, 1.0).map(lambda s: round(s, 3)))
+    shelf_q = st.builds(lambda k, f, g, q: f"{{type: {k}, freq: {f!r}, gain_db: {g}, q: {q}}}",
+                        st.sampled_from(["low_shelf", "high_shelf"]), _freq, _gain, _q)
+    shelf1 = st.builds(lambda k, f, g: f"{{type: {k}, freq: {f!r}, gain_db: {g}, order: 1}}",
+                       st.sampled_from(["low_shelf", "high_shelf"]), _freq, _gain)
+    butter = st.builds(lambda k, f, n: f"{{type: {k}, freq: {f!r}, order: {n}}}",
+                       st.sampled_from(["highpass", "lowpass"]), st.floats(20.0, 18000.0), st.integers(1, 8))
+    passq = st.builds(lambda k, f, q: f"{{type: {k}, freq: {f!r}, q: {q}}}",
+                      st.sampled_from(["highpass", "lowpass"]), _freq, st.floats(0.3, 3.0).map(lambda q: round(q, 3)))
+    return st.one_of(peak, peak_bw, shelf, shelf_q, shelf1, butter, passq)
+
+
+def _chain_recipe(sections: list[str]) -> str:
+    body = "".join(f"  - {s}\n" for s in sections)
+    return f"format: 1\nchain:\n{body}guard: {{max_gain_db: 120}}\n"
+
+
+@pytest.fixture(scope="module")
+def scratch(tmp_path_factory):
+    return tmp_path_factory.mktemp("guard-props") / "r.yaml"
+
+
+@settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(sections=st.lists(_section_text(), min_size=1, max_size=6), rate=_rates)
+def test_l1_bound_never_below_max_gain(scratch, sections, rate):
+    _, chain, a = assess_text(scratch, _chain_recipe(sections), rate)
+    peak_h, _ = dense_max_abs_h(chain.sos, rate)
+    # analytic (Oppenheim & Schafer, BIBO): |H(e^jw)| <= sum |h[n]| for every w
+    assert a.peak_gain >= peak_h * (1 - 1e-9)
+    # the guard's max gain is no lower than the dense scipy grid (its grid is refined), and
+    # never above the L1 bound; tolerance 0.01 dB, common practice, no published source
+    assert a.max_gain_db >= 20 * math.log10(peak_h) - 0.01
+    # (the guard floors gains at guard.FLOOR_DB, -300 dB, so a chain muted below that reads -300)
+    assert a.max_gain_db <= max(20 * math.log10(a.peak_gain), FLOOR_DB) + 1e-9
+    # numpy.roots (reference library): radius of every row's denominator
+    radius = max(np.max(np.abs(np.roots(row[3:]))) if np.any(row[4:]) else 0.0 for row in chain.sos)
+    assert_allclose(a.max_pole_radius, radius, rtol=1e-12)
+    assert a.max_pole_radius < 1.0 and a.accepted
+
+
+@settings(max_examples=60, deadline=None)
+@given(gain_db=st.floats(-119.0, 119.0), rate=_rates)
+def test_l1_of_pure_gain_is_its_magnitude(scratch, gain_db, rate):
+    _, _, a = assess_text(scratch, f"format: 1\nchain:\n  - {{type: gain, gain_db: {gain_db!r}}}\n"
+                                   "guard: {max_gain_db: 120}\n", rate)
+    g = 10 ** (gain_db / 20)
+    assert_allclose(a.peak_gain, g, rtol=1e-12)                 # analytic: h = g delta, sum |h| = |g|
+    assert_allclose([a.max_gain_db, a.min_gain_db], gain_db, atol=1e-9)   # analytic: flat
+    assert a.max_pole_radius == 0.0                             # analytic: no feedback, no poles
+
+
+@settings(max_examples=100, deadline=None)
+@given(b0=st.floats(-4.0, 4.0).filter(lambda v: abs(v) > 1e-3),
+       a0=st.floats(0.25, 4.0), sign=st.sampled_from([1.0, -1.0]),
+       ratio=st.floats(-0.995, 0.995), rate=_rates)
+def test_l1_of_first_order_iir_is_geometric_series(scratch, b0, a0, sign, ratio, rate):
+    a0 *= sign
+    a1 = ratio * a0
+    text = f"format: 1\nchain:\n  - {{type: iir, b: [{b0!r}], a: [{a0!r}, {a1!r}]}}\nguard: {{max_gain_db: 120}}\n"
+    _, _, a = assess_text(scratch, text, rate)
+    c = a1 / a0
+    # analytic (geometric series): h[n] = (b0/a0)(-c)^n, sum |h| = |b0/a0| / (1 - |c|)
+    assert_allclose(a.peak_gain, abs(b0 / a0) / (1 - abs(c)), rtol=1e-9)
+    # numpy.roots (reference library) of the denominator as typed
+    assert_allclose(a.max_pole_radius, np.max(np.abs(np.roots([a0, a1]))), rtol=1e-9, atol=1e-15)
+
+
+@settings(max_examples=80, deadline=None)
+@given(r=st.floats(0.05, 0.999), theta=st.floats(0.01, 3.1), b=st.lists(st.floats(-2, 2), min_size=1, max_size=3)
+       .filter(lambda v: any(abs(x) > 1e-3 for x in v)), rate=_rates)
+def test_pole_radius_of_second_order_iir(scratch, r, theta, b, rate):
+    a = [1.0, -2 * r * math.cos(theta), r * r]
+    text = f"format: 1\nchain:\n  - {{type: iir, b: {b!r}, a: {a!r}}}\nguard: {{max_gain_db: 120}}\n"
+    _, chain, asmt = assess_text(scratch, text, rate)
+    # numpy.roots (reference library); analytic: roots r e^{+-j theta}
+    assert_allclose(asmt.max_pole_radius, np.max(np.abs(np.roots(a))), rtol=1e-9)
+    assert_allclose(asmt.max_pole_radius, r, rtol=1e-9)
+    peak_h, _ = dense_max_abs_h(chain.sos, rate, n=1 << 13)
+    assert asmt.peak_gain >= peak_h * (1 - 1e-9)   # analytic (BIBO): L1 >= max |H|
+
+
+# --------------------------------------------------------------------------- guard decisions
+
+def test_max_gain_exceeded_names_the_culprit(run, tmp_path):
+    _, chain, a = run("""format: 1
+chain:
+  - {type: peak, freq: 1000, gain_db: 3, q: 1}
+  - {type: peak, freq: 5000, gain_db: 10, q: 2, label: sibilance lift}
+  - {type: gain, gain_db: -1}
+guard:
+  max_gain_db: 6
+""")
+    assert not a.accepted
+    (err,) = [p for p in a.problems if p.severity == "error"]
+    assert (err.where.path, err.where.line, err.where.col) == (str(tmp_path / "r.yaml"), 4, 5)
+    assert "above guard.max_gain_db 6 dB" in err.message
+    assert "chain[1] peak 5000 Hz (sibilance lift) contributes +10.0 dB" in err.message
+    peak_h, f_h = dense_max_abs_h(chain.sos, 48000)
+    # scipy.signal.freqz_sos (reference library) on a dense grid; 0.01 dB / 1 % in frequency
+    assert_allclose(a.max_gain_db, 20 * math.log10(peak_h), atol=0.01)
+    assert_allclose(a.max_gain_hz, f_h, rtol=0.01)
+
+
+def test_max_gain_just_below_limit_accepted(run):
+    # W3C Audio EQ Cookbook: a lone peak reaches exactly gain_db at f0
+    _, _, a = run("format: 1\nchain:\n  - {type: peak, freq: 2000, gain_db: 5.9, q: 3}\nguard: {max_gain_db: 6}\n")
+    assert a.accepted
+    assert_allclose(a.max_gain_db, 5.9, atol=1e-6)
+    assert_allclose(a.max_gain_hz, 2000.0, rtol=1e-4)
+
+
+def test_culprit_inside_an_included_recipe_points_into_that_file(tmp_path):
+    (tmp_path / "house.yaml").write_text("format: 1\nchain:\n  - {type: high_shelf, freq: 8000, gain_db: 9}\n")
+    (tmp_path / "top.yaml").write_text("format: 1\ninclude: house.yaml\nchain:\n  - {type: gain, gain_db: -1}\n"
+                                       "guard: {max_gain_db: 3}\n")
+    recipe = load(tmp_path / "top.yaml")
+    a = assess(design(recipe, 48000), recipe.guard, recipe)
+    (err,) = a.problems
+    assert err.where.path.endswith("house.yaml") and (err.where.line, err.where.col) == (3, 5)
+    # W3C Audio EQ Cookbook: high shelf reaches its full gain at Nyquist: 9 - 1 = 8 dB
+    assert_allclose(a.max_gain_db, 8.0, atol=1e-6)
+    # flat (zero slope) at Nyquist: the location is defined only to ~0.1 %
+    assert_allclose(a.max_gain_hz, 24000.0, rtol=1e-3)
+
+
+def test_long_ringing_chain_is_a_warning_not_a_rejection(run, tmp_path):
+    rate, f0, q = 48000, 1000.0, 200.0
+    _, _, a = run(f"""format: 1
+chain:
+  - {{type: gain, gain_db: -3}}
+  - {{type: bandpass, freq: {f0}, q: {q}, label: resonance}}
+guard: {{max_decay_s: 0.1}}
+""", rate)
+    assert a.accepted
+    (warn,) = a.problems
+    assert warn.severity == "warning"
+    assert "longer than guard.max_decay_s 0.1 s" in warn.message and "resonance" in warn.message
+    assert (warn.where.line, warn.where.col) == (4, 5)
+    # analytic: cookbook BPF a2 = (1 - alpha)/(1 + alpha) = r^2; the envelope r^n falls 60 dB
+    # after ln(1e-3)/ln(r) samples. Tolerance 5 %: the sinusoid's first peak is not exactly at n = 0.
+    alpha = math.sin(2 * math.pi * f0 / rate) / (2 * q)
+    r = math.sqrt((1 - alpha) / (1 + alpha))
+    assert_allclose(a.max_pole_radius, r, rtol=1e-12)
+    assert_allclose(a.decay_s, math.log(1e-3) / math.log(r) / rate, rtol=0.05)
+
+
+def test_short_chain_has_no_decay_warning(run):
+    _, _, a = run("format: 1\nchain:\n  - {type: bandpass, freq: 1000, q: 2}\nguard: {max_decay_s: 0.1}\n")
+    assert a.accepted and a.problems == ()
+
+
+def test_pole_margin_rejects_low_butterworth_at_high_rate(tmp_path):
+    # scipy.signal.butter(output='zpk') (reference library): the largest pole radius at each rate
+    def radius(rate):
+        _, p, _ = signal.butter(8, 10.0, btype="highpass", fs=rate, output="zpk")
+        return float(np.max(np.abs(p)))
+
+    r_low, r_high = radius(44100), radius(192000)
+    assert r_low < r_high < 1.0      # analytic: the same corner sits closer to z = 1 at a higher rate
+    margin = math.sqrt((1 - r_low) * (1 - r_high))     # between the two
+    (tmp_path / "r.yaml").write_text(
+        f"format: 1\nchain:\n  - {{type: highpass, freq: 10, order: 8, label: sub}}\n"
+        f"guard: {{pole_margin: {margin!r}}}\n")
+    recipe = load(tmp_path / "r.yaml")
+    low = assess(design(recipe, 44100), recipe.guard, recipe)
+    high = assess(design(recipe, 192000), recipe.guard, recipe)
+    assert low.accepted
+    assert_allclose(low.max_pole_radius, r_low, rtol=1e-12)
+    assert not high.accepted
+    assert_allclose(high.max_pole_radius, r_high, rtol=1e-12)
+    (err,) = high.problems
+    assert err.severity == "error" and (err.where.line, err.where.col) == (3, 5)
+    assert err.message.startswith("at 192000 Hz chain[0] highpass 10 Hz (sub)")
+    assert f"allowed: inside {1 - margin:.9g} (1 - guard.pole_margin)" in err.message
+    assert math.isinf(high.peak_gain)
+
+
+def test_huge_pole_margin_rejects_ordinary_butterworth(run):
+    # pole_margin 0.5 allows only radii <= 0.5; a 20 Hz Butterworth at 96 kHz has poles near z = 1
+    _, _, a = run("format: 1\nchain:\n  - {type: highpass, freq: 20, order: 4}\nguard: {pole_margin: 0.5}\n", 96000)
+    assert not a.accepted
+    assert "has a pole at radius" in a.problems[0].message
+
+
+def test_notch_minimum_is_deep_and_at_f0(run):
+    _, _, a = run("format: 1\nchain:\n  - {type: notch, freq: 50, q: 25}\n")
+    # W3C Audio EQ Cookbook: the notch has its zero at f0
+    assert a.min_gain_db < -100.0
+    assert_allclose(a.min_gain_hz, 50.0, rtol=1e-6)
+    assert_allclose(a.max_gain_db, 0.0, atol=1e-6)   # W3C Audio EQ Cookbook: 0 dB far away
+
+
+def test_assessment_to_dict_is_json_safe_and_complete(run):
+    _, _, a = run("format: 1\nchain:\n  - {type: peak, freq: 500, gain_db: -4, q: 2}\n")
+    d = json.loads(json.dumps(a.to_dict(), allow_nan=False))
+    for key in ("rate", "accepted", "rows", "max_pole_radius", "decay_60db_s", "max_gain_db", "max_gain_hz",
+                "min_gain_db", "min_gain_hz", "worst_case_peak_gain", "worst_case_peak_gain_db", "problems"):
+        assert key in d
+    assert d["rate"] == 48000 and d["accepted"] is True and d["rows"] == 1
+    assert_allclose(d["min_gain_db"], -4.0, atol=1e-6)   # W3C Audio EQ Cookbook: peak gain at f0
+    assert_allclose(d["worst_case_peak_gain_db"], 20 * math.log10(d["worst_case_peak_gain"]), rtol=1e-12)
+
+
+def test_bundled_unstable_recipe_rejected_at_every_rate(repo_root):
+    recipe = load(repo_root / "recipes" / "unstable-hand-typed.yaml")
+    # analytic: roots of 1 - 1.95 z^-1 + 1.01 z^-2 have |z|^2 = 1.01 (product of the roots)
+    for rate in (44100, 48000, 96000):
+        a = assess(design(recipe, rate), recipe.guard, recipe)
+        assert not a.accepted
+        assert_allclose(a.max_pole_radius, math.sqrt(1.01), rtol=1e-9)
+        assert (a.problems[0].where.line, a.problems[0].where.col) == (11, 41)   # value of `a`
