@@ -301,6 +301,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print results as JSON on stdout")
     p.add_argument("--no-true-peak", action="store_true", help="skip true-peak metering (faster)")
     p.set_defaults(func=cmd_scan)
+
     return parser
 
 

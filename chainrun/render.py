@@ -1,0 +1,523 @@
+"""Render one file: blocks in -> filter (state carried) -> meters -> policy -> quantise -> temp -> rename.
+
+Memory does not depend on the file's length: every buffer is one block long.
+The output is written to a temporary name in the destination folder, flushed
+and fsynced, and only then renamed to its final name, so a final name never
+holds an incomplete file. The input is opened read-only and never written.
+
+Notes
+-----
+Integer output is quantised here, not by libsndfile: ``round(x * 2**(bits-1)
++ dither)`` then hard-clipped to the code range, so writing +2.0 to PCM_16 gives
+32767 and can never wrap around. Reading PCM with soundfile divides by
+``2**(bits-1)``, so a file filtered by a 0 dB chain without dither comes back
+bit-identical.
+"""
+from __future__ import annotations
+
+import errno
+import hashlib
+import math
+import os
+import secrets
+import time
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import soundfile as sf
+from scipy import signal
+
+from .meters import Meter, MeterReading
+
+__all__ = ["Policy", "Source", "FileResult", "AudioError", "probe", "render_file", "scan_file", "output_format"]
+
+DEFAULT_BLOCK = 65536
+MAX_BLOCK = 1 << 22
+RF64_THRESHOLD = 0xFFFFFFFF - (1 << 20)   # bytes; a RIFF size field cannot say more than 4 GiB
+TEMP_TAG = ".chainrun-part-"              # temporary outputs: .<name>.chainrun-part-<random>
+_SFC_SET_ADD_PEAK_CHUNK = 0x1050          # libsndfile sf_command: the PEAK chunk holds a time stamp
+
+# Output subtype -> (bits or None for float, numpy dtype handed to libsndfile, left shift into it).
+# libsndfile takes the top bits of int16/int32 data, so 24-bit codes are shifted up by 8.
+SUBTYPES: dict[str, tuple[int | None, Any, int]] = {
+    "PCM_U8": (8, np.int16, 8),      # 8-bit WAV
+    "PCM_S8": (8, np.int16, 8),      # 8-bit AIFF
+    "PCM_16": (16, np.int16, 0),
+    "PCM_24": (24, np.int32, 8),
+    "PCM_32": (32, np.int32, 0),
+    "FLOAT": (None, np.float32, 0),
+    "DOUBLE": (None, np.float64, 0),
+}
+# Formats whose size field is 32 bits and which have a 64-bit sibling.
+_LARGE_FORMAT = {"WAV": "RF64", "WAVEX": "RF64"}
+
+
+class AudioError(Exception):
+    """A problem with one audio file: one line, naming the file."""
+
+
+@dataclass(frozen=True)
+class Policy:
+    """How to render: headroom policy, ceiling, output format, block size."""
+
+    on_over: str = "reject"
+    ceiling_dbfs: float = 0.0
+    true_peak_ceiling_dbtp: float | None = None
+    subtype: str = "same"
+    dither: str = "auto"
+    block_size: int = DEFAULT_BLOCK
+    true_peak: bool = True
+    max_regions: int = 20
+
+    @property
+    def ceiling(self) -> float:
+        return 10.0 ** (self.ceiling_dbfs / 20.0)
+
+
+@dataclass(frozen=True)
+class Source:
+    """What an input file holds, from its header."""
+
+    path: str
+    rate: int
+    channels: int
+    frames: int
+    format: str
+    subtype: str
+    size: int
+    mtime_ns: int
+
+    @property
+    def duration_s(self) -> float:
+        return self.frames / self.rate if self.rate else 0.0
+
+
+@dataclass
+class FileResult:
+    """The outcome for one input file; ``status`` is ok, clipped, rejected, failed or skipped."""
+
+    input: str
+    relpath: str
+    status: str
+    message: str = ""
+    output: str | None = None
+    source: Source | None = None
+    out_format: str | None = None
+    out_subtype: str | None = None
+    dither: bool = False
+    input_meters: MeterReading | None = None
+    output_meters: MeterReading | None = None
+    over_db: float | None = None         # how far the filtered peak passed the ceiling
+    trim_db: float | None = None         # a gain that would fit under the ceiling
+    gain_db: float = 0.0                 # gain applied by the scale policy
+    clipped_by_chainrun: int = 0         # samples hard-clipped by policy or quantiser
+    seconds: float = 0.0
+    extra: dict = field(default_factory=dict)
+
+
+def _full_scale(subtype: str) -> float:
+    bits = SUBTYPES.get(subtype, (None,))[0]
+    return (2 ** (bits - 1) - 1) / 2 ** (bits - 1) if bits else 1.0
+
+
+def probe(path: str) -> Source:
+    """Read an input's header.
+
+    Raises
+    ------
+    AudioError
+        If the file cannot be opened as audio, holds no frames or has no channels.
+    """
+    try:
+        st = os.stat(path)
+        info = sf.info(path)
+    except (sf.LibsndfileError, RuntimeError, OSError, ValueError) as exc:
+        raise AudioError(_why(exc)) from None
+    if info.frames <= 0:
+        raise AudioError("holds no audio frames; nothing to filter")
+    if info.channels <= 0 or info.samplerate <= 0:
+        raise AudioError("declares no channels or no sample rate; the header is damaged")
+    return Source(path, int(info.samplerate), int(info.channels), int(info.frames),
+                  info.format, info.subtype, st.st_size, st.st_mtime_ns)
+
+
+def _why(exc: BaseException) -> str:
+    if isinstance(exc, OSError) and exc.strerror:
+        return f"cannot read: {exc.strerror.lower()}"
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    if "Error opening" in text and ":" in text:
+        text = text.rsplit(":", 1)[-1].strip()
+    return f"not readable as audio: {text.rstrip('.')}"
+
+
+def output_format(src: Source, subtype: str) -> tuple[str, str]:
+    """Container and subtype of the output for ``src`` (``subtype`` may be ``same``).
+
+    WAV outputs that would pass 4 GiB become RF64.
+
+    Raises
+    ------
+    AudioError
+        If the subtype cannot be written, or the container cannot hold it.
+    """
+    out_subtype = src.subtype if subtype == "same" else subtype
+    if out_subtype not in SUBTYPES:
+        raise AudioError(f"its encoding {src.subtype} cannot be written back as it is; "
+                         "set output.subtype to one of PCM_16, PCM_24, PCM_32, FLOAT, DOUBLE")
+    fmt = src.format
+    bits = SUBTYPES[out_subtype][0]
+    nbytes = src.frames * src.channels * ((bits or (32 if out_subtype == "FLOAT" else 64)) // 8)
+    if fmt in _LARGE_FORMAT and nbytes > RF64_THRESHOLD:
+        fmt = _LARGE_FORMAT[fmt]
+    if not sf.check_format(fmt, out_subtype):
+        raise AudioError(f"a {fmt} file cannot hold {out_subtype}; choose another output.subtype")
+    return fmt, out_subtype
+
+
+def _bits_of(subtype: str) -> float:
+    bits = SUBTYPES.get(subtype, (None,))[0]
+    return float(bits) if bits else math.inf
+
+
+def wants_dither(policy_dither: str, in_subtype: str, out_subtype: str) -> bool:
+    """TPDF dither: always for ``tpdf``; for ``auto`` when integer output has fewer bits than the input."""
+    out_bits = SUBTYPES[out_subtype][0]
+    if out_bits is None or policy_dither == "none":
+        return False
+    if policy_dither == "tpdf":
+        return True
+    return _bits_of(in_subtype) > out_bits
+
+
+def seed_for(key: str) -> int:
+    """Dither seed from a file's relative path, so reruns are bit-identical."""
+    return int.from_bytes(hashlib.sha256(key.encode("utf-8", "surrogateescape")).digest()[:8], "little")
+
+
+class Quantiser:
+    """Float (channels, frames) -> the array handed to libsndfile, with optional TPDF dither.
+
+    TPDF dither is the difference of two independent uniform values of one LSB,
+    triangular on (-1, +1) LSB; draws are made frame by frame, channel by channel,
+    so the sequence does not depend on the block size.
+    """
+
+    def __init__(self, subtype: str, dither: bool, seed: int):
+        self.bits, self.dtype, self.shift = SUBTYPES[subtype]
+        self.rng = np.random.Generator(np.random.PCG64(seed)) if dither and self.bits else None
+        if self.bits:
+            self.scale = float(2 ** (self.bits - 1))
+            self.lo, self.hi = -self.scale, self.scale - 1.0
+
+    def __call__(self, y: np.ndarray) -> tuple[np.ndarray, int]:
+        """Returns (frames x channels array to write, number of samples clipped at full scale)."""
+        if self.bits is None:
+            return np.ascontiguousarray(y.T, dtype=self.dtype), 0
+        v = np.multiply(y.T, self.scale)      # (frames, channels), C-contiguous
+        if self.rng is not None:
+            r = self.rng.random((v.shape[0], v.shape[1], 2))
+            v += r[..., 0]
+            v -= r[..., 1]
+        np.rint(v, out=v)
+        clipped = 0
+        if v.size and (v.max() > self.hi or v.min() < self.lo):
+            clipped = int(np.count_nonzero(v > self.hi) + np.count_nonzero(v < self.lo))
+            np.clip(v, self.lo, self.hi, out=v)
+        codes = v.astype(np.int32 if self.dtype == np.int32 else np.int16)
+        if self.shift:
+            codes <<= self.shift
+        return codes, clipped
+
+
+def temp_path_for(final: str) -> str:
+    d, name = os.path.split(final)
+    return os.path.join(d, f".{name}{TEMP_TAG}{secrets.token_hex(4)}")
+
+
+def _fsync_path(path: str, directory: bool = False) -> None:
+    fd = os.open(path, os.O_RDONLY | (os.O_DIRECTORY if directory else 0))
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _remove_quietly(path: str | None) -> None:
+    if path:
+        try:
+            os.unlink(path)
+        except FileNotFoundError:
+            pass
+
+
+def _open_output(path: str, src: Source, fmt: str, subtype: str) -> sf.SoundFile:
+    f = sf.SoundFile(path, "w", src.rate, src.channels, subtype, format=fmt)
+    # The PEAK chunk of float WAV/AIFF carries a time stamp; without it reruns are bit-identical.
+    sf._snd.sf_command(f._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
+    return f
+
+
+class _Blocks:
+    """Reads an input in blocks as channel-major float64 and checks it for length and NaN."""
+
+    def __init__(self, src: Source, block: int):
+        self.src, self.block = src, block
+        self.f = sf.SoundFile(src.path, "r")
+        self.buf = np.empty((block, src.channels), dtype=np.float64)
+        self.done = 0
+
+    def __iter__(self):
+        return self
+
+    def __next__(self) -> np.ndarray:
+        got = self.f.read(self.block, dtype="float64", always_2d=True, out=self.buf)
+        n = len(got)
+        if n == 0:
+            if self.done < self.src.frames:
+                raise AudioError(f"ended early: {self.done} of {self.src.frames} frames could be read "
+                                 "(cut short, or changed while being read)")
+            raise StopIteration
+        x = np.ascontiguousarray(got.T)
+        if not np.isfinite(x).all():
+            ch, at = np.argwhere(~np.isfinite(x))[0]
+            raise AudioError(f"sample {self.done + at} of channel {ch + 1} is {x[ch, at]}; "
+                             "chainrun does not pass NaN or Inf on (repair or re-export the file)")
+        self.done += n
+        return x
+
+    def close(self) -> None:
+        self.f.close()
+
+
+class _Filter:
+    """sosfilt over channel-major blocks with the state carried, plus the runtime guard."""
+
+    def __init__(self, sos: np.ndarray, channels: int, bound: float):
+        self.sos = np.array(sos, dtype=np.float64)
+        self.zi = np.zeros((len(self.sos), channels, 2))
+        self.bound = bound
+        self.in_peak = 0.0
+        self.out_peak = 0.0
+
+    def __call__(self, x: np.ndarray, frame0: int) -> np.ndarray:
+        y, self.zi = signal.sosfilt(self.sos, x, axis=-1, zi=self.zi)
+        if x.size:
+            self.in_peak = max(self.in_peak, float(x.max()), float(-x.min()))
+            hi, lo = float(y.max()), float(y.min())
+            if not (math.isfinite(hi) and math.isfinite(lo)):
+                raise AudioError(f"the filter output became non-finite near sample {frame0}; "
+                                 "nothing was delivered")
+            peak = max(hi, -lo)
+            # Guard promise: |y| <= L1 * max|x| for every input; allow rounding.
+            if peak > self.bound * self.in_peak * (1 + 1e-9) + 1e-12:
+                raise AudioError(f"the filter output ({20 * math.log10(peak):+.2f} dBFS) passed the guard's "
+                                 f"worst-case bound near sample {frame0}; nothing was delivered")
+            self.out_peak = max(self.out_peak, peak)
+        return y
+
+
+def _db(x: float) -> float:
+    return 20.0 * math.log10(x) if x > 0 else -math.inf
+
+
+def _over(peak: float, true_peak: float | None, policy: Policy) -> float:
+    """dB by which the output passes the ceiling(s); <= 0 when it fits."""
+    over = _db(peak) - policy.ceiling_dbfs
+    if policy.true_peak_ceiling_dbtp is not None and true_peak is not None:
+        over = max(over, _db(true_peak) - policy.true_peak_ceiling_dbtp)
+    return over
+
+
+def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Policy,
+                seed_key: str, relpath: str | None = None) -> FileResult:
+    """Filter one file into ``dst`` atomically.
+
+    Parameters
+    ----------
+    src
+        From :func:`probe`.
+    dst
+        Final output path; its folder must exist. Never the input itself.
+    sos
+        The chain designed at ``src.rate`` (S x 6).
+    bound
+        The guard's worst-case peak gain (L1 norm) for ``sos``: the runtime guard
+        stops the file if the output ever passes ``bound * input peak``.
+    policy
+        Headroom policy, ceilings, output format, block size.
+    seed_key
+        Seeds the dither (the file's relative path).
+
+    Returns
+    -------
+    FileResult
+        Status ``ok``, ``clipped``, ``rejected`` or ``failed``; on anything but ok
+        and clipped, no file exists under ``dst``.
+    """
+    t0 = time.perf_counter()
+    res = FileResult(input=src.path, relpath=relpath or seed_key, status="failed", source=src)
+    tmp = scratch = None
+    try:
+        if os.path.exists(dst) and os.path.samefile(dst, src.path):
+            raise AudioError("the output would overwrite the input; refused")
+        fmt, out_subtype = output_format(src, policy.subtype)
+        res.out_format, res.out_subtype = fmt, out_subtype
+        res.dither = wants_dither(policy.dither, src.subtype, out_subtype)
+        block = policy.block_size
+        in_meter = Meter(src.rate, src.channels, full_scale=_full_scale(src.subtype),
+                         true_peak=policy.true_peak, max_regions=policy.max_regions)
+        out_fs = _full_scale(out_subtype)
+        quantise = Quantiser(out_subtype, res.dither, seed_for(seed_key))
+        filt = _Filter(sos, src.channels, bound)
+        tmp = temp_path_for(dst)
+
+        if policy.on_over == "scale":
+            # Pass 1: filter to a float64 scratch file, metering the unscaled output.
+            pre = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=policy.true_peak, max_regions=0)
+            scratch = tmp + ".f64"
+            reader = _Blocks(src, block)
+            try:
+                with open(scratch, "wb") as fh:
+                    for x in reader:
+                        in_meter.update(x)
+                        y = filt(x, reader.done - x.shape[1])
+                        pre.update(y)
+                        fh.write(np.ascontiguousarray(y.T).tobytes())
+            finally:
+                reader.close()
+            pre_r = pre.result()
+            over = _over(filt.out_peak, _max_tp(pre_r), policy)
+            gain = 10.0 ** (-over / 20.0) if over > 0 else 1.0
+            res.gain_db = _db(gain) if over > 0 else 0.0
+            res.over_db = over if over > 0 else None
+            # Pass 2: scale, meter, quantise, write.
+            out_meter = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=policy.true_peak,
+                              max_regions=policy.max_regions)
+            with open(scratch, "rb") as fh, _open_output(tmp, src, fmt, out_subtype) as out:
+                while True:
+                    raw = fh.read(block * src.channels * 8)
+                    if not raw:
+                        break
+                    y = np.frombuffer(raw, dtype=np.float64).reshape(-1, src.channels).T * gain
+                    y = np.ascontiguousarray(y)
+                    out_meter.update(y)
+                    data, clipped = quantise(y)
+                    res.clipped_by_chainrun += clipped
+                    out.write(data)
+            _remove_quietly(scratch)
+            scratch = None
+        else:
+            out_meter = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=policy.true_peak,
+                              max_regions=policy.max_regions)
+            ceiling = policy.ceiling
+            reader = _Blocks(src, block)
+            out = _open_output(tmp, src, fmt, out_subtype)
+            writing = True
+            try:
+                for x in reader:
+                    in_meter.update(x)
+                    y = filt(x, reader.done - x.shape[1])
+                    if policy.on_over == "clip" and filt.out_peak > ceiling:
+                        n_over = int(np.count_nonzero(np.abs(y) > ceiling))
+                        if n_over:
+                            np.clip(y, -ceiling, ceiling, out=y)
+                            res.clipped_by_chainrun += n_over
+                    out_meter.update(y)
+                    if policy.on_over == "reject" and filt.out_peak > ceiling and writing:
+                        writing = False            # will be rejected: stop writing, keep metering
+                        out.close()
+                        _remove_quietly(tmp)
+                    if writing:
+                        data, clipped = quantise(y)
+                        res.clipped_by_chainrun += clipped
+                        out.write(data)
+            finally:
+                reader.close()
+                if not out.closed:
+                    out.close()
+            over = _over(filt.out_peak, _max_tp(out_meter.result()), policy)
+            if over > 0:
+                res.over_db = over
+            if policy.on_over == "reject" and over > 0:
+                _remove_quietly(tmp)
+                tmp = None
+                res.input_meters, res.output_meters = in_meter.result(), out_meter.result()
+                res.trim_db = -over - 0.01
+                res.status = "rejected"
+                res.message = (f"output would pass the ceiling by {over:.2f} dB; not delivered. "
+                               f"A trim of {res.trim_db:.2f} dB (a gain section, or on_over: scale) would fit")
+                return res
+
+        _check_unchanged(src)
+        _fsync_path(tmp)
+        os.replace(tmp, dst)
+        tmp = None
+        _fsync_path(os.path.dirname(dst) or ".", directory=True)
+        res.output = dst
+        res.input_meters, res.output_meters = in_meter.result(), out_meter.result()
+        res.status = "clipped" if res.clipped_by_chainrun else "ok"
+        if res.status == "clipped":
+            res.message = f"{res.clipped_by_chainrun} sample(s) hard-clipped at the ceiling"
+            if res.over_db:
+                res.message += f" (the filtered peak passed it by {res.over_db:.2f} dB)"
+        elif res.gain_db:
+            res.message = f"scaled by {res.gain_db:.2f} dB to fit the ceiling"
+        return res
+    except AudioError as exc:
+        res.status, res.message = "failed", str(exc)
+        return res
+    except (sf.LibsndfileError, RuntimeError) as exc:
+        res.status, res.message = "failed", _why(exc)
+        return res
+    except OSError as exc:
+        res.status = "failed"
+        if exc.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+            res.message = f"cannot write the output: {os.strerror(exc.errno).lower()}; nothing was delivered"
+        else:
+            res.message = f"{exc.strerror.lower() if exc.strerror else exc}: {exc.filename or dst}"
+        return res
+    finally:
+        _remove_quietly(tmp)
+        _remove_quietly(scratch)
+        res.seconds = time.perf_counter() - t0
+
+
+def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, relpath: str = "") -> FileResult:
+    """Meter an existing file; nothing is written. Status ok, clipped (samples at full scale) or failed."""
+    t0 = time.perf_counter()
+    res = FileResult(input=src.path, relpath=relpath or src.path, status="failed", source=src)
+    meter = Meter(src.rate, src.channels, full_scale=_full_scale(src.subtype), true_peak=true_peak)
+    try:
+        reader = _Blocks(src, block)
+        try:
+            for x in reader:
+                meter.update(x)
+        finally:
+            reader.close()
+        res.input_meters = meter.result()
+        clipped = sum(c.clipped_samples for c in res.input_meters.channels)
+        res.status = "clipped" if clipped else "ok"
+        if clipped:
+            res.message = f"{clipped} sample(s) at or beyond full scale"
+    except AudioError as exc:
+        res.message = str(exc)
+    except (sf.LibsndfileError, RuntimeError, OSError) as exc:
+        res.message = _why(exc)
+    res.seconds = time.perf_counter() - t0
+    return res
+
+
+def _max_tp(reading: MeterReading) -> float | None:
+    tps = [c.true_peak for c in reading.channels if c.true_peak is not None]
+    return max(tps) if tps else None
+
+
+def _check_unchanged(src: Source) -> None:
+    try:
+        st = os.stat(src.path)
+    except OSError as exc:
+        raise AudioError(f"disappeared while being read ({exc.strerror})") from None
+    if st.st_size != src.size or st.st_mtime_ns != src.mtime_ns:
+        raise AudioError("changed while being read (size or modification time differs); "
+                         "nothing was delivered, run again once it is stable")

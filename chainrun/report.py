@@ -1,0 +1,196 @@
+"""Batch reports: JSON (everything), CSV (a row per file) and the console summary.
+
+Field names are plain English and trade terms (dBFS, dBTP). dB values of
+silence, which are minus infinity, are written as null in JSON and left empty
+in CSV.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import os
+import platform
+import time
+from typing import Any
+
+from . import __version__
+from .batch import BatchResult
+from .render import FileResult, temp_path_for
+
+__all__ = ["STATUS_ORDER", "file_dict", "batch_dict", "write_reports", "console_summary", "worst_first",
+           "error_lines", "report_paths"]
+
+# Status -> rank in "needs attention first" order.
+STATUS_ORDER = {"failed": 0, "rejected": 1, "clipped": 2, "ok": 3, "skipped": 4}
+CSV_FIELDS = (
+    "input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
+    "out_format", "out_subtype", "dither", "in_peak_dbfs", "in_true_peak_dbtp", "in_clipped_samples",
+    "out_peak_dbfs", "out_true_peak_dbtp", "out_rms_dbfs", "out_clipped_samples", "over_db", "trim_db",
+    "gain_db", "clipped_by_chainrun", "seconds",
+)
+
+
+def _num(x: Any) -> Any:
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    return x
+
+
+def _worst(reading, attr: str) -> float | None:
+    if reading is None:
+        return None
+    vals = [getattr(c, attr) for c in reading.channels if getattr(c, attr) is not None]
+    return max(vals) if vals else None
+
+
+def _shown(path: str | None) -> str | None:
+    """A path as text; bytes that are not UTF-8 shown as \\xNN."""
+    if path is None:
+        return None
+    return path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+
+
+def file_dict(r: FileResult) -> dict:
+    """One file's result as JSON-safe data."""
+    s = r.source
+    d = {
+        "input": _shown(r.input), "relpath": _shown(r.relpath), "output": _shown(r.output),
+        "status": r.status, "message": r.message,
+        "rate_hz": s.rate if s else None, "channels": s.channels if s else None,
+        "frames": s.frames if s else None, "duration_s": s.duration_s if s else None,
+        "format": s.format if s else None, "subtype": s.subtype if s else None,
+        "out_format": r.out_format, "out_subtype": r.out_subtype, "dither": r.dither if r.out_subtype else None,
+        "over_db": _num(r.over_db), "trim_db": _num(r.trim_db), "gain_db": _num(r.gain_db),
+        "clipped_by_chainrun": r.clipped_by_chainrun, "seconds": round(r.seconds, 4),
+        "input_meters": r.input_meters.to_dict() if r.input_meters else None,
+        "output_meters": r.output_meters.to_dict() if r.output_meters else None,
+    }
+    d.update(r.extra)
+    return d
+
+
+def _csv_row(r: FileResult) -> dict:
+    d = file_dict(r)
+    im, om = r.input_meters, r.output_meters
+
+    def db(x):
+        return "" if x is None or not math.isfinite(x) else f"{x:.2f}"
+
+    row = {k: d.get(k) for k in CSV_FIELDS if k in d}
+    row.update(
+        in_peak_dbfs=db(_worst(im, "peak_dbfs")), in_true_peak_dbtp=db(_worst(im, "true_peak_dbtp")),
+        in_clipped_samples=sum(c.clipped_samples for c in im.channels) if im else "",
+        out_peak_dbfs=db(_worst(om, "peak_dbfs")), out_true_peak_dbtp=db(_worst(om, "true_peak_dbtp")),
+        out_rms_dbfs=db(_worst(om, "rms_dbfs")),
+        out_clipped_samples=sum(c.clipped_samples for c in om.channels) if om else "",
+        over_db=db(r.over_db), trim_db=db(r.trim_db), gain_db=db(r.gain_db),
+    )
+    return {k: ("" if row.get(k) is None else row.get(k)) for k in CSV_FIELDS}
+
+
+def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
+    """The whole batch as JSON-safe data: recipe, designs per rate, files, summary."""
+    audio_s = sum(r.source.duration_s for r in b.results if r.source and r.status in ("ok", "clipped"))
+    return {
+        "chainrun_version": __version__,
+        "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "host": {"python": platform.python_version(), "platform": platform.platform()},
+        "command": command,
+        "recipe": b.recipe.to_dict(),
+        "recipe_digest": b.recipe.digest,
+        "policy": {
+            "on_over": b.policy.on_over, "ceiling_dbfs": b.policy.ceiling_dbfs,
+            "true_peak_ceiling_dbtp": b.policy.true_peak_ceiling_dbtp, "subtype": b.policy.subtype,
+            "dither": b.policy.dither, "block_size": b.policy.block_size,
+        },
+        "rates": [
+            {"rate_hz": rate, "usable": d.usable, "error": d.error,
+             "chain": d.chain.to_dict() if d.chain else None,
+             "assessment": d.assessment.to_dict() if d.assessment else None}
+            for rate, d in sorted(b.designs.items())
+        ],
+        "summary": {
+            "files": len(b.results), **{s: b.count(s) for s in STATUS_ORDER},
+            "audio_seconds_delivered": round(audio_s, 3), "wall_seconds": round(b.seconds, 3),
+            "interrupted": b.interrupted,
+        },
+        "files": [file_dict(r) for r in b.results],
+    }
+
+
+def _atomic_write(path: str, text: str) -> None:
+    tmp = temp_path_for(path)
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+
+
+def report_paths(b: BatchResult, json_path: str | None = None) -> dict[str, str]:
+    base = os.path.splitext(json_path)[0] if json_path else os.path.join(b.outdir, "chainrun-report")
+    return {"json": base + ".json", "csv": base + ".csv", "html": base + ".html"}
+
+
+def write_reports(b: BatchResult, json_path: str | None = None, command: list[str] | None = None) -> dict[str, str]:
+    """Write the JSON and CSV reports (each atomically); returns their paths."""
+    paths = report_paths(b, json_path)
+    os.makedirs(os.path.dirname(paths["json"]) or ".", exist_ok=True)
+    data = batch_dict(b, command)
+    _atomic_write(paths["json"], json.dumps(data, indent=2, allow_nan=False) + "\n")
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, fieldnames=CSV_FIELDS, lineterminator="\n")
+    w.writeheader()
+    for r in worst_first(b.results):
+        w.writerow(_csv_row(r))
+    _atomic_write(paths["csv"], buf.getvalue())
+    del paths["html"]
+    return paths
+
+
+def worst_first(results: list[FileResult]) -> list[FileResult]:
+    """Files needing attention first: failed, rejected, clipped, then by output peak, loudest first."""
+    def key(r: FileResult):
+        peak = _worst(r.output_meters, "peak") or 0.0
+        return (STATUS_ORDER.get(r.status, 9), -peak, r.relpath)
+    return sorted(results, key=key)
+
+
+def _fmt_db(x: float | None, unit: str) -> str:
+    if x is None:
+        return "-"
+    if not math.isfinite(x):
+        return f"-inf {unit}"
+    return f"{x:+.2f} {unit}"
+
+
+def console_summary(b: BatchResult, paths: dict[str, str] | None = None, limit: int = 40) -> str:
+    """A short table, worst files first, and a totals line."""
+    lines = [f"{'status':<9} {'out peak':>11} {'out true peak':>13} {'in peak':>11}  file"]
+    rows = worst_first(b.results)
+    for r in rows[:limit]:
+        lines.append(f"{r.status:<9} {_fmt_db(_worst(r.output_meters, 'peak_dbfs'), 'dBFS'):>11} "
+                     f"{_fmt_db(_worst(r.output_meters, 'true_peak_dbtp'), 'dBTP'):>13} "
+                     f"{_fmt_db(_worst(r.input_meters, 'peak_dbfs'), 'dBFS'):>11}  {_shown(r.relpath)}"
+                     + (f"  ({r.message})" if r.message else ""))
+    if len(rows) > limit:
+        lines.append(f"... and {len(rows) - limit} more in the report")
+    counts = ", ".join(f"{b.count(s)} {s}" for s in STATUS_ORDER if b.count(s))
+    audio = sum(r.source.duration_s for r in b.results if r.source and r.status in ("ok", "clipped"))
+    lines.append(f"{len(b.results)} file(s): {counts or 'none'}; {audio:.1f} s of audio delivered "
+                 f"in {b.seconds:.1f} s" + ("; INTERRUPTED" if b.interrupted else ""))
+    if paths:
+        lines.append("report: " + ", ".join(paths.values()))
+    return "\n".join(lines)
+
+
+def error_lines(b: BatchResult) -> list[str]:
+    """One located line per file that failed or was rejected, for stderr."""
+    return [f"{_shown(r.input)}: {'error' if r.status == 'failed' else 'rejected'}: {r.message}"
+            for r in b.results if r.status in ("failed", "rejected")]
