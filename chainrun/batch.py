@@ -6,20 +6,30 @@ is ever written outside OUTDIR, and OUTDIR may not lie inside an input folder.
 """
 from __future__ import annotations
 
+import hashlib
+import json
+import multiprocessing
 import os
 import stat
+import sys
 import time
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field
 
+from . import __version__
 from .design import Chain, design
 from .guard import Assessment, assess, check_raw_sections
 from .recipe import Recipe, RecipeError
+from .journal import Journal, LockedError, OutdirLock, clean_leftovers
 from .render import DEFAULT_BLOCK, MAX_BLOCK, TEMP_TAG, AudioError, FileResult, Policy, Source, probe, render_file
 
-__all__ = ["BatchError", "Job", "Plan", "RateDesign", "BatchResult", "discover", "prepare", "run_batch"]
+__all__ = ["BatchError", "Job", "Plan", "RateDesign", "BatchResult", "discover", "prepare", "claim_outdir",
+           "execute", "run_batch", "job_key"]
 
 MAX_WORKERS = 64
+# Workers are forked on Linux (instant start; the parent holds no threads of its own when the pool
+# starts, and the progress bar runs without its monitor thread); elsewhere they start fresh.
+_POOL_CONTEXT = multiprocessing.get_context("fork" if sys.platform.startswith("linux") else "spawn")
 MIN_BLOCK = 1
 
 # Extensions taken as audio without looking inside (lower case).
@@ -73,6 +83,7 @@ class BatchResult:
     results: list[FileResult]
     seconds: float
     interrupted: bool = False
+    notes: list[str] = field(default_factory=list)
 
     def count(self, status: str) -> int:
         return sum(r.status == status for r in self.results)
@@ -298,7 +309,13 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
 
 
 def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
-    os.makedirs(os.path.dirname(job.output) or ".", exist_ok=True)
+    folder = os.path.dirname(job.output) or "."
+    try:
+        os.makedirs(folder, exist_ok=True)
+    except OSError as exc:
+        return FileResult(job.input, job.relpath, "failed",
+                          f"cannot create its output folder {folder}: {(exc.strerror or str(exc)).lower()}",
+                          source=src)
     return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
                        relpath=job.relpath)
 
@@ -310,35 +327,96 @@ def _worker_init() -> None:
     _signal.signal(_signal.SIGINT, _signal.SIG_IGN)
 
 
-def execute(prep: Prepared, workers: int = 1, progress=None) -> BatchResult:
+def job_key(recipe: Recipe, policy: Policy) -> str:
+    """What decides an output's bytes besides its input: recipe, policy and chainrun version."""
+    payload = json.dumps({"recipe": recipe.digest, "version": __version__, "on_over": policy.on_over,
+                          "ceiling_dbfs": policy.ceiling_dbfs, "true_peak_ceiling_dbtp": policy.true_peak_ceiling_dbtp,
+                          "subtype": policy.subtype, "dither": policy.dither}, sort_keys=True)
+    return hashlib.sha256(payload.encode()).hexdigest()
+
+
+def claim_outdir(outdir: str) -> tuple[OutdirLock, list[str]]:
+    """Create OUTDIR, take its lock and clean what an interrupted run left; returns the lock and notes.
+
+    Raises
+    ------
+    BatchError
+        If another live run holds the folder, or it cannot be created.
+    """
+    try:
+        os.makedirs(outdir, exist_ok=True)
+        lock = OutdirLock(outdir).acquire()
+    except LockedError as exc:
+        raise BatchError(str(exc)) from None
+    except OSError as exc:
+        raise BatchError(f"{outdir}: error: cannot use the output folder: "
+                         f"{(exc.strerror or str(exc)).lower()}") from None
+    notes = []
+    if lock.took_over:
+        notes.append(f"took over the lock left by pid {lock.took_over.get('pid')} on host "
+                     f"{lock.took_over.get('host')} (that run is gone)")
+    removed = clean_leftovers(outdir)
+    if removed:
+        notes.append(f"removed {len(removed)} unfinished temporary file(s) left by an interrupted run")
+    return lock, notes
+
+
+def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True) -> BatchResult:
     """Render every prepared file, ``workers`` at a time; Ctrl-C stops cleanly.
 
-    ``progress`` is called with each finished FileResult.
+    The caller holds OUTDIR (see :func:`claim_outdir`). With ``resume``, files the
+    journal shows as delivered for the same job key, input and output are not
+    rendered again. ``progress`` is called with each finished FileResult.
     """
     if not 1 <= workers <= MAX_WORKERS:
         raise BatchError(f"--workers {workers} is out of range; allowed: 1 to {MAX_WORKERS}")
     t0 = time.perf_counter()
     results = list(prep.results)
+    notes: list[str] = []
     interrupted = False
+    journal = Journal(prep.outdir)
+    key = job_key(prep.recipe, prep.policy)
+
+    todo = []
+    for job, src in prep.work:
+        entry = journal.finished(job.relpath, key, job.input, job.output) if resume else None
+        if entry is None:
+            todo.append((job, src))
+            continue
+        r = FileResult.from_record(entry.result, job.input, job.relpath, job.output, src)
+        r.extra["resumed"] = True
+        results.append(r)
+    if len(todo) < len(prep.work):
+        notes.append(f"{len(prep.work) - len(todo)} file(s) already delivered by an earlier run with the same "
+                     "recipe and inputs; kept as they are (use --redo to render them again)")
 
     def args(job: Job, src: Source):
         d = prep.designs[src.rate]
         return job, src, d.chain.sos, d.assessment.peak_gain, prep.policy
 
-    os.makedirs(prep.outdir, exist_ok=True)
+    def finished(job: Job, r: FileResult) -> None:
+        if r.status in ("ok", "clipped"):
+            journal.record(job.relpath, key, job.input, job.output, r.to_record())
+        results.append(r)
+        if progress:
+            progress(r)
+
     # Longest files first, so the pool does not end waiting on one long file.
-    todo = sorted(prep.work, key=lambda js: -js[1].frames * js[1].channels)
+    todo.sort(key=lambda js: -js[1].frames * js[1].channels)
     if workers == 1 or len(todo) <= 1:
         try:
             for job, src in todo:
-                r = _render_job(*args(job, src))
-                results.append(r)
-                if progress:
-                    progress(r)
+                try:
+                    r = _render_job(*args(job, src))
+                except Exception as exc:  # a fault outside render_file's own handling: this file only
+                    r = FileResult(job.input, job.relpath, "failed", f"unexpected fault: {type(exc).__name__}: {exc}",
+                                   source=src)
+                finished(job, r)
         except KeyboardInterrupt:
             interrupted = True
     else:
-        pool = ProcessPoolExecutor(max_workers=min(workers, len(todo)), initializer=_worker_init)
+        pool = ProcessPoolExecutor(max_workers=min(workers, len(todo)), initializer=_worker_init,
+                                   mp_context=_POOL_CONTEXT)
         pending = {pool.submit(_render_job, *args(job, src)): job for job, src in todo}
         try:
             while pending:
@@ -349,9 +427,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None) -> BatchResult:
                         r = fut.result()
                     except Exception as exc:  # a worker died: the file is failed, the batch goes on
                         r = FileResult(job.input, job.relpath, "failed", f"the worker rendering it stopped: {exc}")
-                    results.append(r)
-                    if progress:
-                        progress(r)
+                    finished(job, r)
         except KeyboardInterrupt:
             interrupted = True
             for fut in pending:
@@ -360,7 +436,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None) -> BatchResult:
             pool.shutdown(wait=True, cancel_futures=True)
             for fut, job in pending.items():
                 if fut.done() and not fut.cancelled() and fut.exception() is None:
-                    results.append(fut.result())
+                    finished(job, fut.result())
     done_inputs = {r.input for r in results}
     for job, src in prep.work:
         if job.input not in done_inputs:
@@ -369,11 +445,17 @@ def execute(prep: Prepared, workers: int = 1, progress=None) -> BatchResult:
     order = {job.input: i for i, (job, _) in enumerate(prep.work)}
     results.sort(key=lambda r: (order.get(r.input, -1), r.relpath))
     return BatchResult(prep.recipe, prep.policy, prep.outdir, prep.designs, results,
-                       time.perf_counter() - t0, interrupted)
+                       time.perf_counter() - t0, interrupted, notes)
 
 
 def run_batch(recipe: Recipe, inputs: list[str], outdir: str, *, workers: int = 1,
-              policy: Policy | None = None, progress=None) -> BatchResult:
-    """Filter ``inputs`` into ``outdir`` with ``recipe``: :func:`prepare` then :func:`execute`."""
+              policy: Policy | None = None, progress=None, resume: bool = True) -> BatchResult:
+    """Filter ``inputs`` into ``outdir`` with ``recipe``: :func:`prepare`, then :func:`execute` holding OUTDIR."""
     prep = prepare(recipe, inputs, outdir, policy or make_policy(recipe))
-    return execute(prep, workers, progress)
+    lock, notes = claim_outdir(outdir)
+    try:
+        result = execute(prep, workers, progress, resume)
+    finally:
+        lock.release()
+    result.notes[:0] = notes
+    return result

@@ -169,6 +169,7 @@ class _Progress:
         self.hours = 0.0
         if enabled and total_files:
             from tqdm import tqdm
+            tqdm.monitor_interval = 0       # no monitor thread: worker processes are forked
             self.bar = tqdm(total=total_files, unit="file", file=sys.stderr, dynamic_ncols=True,
                             desc="filtering")
 
@@ -186,7 +187,7 @@ class _Progress:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from .batch import BatchError, execute, make_policy, prepare
+    from .batch import BatchError, claim_outdir, execute, make_policy, prepare
     from .report import console_summary, error_lines, write_reports
 
     try:
@@ -194,6 +195,15 @@ def cmd_run(args: argparse.Namespace) -> int:
     except RecipeError as exc:
         _err(f"{exc}; no audio was touched")
         return EXIT_USAGE
+    if args.report:
+        folder = os.path.dirname(os.path.abspath(args.report))
+        probe_dir = folder
+        while not os.path.exists(probe_dir):
+            probe_dir = os.path.dirname(probe_dir)
+        if not os.path.isdir(probe_dir) or not os.access(probe_dir, os.W_OK):
+            _err(f"{args.report}: error: the report cannot be written there ({probe_dir} is not a writable "
+                 "folder); no audio was touched")
+            return EXIT_USAGE
     try:
         policy = make_policy(recipe, on_over=args.on_over, block_size=args.block_size,
                              true_peak=not args.no_true_peak)
@@ -201,18 +211,37 @@ def cmd_run(args: argparse.Namespace) -> int:
     except BatchError as exc:
         _err(str(exc))
         return EXIT_USAGE
-    progress = _Progress(len(prep.work), sys.stderr.isatty())
     try:
-        result = execute(prep, workers=args.workers or _cores(), progress=progress)
+        lock, notes = claim_outdir(args.outdir)
+    except BatchError as exc:
+        _err(str(exc))
+        return EXIT_USAGE
+    try:
+        progress = _Progress(len(prep.work), sys.stderr.isatty())
+        try:
+            result = execute(prep, workers=args.workers or _cores(), progress=progress, resume=not args.redo)
+        finally:
+            progress.close()
+        result.notes[:0] = notes
+        try:
+            paths = write_reports(result, args.report, command=["chainrun"] + args.argv)
+            report_error = None
+        except OSError as exc:
+            paths = {}
+            report_error = (f"{exc.filename or args.report or args.outdir}: error: cannot write the report: "
+                            f"{(exc.strerror or str(exc)).lower()}; the files listed above as ok were delivered")
     finally:
-        progress.close()
-    paths = write_reports(result, args.report, command=["chainrun"] + args.argv)
+        lock.release()
+    for note in result.notes:
+        _err(f"chainrun: note: {note}")
     print(console_summary(result, paths))
     for line in error_lines(result):
         _err(line)
+    if report_error:
+        _err(report_error)
     if result.interrupted:
         _err("chainrun: interrupted; files not yet rendered are listed as failed, and no partial file was left")
-    return EXIT_OK if result.all_ok else EXIT_NOT_OK
+    return EXIT_OK if result.all_ok and not report_error else EXIT_NOT_OK
 
 
 # --------------------------------------------------------------------------- scan
@@ -220,7 +249,7 @@ def cmd_run(args: argparse.Namespace) -> int:
 def cmd_scan(args: argparse.Namespace) -> int:
     from .batch import BatchError, discover
     from .render import AudioError, FileResult, probe, scan_file
-    from .report import file_dict
+    from .report import file_dict, shown
 
     try:
         plan = discover(args.inputs, None)
@@ -245,17 +274,17 @@ def cmd_scan(args: argparse.Namespace) -> int:
         for r in results:
             m = r.input_meters
             if m is None:
-                print(f"{r.status:<8} {'-':>11} {'-':>11} {'-':>11} {'-':>8}  {r.relpath}"
+                print(f"{r.status:<8} {'-':>11} {'-':>11} {'-':>11} {'-':>8}  {shown(r.relpath)}"
                       + (f"  ({r.message})" if r.message else ""))
                 continue
             worst = lambda attr: max((getattr(c, attr) for c in m.channels if getattr(c, attr) is not None),
                                      default=None)
             clipped = sum(c.clipped_samples for c in m.channels)
             print(f"{r.status:<8} {_db(worst('peak_dbfs'), 'dBFS'):>11} {_db(worst('true_peak_dbtp'), 'dBTP'):>11} "
-                  f"{_db(worst('rms_dbfs'), 'dBFS'):>11} {clipped:>8}  {r.relpath}")
+                  f"{_db(worst('rms_dbfs'), 'dBFS'):>11} {clipped:>8}  {shown(r.relpath)}")
     bad = [r for r in results if r.status in ("failed", "clipped")]
     for r in bad:
-        _err(f"{r.input}: {'error' if r.status == 'failed' else 'clipped'}: {r.message}")
+        _err(f"{shown(r.input)}: {'error' if r.status == 'failed' else 'clipped'}: {r.message}")
     return EXIT_NOT_OK if bad else EXIT_OK
 
 
@@ -293,6 +322,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--report", metavar="PATH", help="JSON report path (default OUTDIR/chainrun-report.json); "
                                                      "the CSV and HTML reports go beside it")
     p.add_argument("--no-true-peak", action="store_true", help="skip true-peak metering (faster)")
+    p.add_argument("--redo", action="store_true",
+                   help="render every file again, even those an earlier run already delivered unchanged")
     p.set_defaults(func=cmd_run)
 
     p = sub.add_parser("scan", help="meter existing files; writes nothing",

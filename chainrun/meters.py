@@ -192,6 +192,15 @@ class ChannelReading:
             "nonfinite_samples": int(self.nonfinite_samples),
         }
 
+    @classmethod
+    def from_dict(cls, d: dict) -> "ChannelReading":
+        """Inverse of :meth:`to_dict` (a journal keeps readings of files delivered earlier)."""
+        return cls(peak=float(d["peak"] or 0.0), true_peak=d["true_peak"], rms=float(d["rms"] or 0.0),
+                   dc_offset=float(d["dc_offset"] or 0.0), clipped_samples=int(d["clipped_samples"]),
+                   clipped_regions=tuple((int(a), int(b)) for a, b in d["clipped_regions"]),
+                   clipped_region_count=int(d["clipped_region_count"]),
+                   nonfinite_samples=int(d["nonfinite_samples"]))
+
 
 @dataclass(frozen=True)
 class MeterReading:
@@ -223,6 +232,12 @@ class MeterReading:
             "true_peak_oversampling": self.true_peak_oversampling,
             "channels": [c.to_dict() for c in self.channels],
         }
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "MeterReading":
+        """Inverse of :meth:`to_dict`."""
+        return cls(tuple(ChannelReading.from_dict(c) for c in d["channels"]), int(d["frames"]),
+                   int(d["rate"]), d["true_peak_oversampling"])
 
 
 # --- the meter --------------------------------------------------------------

@@ -17,7 +17,7 @@ import json
 import math
 import os
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from types import MappingProxyType
 from typing import Any, Mapping
 
@@ -95,6 +95,7 @@ class Section:
     param_where: Mapping[str, Location]
     index: int
     label: str = ""
+    origin: str = ""          # for a section of an included recipe: that file, as the include named it
 
     def locate(self, key: str | None = None) -> Location:
         """Location of ``key`` if it was written, else of the section."""
@@ -102,11 +103,12 @@ class Section:
 
     @property
     def title(self) -> str:
-        """Short human name: ``chain[2] peak 3000 Hz`` or the section's label."""
+        """Short human name: ``chain[2] peak 3000 Hz (label)``, plus ``from FILE`` for an included section."""
         base = f"chain[{self.index}] {self.kind}"
         if "freq" in self.params:
             base += f" {_fmt(self.params['freq'])} Hz"
-        return f"{base} ({self.label})" if self.label else base
+        base = f"{base} ({self.label})" if self.label else base
+        return f"{base} from {self.origin}" if self.origin else base
 
     def to_dict(self) -> dict:
         out: dict[str, Any] = {"type": self.kind}
@@ -593,7 +595,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None) -> tup
                 raise RecipeError.at(item.where, f"included recipe '{rel}' does not exist "
                                                  f"(looked for {target}); paths are relative to this recipe's folder")
             _, inc_sections, inc_paths = _load_file(target, stack + (real,), item.where)
-            sections.extend(inc_sections)
+            sections.extend(sec if sec.origin else replace(sec, origin=rel) for sec in inc_sections)
             included.extend([target] + inc_paths)
             if len(sections) > MAX_SECTIONS:
                 raise RecipeError.at(item.where, f"the chain has more than {MAX_SECTIONS} sections "

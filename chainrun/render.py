@@ -20,6 +20,7 @@ import hashlib
 import math
 import os
 import secrets
+import sys
 import time
 from dataclasses import dataclass, field
 from typing import Any
@@ -115,6 +116,25 @@ class FileResult:
     seconds: float = 0.0
     extra: dict = field(default_factory=dict)
 
+    _RECORDED = ("status", "message", "out_format", "out_subtype", "dither", "over_db", "trim_db", "gain_db",
+                 "clipped_by_chainrun", "seconds")
+
+    def to_record(self) -> dict:
+        """What a journal keeps of a delivered file, to report it again without rendering it."""
+        d = {k: getattr(self, k) for k in self._RECORDED}
+        d["input_meters"] = self.input_meters.to_dict() if self.input_meters else None
+        d["output_meters"] = self.output_meters.to_dict() if self.output_meters else None
+        return d
+
+    @classmethod
+    def from_record(cls, d: dict, input: str, relpath: str, output: str, source: Source | None) -> "FileResult":
+        """Inverse of :meth:`to_record`."""
+        r = cls(input=input, relpath=relpath, output=output, source=source,
+                **{k: d[k] for k in cls._RECORDED if k in d})
+        r.input_meters = MeterReading.from_dict(d["input_meters"]) if d.get("input_meters") else None
+        r.output_meters = MeterReading.from_dict(d["output_meters"]) if d.get("output_meters") else None
+        return r
+
 
 def _full_scale(subtype: str) -> float:
     bits = SUBTYPES.get(subtype, (None,))[0]
@@ -131,7 +151,7 @@ def probe(path: str) -> Source:
     """
     try:
         st = os.stat(path)
-        info = sf.info(path)
+        info = sf.info(_sf_path(path))
     except (sf.LibsndfileError, RuntimeError, OSError, ValueError) as exc:
         raise AudioError(_why(exc)) from None
     if info.frames <= 0:
@@ -140,6 +160,20 @@ def probe(path: str) -> Source:
         raise AudioError("declares no channels or no sample rate; the header is damaged")
     return Source(path, int(info.samplerate), int(info.channels), int(info.frames),
                   info.format, info.subtype, st.st_size, st.st_mtime_ns)
+
+
+def _sf_path(path: str) -> str | bytes:
+    """``path`` as soundfile can open it.
+
+    soundfile encodes a str path strictly (UTF-8 here), so a name holding bytes that
+    are not UTF-8 (kept by Python as surrogate escapes) would fail to open; such a
+    path is handed over as the file system's bytes instead.
+    """
+    try:
+        path.encode(sys.getfilesystemencoding())
+        return path
+    except UnicodeEncodeError:
+        return os.fsencode(path)
 
 
 def _why(exc: BaseException) -> str:
@@ -209,9 +243,17 @@ class Quantiser:
         if self.bits:
             self.scale = float(2 ** (self.bits - 1))
             self.lo, self.hi = -self.scale, self.scale - 1.0
+            # Largest |y| written without a clip: the top code, less the 1 LSB a dither draw may add.
+            self.limit = (self.hi - (1.0 if self.rng is not None else 0.0)) / self.scale
+        else:
+            self.limit = math.inf
 
-    def __call__(self, y: np.ndarray) -> tuple[np.ndarray, int]:
-        """Returns (frames x channels array to write, number of samples clipped at full scale)."""
+    def __call__(self, y: np.ndarray, counted: np.ndarray | None = None) -> tuple[np.ndarray, int]:
+        """Returns (frames x channels array to write, number of samples clipped at full scale).
+
+        ``counted`` (channels x frames, bool) marks samples already counted as clipped
+        (by the clip policy); they are not counted again here.
+        """
         if self.bits is None:
             return np.ascontiguousarray(y.T, dtype=self.dtype), 0
         v = np.multiply(y.T, self.scale)      # (frames, channels), C-contiguous
@@ -222,7 +264,10 @@ class Quantiser:
         np.rint(v, out=v)
         clipped = 0
         if v.size and (v.max() > self.hi or v.min() < self.lo):
-            clipped = int(np.count_nonzero(v > self.hi) + np.count_nonzero(v < self.lo))
+            out_of_range = (v > self.hi) | (v < self.lo)
+            if counted is not None:
+                out_of_range &= ~counted.T
+            clipped = int(np.count_nonzero(out_of_range))
             np.clip(v, self.lo, self.hi, out=v)
         codes = v.astype(np.int32 if self.dtype == np.int32 else np.int16)
         if self.shift:
@@ -252,7 +297,7 @@ def _remove_quietly(path: str | None) -> None:
 
 
 def _open_output(path: str, src: Source, fmt: str, subtype: str) -> sf.SoundFile:
-    f = sf.SoundFile(path, "w", src.rate, src.channels, subtype, format=fmt)
+    f = sf.SoundFile(_sf_path(path), "w", src.rate, src.channels, subtype, format=fmt)
     # The PEAK chunk of float WAV/AIFF carries a time stamp; without it reruns are bit-identical.
     sf._snd.sf_command(f._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
     return f
@@ -263,7 +308,7 @@ class _Blocks:
 
     def __init__(self, src: Source, block: int):
         self.src, self.block = src, block
-        self.f = sf.SoundFile(src.path, "r")
+        self.f = sf.SoundFile(_sf_path(src.path), "r")
         self.buf = np.empty((block, src.channels), dtype=np.float64)
         self.done = 0
 
@@ -291,7 +336,17 @@ class _Blocks:
 
 
 class _Filter:
-    """sosfilt over channel-major blocks with the state carried, plus the runtime guard."""
+    """sosfilt over channel-major blocks with the state carried, plus the runtime guard.
+
+    Denormals: after loud content, a decaying filter state sinks towards the
+    subnormal range, where arithmetic is many times slower, and can stay there.
+    Every FLUSH_PERIOD frames, counted from the start of the file (so the result
+    does not depend on the block size), state values below DENORMAL_FLOOR are set
+    to exactly zero; they would contribute less than 1e-200 to any output sample.
+    """
+
+    FLUSH_PERIOD = 65536
+    DENORMAL_FLOOR = 1e-200
 
     def __init__(self, sos: np.ndarray, channels: int, bound: float):
         self.sos = np.array(sos, dtype=np.float64)
@@ -300,8 +355,24 @@ class _Filter:
         self.in_peak = 0.0
         self.out_peak = 0.0
 
+    def _filter(self, x: np.ndarray, frame0: int) -> np.ndarray:
+        n, period = x.shape[-1], self.FLUSH_PERIOD
+        first = (-frame0) % period           # frames up to the next absolute flush point
+        if first >= n:
+            y, self.zi = signal.sosfilt(self.sos, x, axis=-1, zi=self.zi)
+            return y
+        y = np.empty_like(x)
+        start = 0
+        for stop in list(range(first, n, period)) + [n]:
+            if stop > start:
+                y[:, start:stop], self.zi = signal.sosfilt(self.sos, x[:, start:stop], axis=-1, zi=self.zi)
+            if stop < n or (frame0 + n) % period == 0:
+                self.zi[np.abs(self.zi) < self.DENORMAL_FLOOR] = 0.0
+            start = stop
+        return y
+
     def __call__(self, x: np.ndarray, frame0: int) -> np.ndarray:
-        y, self.zi = signal.sosfilt(self.sos, x, axis=-1, zi=self.zi)
+        y = self._filter(x, frame0)
         if x.size:
             self.in_peak = max(self.in_peak, float(x.max()), float(-x.min()))
             hi, lo = float(y.max()), float(y.min())
@@ -388,8 +459,11 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
                 reader.close()
             pre_r = pre.result()
             over = _over(filt.out_peak, _max_tp(pre_r), policy)
-            gain = 10.0 ** (-over / 20.0) if over > 0 else 1.0
-            res.gain_db = _db(gain) if over > 0 else 0.0
+            # Fit the ceiling and also the codes: for integer output +1.0 (0 dBFS) has no code, so
+            # scaling to a 0 dBFS ceiling alone would leave the positive crests hard-clipped.
+            fit = max(over, _db(filt.out_peak) - _db(quantise.limit))
+            gain = 10.0 ** (-fit / 20.0) if fit > 0 else 1.0
+            res.gain_db = _db(gain) if fit > 0 else 0.0
             res.over_db = over if over > 0 else None
             # Pass 2: scale, meter, quantise, write.
             out_meter = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=policy.true_peak,
@@ -418,18 +492,20 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
                 for x in reader:
                     in_meter.update(x)
                     y = filt(x, reader.done - x.shape[1])
+                    over_mask = None
                     if policy.on_over == "clip" and filt.out_peak > ceiling:
-                        n_over = int(np.count_nonzero(np.abs(y) > ceiling))
+                        over_mask = np.abs(y) > ceiling
+                        n_over = int(np.count_nonzero(over_mask))
                         if n_over:
                             np.clip(y, -ceiling, ceiling, out=y)
                             res.clipped_by_chainrun += n_over
                     out_meter.update(y)
-                    if policy.on_over == "reject" and filt.out_peak > ceiling and writing:
+                    if policy.on_over == "reject" and writing and _over(filt.out_peak, None, policy) > 0:
                         writing = False            # will be rejected: stop writing, keep metering
                         out.close()
                         _remove_quietly(tmp)
                     if writing:
-                        data, clipped = quantise(y)
+                        data, clipped = quantise(y, over_mask)
                         res.clipped_by_chainrun += clipped
                         out.write(data)
             finally:
@@ -476,6 +552,12 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             res.message = f"cannot write the output: {os.strerror(exc.errno).lower()}; nothing was delivered"
         else:
             res.message = f"{exc.strerror.lower() if exc.strerror else exc}: {exc.filename or dst}"
+        return res
+    except Exception as exc:  # a fault (MemoryError, a bug): this file fails, the batch goes on
+        text = (str(exc).strip().splitlines() or [""])[0]
+        res.status = "failed"
+        res.message = (f"unexpected fault while rendering ({type(exc).__name__}{': ' + text if text else ''}); "
+                       "nothing was delivered; please report it")
         return res
     finally:
         _remove_quietly(tmp)

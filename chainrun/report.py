@@ -20,7 +20,7 @@ from .batch import BatchResult
 from .render import FileResult, temp_path_for
 
 __all__ = ["STATUS_ORDER", "file_dict", "batch_dict", "write_reports", "console_summary", "worst_first",
-           "error_lines", "report_paths"]
+           "error_lines", "report_paths", "shown"]
 
 # Status -> rank in "needs attention first" order.
 STATUS_ORDER = {"failed": 0, "rejected": 1, "clipped": 2, "ok": 3, "skipped": 4}
@@ -45,7 +45,7 @@ def _worst(reading, attr: str) -> float | None:
     return max(vals) if vals else None
 
 
-def _shown(path: str | None) -> str | None:
+def shown(path: str | None) -> str | None:
     """A path as text; bytes that are not UTF-8 shown as \\xNN."""
     if path is None:
         return None
@@ -56,7 +56,7 @@ def file_dict(r: FileResult) -> dict:
     """One file's result as JSON-safe data."""
     s = r.source
     d = {
-        "input": _shown(r.input), "relpath": _shown(r.relpath), "output": _shown(r.output),
+        "input": shown(r.input), "relpath": shown(r.relpath), "output": shown(r.output),
         "status": r.status, "message": r.message,
         "rate_hz": s.rate if s else None, "channels": s.channels if s else None,
         "frames": s.frames if s else None, "duration_s": s.duration_s if s else None,
@@ -177,7 +177,7 @@ def console_summary(b: BatchResult, paths: dict[str, str] | None = None, limit: 
     for r in rows[:limit]:
         lines.append(f"{r.status:<9} {_fmt_db(_worst(r.output_meters, 'peak_dbfs'), 'dBFS'):>11} "
                      f"{_fmt_db(_worst(r.output_meters, 'true_peak_dbtp'), 'dBTP'):>13} "
-                     f"{_fmt_db(_worst(r.input_meters, 'peak_dbfs'), 'dBFS'):>11}  {_shown(r.relpath)}"
+                     f"{_fmt_db(_worst(r.input_meters, 'peak_dbfs'), 'dBFS'):>11}  {shown(r.relpath)}"
                      + (f"  ({r.message})" if r.message else ""))
     if len(rows) > limit:
         lines.append(f"... and {len(rows) - limit} more in the report")
@@ -190,7 +190,10 @@ def console_summary(b: BatchResult, paths: dict[str, str] | None = None, limit: 
     return "\n".join(lines)
 
 
+_ERROR_WORD = {"failed": "error", "rejected": "rejected", "clipped": "clipped"}
+
+
 def error_lines(b: BatchResult) -> list[str]:
-    """One located line per file that failed or was rejected, for stderr."""
-    return [f"{_shown(r.input)}: {'error' if r.status == 'failed' else 'rejected'}: {r.message}"
-            for r in b.results if r.status in ("failed", "rejected")]
+    """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr."""
+    return [f"{shown(r.input)}: {_ERROR_WORD[r.status]}: {r.message}"
+            for r in worst_first(b.results) if r.status in _ERROR_WORD]

@@ -1,0 +1,170 @@
+"""OUTDIR bookkeeping: one writer at a time, leftovers cleaned, finished files remembered.
+
+* :class:`OutdirLock` — ``OUTDIR/.chainrun.lock``, held with ``flock`` for the
+  whole run and holding the owner's pid and host. The kernel drops the lock when
+  its process dies, so a lock left by a killed run is detected and taken over.
+* :func:`clean_leftovers` — removes temporary outputs (``.<name>.chainrun-part-*``)
+  that a killed run left behind. Only names of that pattern, only inside OUTDIR.
+* :class:`Journal` — ``OUTDIR/.chainrun-journal.jsonl``, one JSON line appended
+  and fsynced after each file is delivered: its job key (recipe digest and the
+  policy that shapes the output), the input's fingerprint and the output's. A
+  later run skips a file whose entry still matches on all three.
+"""
+from __future__ import annotations
+
+import fcntl
+import hashlib
+import json
+import os
+import socket
+import time
+from dataclasses import dataclass
+
+from .render import TEMP_TAG
+
+__all__ = ["LockedError", "OutdirLock", "clean_leftovers", "fingerprint", "Journal", "LOCK_NAME", "JOURNAL_NAME"]
+
+LOCK_NAME = ".chainrun.lock"
+JOURNAL_NAME = ".chainrun-journal.jsonl"
+_SAMPLE = 1 << 16          # bytes hashed at the head and at the tail of a file for its fingerprint
+
+
+class LockedError(Exception):
+    """Another live run holds the output folder."""
+
+
+class OutdirLock:
+    """Exclusive lock on an output folder, released on close or when the process dies."""
+
+    def __init__(self, outdir: str):
+        self.path = os.path.join(outdir, LOCK_NAME)
+        self.fd: int | None = None
+        self.took_over: dict | None = None
+
+    def acquire(self) -> "OutdirLock":
+        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            owner = _read_owner(fd)
+            os.close(fd)
+            who = f"pid {owner.get('pid', '?')} on host {owner.get('host', '?')}" if owner else "another process"
+            since = f", since {owner['started']}" if owner and "started" in owner else ""
+            raise LockedError(f"{self.path}: error: another chainrun run ({who}{since}) is writing into this "
+                              "output folder; wait for it to finish or choose another folder") from None
+        previous = _read_owner(fd)
+        if previous and previous.get("pid") != os.getpid():
+            self.took_over = previous       # its process is gone: the kernel released its lock
+        me = {"pid": os.getpid(), "host": socket.gethostname(), "started": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
+        os.ftruncate(fd, 0)
+        os.pwrite(fd, (json.dumps(me) + "\n").encode(), 0)
+        os.fsync(fd)
+        self.fd = fd
+        return self
+
+    def release(self) -> None:
+        if self.fd is None:
+            return
+        try:
+            os.ftruncate(self.fd, 0)
+            os.unlink(self.path)
+        except OSError:
+            pass
+        finally:
+            fcntl.flock(self.fd, fcntl.LOCK_UN)
+            os.close(self.fd)
+            self.fd = None
+
+    def __enter__(self) -> "OutdirLock":
+        return self.acquire()
+
+    def __exit__(self, *exc) -> None:
+        self.release()
+
+
+def _read_owner(fd: int) -> dict | None:
+    try:
+        data = os.pread(fd, 4096, 0)
+        return json.loads(data.decode()) if data.strip() else None
+    except (OSError, ValueError):
+        return None
+
+
+def clean_leftovers(outdir: str) -> list[str]:
+    """Remove temporary outputs of earlier, interrupted runs under ``outdir``; returns what was removed."""
+    removed = []
+    for root, dirs, files in os.walk(outdir):
+        for name in files:
+            if name.startswith(".") and TEMP_TAG in name:
+                path = os.path.join(root, name)
+                try:
+                    os.unlink(path)
+                    removed.append(path)
+                except OSError:
+                    pass
+    return removed
+
+
+def fingerprint(path: str) -> dict:
+    """Size, modification time and a hash of the first and last 64 KiB of a file."""
+    st = os.stat(path)
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        h.update(fh.read(_SAMPLE))
+        if st.st_size > 2 * _SAMPLE:
+            fh.seek(st.st_size - _SAMPLE)
+            h.update(fh.read(_SAMPLE))
+    return {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "sample_sha256": h.hexdigest()}
+
+
+@dataclass
+class Entry:
+    relpath: str
+    key: str
+    input: dict
+    output: dict
+    result: dict
+
+
+class Journal:
+    """The record of files already delivered into an output folder."""
+
+    def __init__(self, outdir: str):
+        self.path = os.path.join(outdir, JOURNAL_NAME)
+        self.entries: dict[str, Entry] = {}
+        try:
+            with open(self.path, encoding="utf-8", errors="surrogateescape") as fh:
+                for line in fh:
+                    try:
+                        d = json.loads(line)
+                        self.entries[d["relpath"]] = Entry(d["relpath"], d["key"], d["input"], d["output"],
+                                                           d.get("result", {}))
+                    except (ValueError, KeyError, TypeError):
+                        continue      # a line cut short by a kill, or foreign text: ignored
+        except FileNotFoundError:
+            pass
+
+    def finished(self, relpath: str, key: str, input_path: str, output_path: str) -> Entry | None:
+        """The entry of a delivered file if input, output and job key all still match."""
+        e = self.entries.get(relpath)
+        if e is None or e.key != key:
+            return None
+        try:
+            if fingerprint(input_path) != e.input or fingerprint(output_path) != e.output:
+                return None
+        except OSError:
+            return None
+        return e
+
+    def record(self, relpath: str, key: str, input_path: str, output_path: str, result: dict) -> None:
+        """Append one delivered file (one line, fsynced)."""
+        entry = {"relpath": relpath, "key": key, "input": fingerprint(input_path),
+                 "output": fingerprint(output_path), "result": result}
+        line = json.dumps(entry, ensure_ascii=True) + "\n"
+        fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+        try:
+            os.write(fd, line.encode())
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+        self.entries[relpath] = Entry(relpath, key, entry["input"], entry["output"], result)
