@@ -288,6 +288,33 @@ def cmd_scan(args: argparse.Namespace) -> int:
     return EXIT_NOT_OK if bad else EXIT_OK
 
 
+# --------------------------------------------------------------------------- plot
+
+PLOT_SUFFIXES = (".png", ".svg")
+
+
+def cmd_plot(args: argparse.Namespace) -> int:
+    if os.path.splitext(args.output)[1].lower() not in PLOT_SUFFIXES:
+        raise UsageError(f"{args.output}: error: the picture must be a .png or .svg file")
+    try:
+        recipe = load(args.recipe)
+        chain = design(recipe, args.rate)
+    except RecipeError as exc:
+        _err(str(exc))
+        return EXIT_USAGE
+    from .plot import save_response
+
+    assessment = assess(chain, recipe.guard, recipe)
+    for p in assessment.problems:
+        _err(str(p))
+    try:
+        save_response(recipe, chain, assessment, args.output)
+    except OSError as exc:
+        raise UsageError(f"{args.output}: error: cannot write the picture: {(exc.strerror or str(exc)).lower()}")
+    print(args.output)
+    return EXIT_OK
+
+
 # --------------------------------------------------------------------------- main
 
 def build_parser() -> argparse.ArgumentParser:
@@ -333,6 +360,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-true-peak", action="store_true", help="skip true-peak metering (faster)")
     p.set_defaults(func=cmd_scan)
 
+    p = sub.add_parser("plot", help="draw the chain's response to a PNG or SVG file",
+                       description="Magnitude and phase of the whole chain at one sample rate, "
+                                   "each section drawn faintly beneath, with the guard's figures.")
+    p.add_argument("recipe", metavar="RECIPE")
+    p.add_argument("--rate", type=_rate, default=48000, metavar="HZ", help="sample rate (default 48000)")
+    p.add_argument("-o", "--output", required=True, metavar="FILE", help="picture to write, .png or .svg")
+    p.set_defaults(func=cmd_plot)
     return parser
 
 

@@ -139,7 +139,7 @@ def report_paths(b: BatchResult, json_path: str | None = None) -> dict[str, str]
 
 
 def write_reports(b: BatchResult, json_path: str | None = None, command: list[str] | None = None) -> dict[str, str]:
-    """Write the JSON and CSV reports (each atomically); returns their paths."""
+    """Write the JSON, CSV and HTML reports (each atomically); returns their paths."""
     paths = report_paths(b, json_path)
     os.makedirs(os.path.dirname(paths["json"]) or ".", exist_ok=True)
     data = batch_dict(b, command)
@@ -150,7 +150,9 @@ def write_reports(b: BatchResult, json_path: str | None = None, command: list[st
     for r in worst_first(b.results):
         w.writerow(_csv_row(r))
     _atomic_write(paths["csv"], buf.getvalue())
-    del paths["html"]
+    from .htmlreport import render_html      # matplotlib is imported only when a report is written
+
+    _atomic_write(paths["html"], render_html(data, b))
     return paths
 
 

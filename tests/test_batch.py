@@ -246,6 +246,7 @@ def test_run_report_json_and_csv(tmp_path, write_recipe, write_audio, run_cli):
         f = files[os.path.basename(row["input"])]
         worst = max(c["peak_dbfs"] for c in f["output_meters"]["channels"])
         assert abs(float(row["out_peak_dbfs"]) - worst) < 0.006          # two decimals
+    assert (out / "chainrun-report.html").exists()
 
 
 def test_report_path_option_puts_all_reports_there(tmp_path, season, write_recipe, run_cli):
@@ -253,7 +254,7 @@ def test_report_path_option_puts_all_reports_there(tmp_path, season, write_recip
     status, _, err = run_cli("run", write_recipe(GENTLE), season / "boathouse", "-o", out, "--workers", "1",
                              "--report", rep_dir / "week12.json")
     assert status == 0, err
-    assert sorted(os.listdir(rep_dir)) == ["week12.csv", "week12.json"]
+    assert sorted(os.listdir(rep_dir)) == ["week12.csv", "week12.html", "week12.json"]
     assert not (out / "chainrun-report.json").exists()
 
 
