@@ -84,6 +84,7 @@ class BatchResult:
     seconds: float
     interrupted: bool = False
     notes: list[str] = field(default_factory=list)
+    pictures: dict = field(default_factory=dict)      # rate -> Future of the report's response picture
 
     def count(self, status: str) -> int:
         return sum(r.status == status for r in self.results)
@@ -361,12 +362,14 @@ def claim_outdir(outdir: str) -> tuple[OutdirLock, list[str]]:
     return lock, notes
 
 
-def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True) -> BatchResult:
+def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True, started=None) -> BatchResult:
     """Render every prepared file, ``workers`` at a time; Ctrl-C stops cleanly.
 
     The caller holds OUTDIR (see :func:`claim_outdir`). With ``resume``, files the
     journal shows as delivered for the same job key, input and output are not
-    rendered again. ``progress`` is called with each finished FileResult.
+    rendered again. ``progress`` is called with each finished FileResult;
+    ``started`` once, when the worker processes (if any) have been started, which
+    is the earliest moment the caller may start threads of its own.
     """
     if not 1 <= workers <= MAX_WORKERS:
         raise BatchError(f"--workers {workers} is out of range; allowed: 1 to {MAX_WORKERS}")
@@ -404,6 +407,8 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     # Longest files first, so the pool does not end waiting on one long file.
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
     if workers == 1 or len(todo) <= 1:
+        if started:
+            started()
         try:
             for job, src in todo:
                 try:
@@ -418,6 +423,8 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         pool = ProcessPoolExecutor(max_workers=min(workers, len(todo)), initializer=_worker_init,
                                    mp_context=_POOL_CONTEXT)
         pending = {pool.submit(_render_job, *args(job, src)): job for job, src in todo}
+        if started:
+            started()          # with "fork", every worker exists once the first job is submitted
         try:
             while pending:
                 done, _ = wait(pending, return_when=FIRST_COMPLETED)

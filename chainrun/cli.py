@@ -217,12 +217,17 @@ def cmd_run(args: argparse.Namespace) -> int:
         _err(str(exc))
         return EXIT_USAGE
     try:
+        from .htmlreport import draw_pictures
+
+        pictures: dict = {}
         progress = _Progress(len(prep.work), sys.stderr.isatty())
         try:
-            result = execute(prep, workers=args.workers or _cores(), progress=progress, resume=not args.redo)
+            result = execute(prep, workers=args.workers or _cores(), progress=progress, resume=not args.redo,
+                             started=lambda: pictures.update(draw_pictures(recipe, prep.designs)))
         finally:
             progress.close()
         result.notes[:0] = notes
+        result.pictures = pictures
         try:
             paths = write_reports(result, args.report, command=["chainrun"] + args.argv)
             report_error = None

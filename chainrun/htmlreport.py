@@ -288,9 +288,7 @@ def _responses(data: dict, batch: BatchResult | None, ordered: list[dict]) -> li
             out.append("<p>(No picture: it is drawn from the designed chain, which only the batch itself holds.)</p>")
         else:
             try:
-                from .plot import response_svg
-
-                out.append(response_svg(batch.recipe, d.chain, d.assessment))
+                out.append(_picture(batch, rate, d))
             except Exception as exc:   # a picture that cannot be drawn must not cost the report
                 out.append(f'<p class="banner">The picture could not be drawn: {_e(type(exc).__name__)}: '
                            f"{_e(exc)}</p>")
@@ -479,6 +477,33 @@ def _page(title: str, body: Iterable[str]) -> str:
         "</html>",
         "",
     ])
+
+
+def _picture(batch: BatchResult, rate: int, d) -> str:
+    ready = getattr(batch, "pictures", {}).get(rate)
+    if ready is not None:
+        return ready.result()
+    from .plot import response_svg
+
+    return response_svg(batch.recipe, d.chain, d.assessment)
+
+
+def draw_pictures(recipe, designs: dict) -> dict:
+    """Start drawing the response picture of every designed rate in a background thread.
+
+    Returns ``{rate: Future}``, to be set as ``BatchResult.pictures``; the report
+    then waits for them instead of drawing them. The pictures depend only on the
+    recipe and its designs, so they can be drawn while the audio is filtered.
+    """
+    from concurrent.futures import ThreadPoolExecutor
+
+    from .plot import response_svg
+
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="chainrun-pictures")
+    futures = {rate: pool.submit(response_svg, recipe, d.chain, d.assessment)
+               for rate, d in sorted(designs.items()) if d.chain is not None and d.assessment is not None}
+    pool.shutdown(wait=False)
+    return futures
 
 
 def render_html(data: dict, batch: BatchResult | None = None) -> str:

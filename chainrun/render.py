@@ -20,7 +20,9 @@ import hashlib
 import math
 import os
 import secrets
+import queue
 import sys
+import threading
 import time
 from dataclasses import dataclass, field
 from typing import Any
@@ -247,12 +249,14 @@ class Quantiser:
             self.limit = (self.hi - (1.0 if self.rng is not None else 0.0)) / self.scale
         else:
             self.limit = math.inf
+        self.clipped = 0        # samples hard-clipped at full scale by all calls so far
 
     def __call__(self, y: np.ndarray, counted: np.ndarray | None = None) -> tuple[np.ndarray, int]:
         """Returns (frames x channels array to write, number of samples clipped at full scale).
 
         ``counted`` (channels x frames, bool) marks samples already counted as clipped
-        (by the clip policy); they are not counted again here.
+        (by the clip policy); they are not counted again here. The count is also
+        added to ``clipped``.
         """
         if self.bits is None:
             return np.ascontiguousarray(y.T, dtype=self.dtype), 0
@@ -268,6 +272,7 @@ class Quantiser:
             if counted is not None:
                 out_of_range &= ~counted.T
             clipped = int(np.count_nonzero(out_of_range))
+            self.clipped += clipped
             np.clip(v, self.lo, self.hi, out=v)
         codes = v.astype(np.int32 if self.dtype == np.int32 else np.int16)
         if self.shift:
@@ -304,10 +309,14 @@ def _open_output(path: str, src: Source, fmt: str, subtype: str) -> sf.SoundFile
 
 
 class _Blocks:
-    """Reads an input in blocks as channel-major float64 and checks it for length and NaN."""
+    """Reads an input in blocks as channel-major float64 and checks it for length and NaN.
 
-    def __init__(self, src: Source, block: int):
-        self.src, self.block = src, block
+    Yields ``(frame0, x)``: the index of the block's first frame and an array of
+    shape (channels, frames). With a meter, every block is metered as it is read.
+    """
+
+    def __init__(self, src: Source, block: int, meter: Meter | None = None):
+        self.src, self.block, self.meter = src, block, meter
         self.f = sf.SoundFile(_sf_path(src.path), "r")
         self.buf = np.empty((block, src.channels), dtype=np.float64)
         self.done = 0
@@ -315,7 +324,7 @@ class _Blocks:
     def __iter__(self):
         return self
 
-    def __next__(self) -> np.ndarray:
+    def __next__(self) -> tuple[int, np.ndarray]:
         got = self.f.read(self.block, dtype="float64", always_2d=True, out=self.buf)
         n = len(got)
         if n == 0:
@@ -323,16 +332,115 @@ class _Blocks:
                 raise AudioError(f"ended early: {self.done} of {self.src.frames} frames could be read "
                                  "(cut short, or changed while being read)")
             raise StopIteration
-        x = np.ascontiguousarray(got.T)
-        if not np.isfinite(x).all():
+        x = got.T.copy()       # a new channel-major array: the buffer is reused for the next read
+        if not (math.isfinite(float(x.max())) and math.isfinite(float(x.min()))):
             ch, at = np.argwhere(~np.isfinite(x))[0]
             raise AudioError(f"sample {self.done + at} of channel {ch + 1} is {x[ch, at]}; "
                              "chainrun does not pass NaN or Inf on (repair or re-export the file)")
+        if self.meter is not None:
+            self.meter.update(x)
+        frame0 = self.done
         self.done += n
-        return x
+        return frame0, x
 
     def close(self) -> None:
         self.f.close()
+
+
+class _Scratch:
+    """The float64 scratch file of the scale policy: written in pass 1, read back scaled in pass 2."""
+
+    def __init__(self, path: str, channels: int):
+        self.path, self.channels = path, channels
+
+    def writer(self):
+        fh = open(self.path, "wb")
+        return fh, lambda y: fh.write(np.ascontiguousarray(y.T).tobytes())
+
+    def blocks(self, block: int, gain: float):
+        with open(self.path, "rb") as fh:
+            while True:
+                raw = fh.read(block * self.channels * 8)
+                if not raw:
+                    return
+                y = np.frombuffer(raw, dtype=np.float64).reshape(-1, self.channels).T * gain
+                yield np.ascontiguousarray(y)
+
+
+_END = object()
+
+
+def _pipeline(items, transform, consume, depth: int = 2) -> None:
+    """Run ``items`` (an iterator) in a reader thread, ``transform`` here, ``consume`` in a writer thread.
+
+    Decoding, filtering and encoding overlap: libsndfile (through cffi), sosfilt
+    and numpy's large array operations release the GIL. Items stay in order;
+    ``transform`` may return None to send nothing on. Queues hold ``depth``
+    items, so memory stays a few blocks whatever the file's length. The first
+    error in any stage stops all three and is raised here; so is Ctrl-C.
+    """
+    q_in: queue.Queue = queue.Queue(depth)
+    q_out: queue.Queue = queue.Queue(depth)
+    stop = threading.Event()
+    errors: list[BaseException] = []
+
+    def put(q: queue.Queue, item) -> bool:
+        while not stop.is_set():
+            try:
+                q.put(item, timeout=0.05)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def get(q: queue.Queue):
+        while not stop.is_set():
+            try:
+                return q.get(timeout=0.05)
+            except queue.Empty:
+                continue
+        return _END
+
+    def fail(exc: BaseException) -> None:
+        errors.append(exc)
+        stop.set()
+
+    def read() -> None:
+        try:
+            for item in items:
+                if not put(q_in, item):
+                    return
+            put(q_in, _END)
+        except BaseException as exc:
+            fail(exc)
+
+    def write() -> None:
+        try:
+            while (item := get(q_out)) is not _END:
+                consume(item)
+        except BaseException as exc:
+            fail(exc)
+
+    threads = [threading.Thread(target=read, name="chainrun-read", daemon=True),
+               threading.Thread(target=write, name="chainrun-write", daemon=True)]
+    for t in threads:
+        t.start()
+    try:
+        while (item := get(q_in)) is not _END:
+            out = transform(item)
+            if out is not None and not put(q_out, out):
+                break
+        if not stop.is_set():
+            put(q_out, _END)
+            threads[1].join()
+    except BaseException as exc:
+        fail(exc)
+    finally:
+        stop.set()
+        for t in threads:
+            t.join()
+    if errors:
+        raise errors[0]
 
 
 class _Filter:
@@ -354,25 +462,32 @@ class _Filter:
         self.bound = bound
         self.in_peak = 0.0
         self.out_peak = 0.0
+        self.block_peak = 0.0
 
     def _filter(self, x: np.ndarray, frame0: int) -> np.ndarray:
         n, period = x.shape[-1], self.FLUSH_PERIOD
-        first = (-frame0) % period           # frames up to the next absolute flush point
-        if first >= n:
+        end = frame0 + n
+        boundary = (frame0 // period + 1) * period        # first flush point after frame0
+        if boundary >= end:                               # none inside the block (the usual case)
             y, self.zi = signal.sosfilt(self.sos, x, axis=-1, zi=self.zi)
+            if boundary == end:
+                self._flush()
             return y
         y = np.empty_like(x)
         start = 0
-        for stop in list(range(first, n, period)) + [n]:
-            if stop > start:
-                y[:, start:stop], self.zi = signal.sosfilt(self.sos, x[:, start:stop], axis=-1, zi=self.zi)
-            if stop < n or (frame0 + n) % period == 0:
-                self.zi[np.abs(self.zi) < self.DENORMAL_FLOOR] = 0.0
+        for stop in list(range(boundary - frame0, n, period)) + [n]:
+            y[:, start:stop], self.zi = signal.sosfilt(self.sos, x[:, start:stop], axis=-1, zi=self.zi)
+            if (frame0 + stop) % period == 0:
+                self._flush()
             start = stop
         return y
 
+    def _flush(self) -> None:
+        self.zi[np.abs(self.zi) < self.DENORMAL_FLOOR] = 0.0
+
     def __call__(self, x: np.ndarray, frame0: int) -> np.ndarray:
         y = self._filter(x, frame0)
+        self.block_peak = 0.0
         if x.size:
             self.in_peak = max(self.in_peak, float(x.max()), float(-x.min()))
             hi, lo = float(y.max()), float(y.min())
@@ -384,6 +499,7 @@ class _Filter:
             if peak > self.bound * self.in_peak * (1 + 1e-9) + 1e-12:
                 raise AudioError(f"the filter output ({20 * math.log10(peak):+.2f} dBFS) passed the guard's "
                                  f"worst-case bound near sample {frame0}; nothing was delivered")
+            self.block_peak = peak
             self.out_peak = max(self.out_peak, peak)
         return y
 
@@ -443,22 +559,25 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         filt = _Filter(sos, src.channels, bound)
         tmp = temp_path_for(dst)
 
+        meter_args = dict(true_peak=policy.true_peak, max_regions=policy.max_regions)
         if policy.on_over == "scale":
             # Pass 1: filter to a float64 scratch file, metering the unscaled output.
             pre = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=policy.true_peak, max_regions=0)
             scratch = tmp + ".f64"
-            reader = _Blocks(src, block)
+            store = _Scratch(scratch, src.channels)
+            reader = _Blocks(src, block, in_meter)
+            fh, write_scratch = store.writer()
             try:
-                with open(scratch, "wb") as fh:
-                    for x in reader:
-                        in_meter.update(x)
-                        y = filt(x, reader.done - x.shape[1])
-                        pre.update(y)
-                        fh.write(np.ascontiguousarray(y.T).tobytes())
+                def pass1(item):
+                    frame0, x = item
+                    y = filt(x, frame0)
+                    pre.update(y)
+                    return y
+                _pipeline(reader, pass1, write_scratch)
             finally:
                 reader.close()
-            pre_r = pre.result()
-            over = _over(filt.out_peak, _max_tp(pre_r), policy)
+                fh.close()
+            over = _over(filt.out_peak, _max_tp(pre.result()), policy)
             # Fit the ceiling and also the codes: for integer output +1.0 (0 dBFS) has no code, so
             # scaling to a 0 dBFS ceiling alone would leave the positive crests hard-clipped.
             fit = max(over, _db(filt.out_peak) - _db(quantise.limit))
@@ -466,52 +585,46 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             res.gain_db = _db(gain) if fit > 0 else 0.0
             res.over_db = over if over > 0 else None
             # Pass 2: scale, meter, quantise, write.
-            out_meter = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=policy.true_peak,
-                              max_regions=policy.max_regions)
-            with open(scratch, "rb") as fh, _open_output(tmp, src, fmt, out_subtype) as out:
-                while True:
-                    raw = fh.read(block * src.channels * 8)
-                    if not raw:
-                        break
-                    y = np.frombuffer(raw, dtype=np.float64).reshape(-1, src.channels).T * gain
-                    y = np.ascontiguousarray(y)
+            out_meter = Meter(src.rate, src.channels, full_scale=out_fs, **meter_args)
+            with _open_output(tmp, src, fmt, out_subtype) as out:
+                def pass2(y):
                     out_meter.update(y)
-                    data, clipped = quantise(y)
-                    res.clipped_by_chainrun += clipped
-                    out.write(data)
+                    return y
+
+                def encode(y):
+                    out.write(quantise(y)[0])
+                _pipeline(store.blocks(block, gain), pass2, encode)
             _remove_quietly(scratch)
             scratch = None
         else:
-            out_meter = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=policy.true_peak,
-                              max_regions=policy.max_regions)
             ceiling = policy.ceiling
-            reader = _Blocks(src, block)
+            clip = policy.on_over == "clip"
+            # Under the clip policy, samples held at the ceiling count as clipped in the output meter.
+            out_meter = Meter(src.rate, src.channels, full_scale=min(out_fs, ceiling) if clip else out_fs,
+                              **meter_args)
+            reader = _Blocks(src, block, in_meter)
             out = _open_output(tmp, src, fmt, out_subtype)
-            writing = True
+            rejecting = [False]
             try:
-                for x in reader:
-                    in_meter.update(x)
-                    y = filt(x, reader.done - x.shape[1])
+                def process(item):
+                    frame0, x = item
+                    y = filt(x, frame0)
                     over_mask = None
-                    if policy.on_over == "clip" and filt.out_peak > ceiling:
+                    if clip and filt.block_peak > ceiling:
                         over_mask = np.abs(y) > ceiling
-                        n_over = int(np.count_nonzero(over_mask))
-                        if n_over:
-                            np.clip(y, -ceiling, ceiling, out=y)
-                            res.clipped_by_chainrun += n_over
+                        res.clipped_by_chainrun += int(np.count_nonzero(over_mask))
+                        np.clip(y, -ceiling, ceiling, out=y)
                     out_meter.update(y)
-                    if policy.on_over == "reject" and writing and _over(filt.out_peak, None, policy) > 0:
-                        writing = False            # will be rejected: stop writing, keep metering
-                        out.close()
-                        _remove_quietly(tmp)
-                    if writing:
-                        data, clipped = quantise(y, over_mask)
-                        res.clipped_by_chainrun += clipped
-                        out.write(data)
+                    if policy.on_over == "reject" and _over(filt.out_peak, None, policy) > 0:
+                        rejecting[0] = True        # will be rejected: stop writing, keep metering
+                    return None if rejecting[0] else (y, over_mask)
+
+                def encode(item):
+                    out.write(quantise(*item)[0])
+                _pipeline(reader, process, encode)
             finally:
                 reader.close()
-                if not out.closed:
-                    out.close()
+                out.close()
             over = _over(filt.out_peak, _max_tp(out_meter.result()), policy)
             if over > 0:
                 res.over_db = over
@@ -525,6 +638,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
                                f"A trim of {res.trim_db:.2f} dB (a gain section, or on_over: scale) would fit")
                 return res
 
+        res.clipped_by_chainrun += quantise.clipped
         _check_unchanged(src)
         _fsync_path(tmp)
         os.replace(tmp, dst)
@@ -571,10 +685,10 @@ def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, r
     res = FileResult(input=src.path, relpath=relpath or src.path, status="failed", source=src)
     meter = Meter(src.rate, src.channels, full_scale=_full_scale(src.subtype), true_peak=true_peak)
     try:
-        reader = _Blocks(src, block)
+        reader = _Blocks(src, block, meter)
         try:
-            for x in reader:
-                meter.update(x)
+            for _ in reader:
+                pass
         finally:
             reader.close()
         res.input_meters = meter.result()
