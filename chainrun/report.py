@@ -64,10 +64,20 @@ def file_dict(r: FileResult) -> dict:
         "out_format": r.out_format, "out_subtype": r.out_subtype, "dither": r.dither if r.out_subtype else None,
         "over_db": _num(r.over_db), "trim_db": _num(r.trim_db), "gain_db": _num(r.gain_db),
         "clipped_by_chainrun": r.clipped_by_chainrun, "seconds": round(r.seconds, 4),
-        "input_meters": r.input_meters.to_dict() if r.input_meters else None,
-        "output_meters": r.output_meters.to_dict() if r.output_meters else None,
+        "input_meters": _meters_dict(r.input_meters),
+        "output_meters": _meters_dict(r.output_meters),
     }
     d.update(r.extra)
+    return d
+
+
+def _meters_dict(reading) -> dict | None:
+    """A meter reading as JSON, each clipped region also given as [start in seconds, length in samples]."""
+    if reading is None:
+        return None
+    d = reading.to_dict()
+    for ch in d["channels"]:
+        ch["clipped_regions_s"] = [[round(start / reading.rate, 6), length] for start, length in ch["clipped_regions"]]
     return d
 
 
