@@ -1,0 +1,285 @@
+"""chainrun throughput and memory benchmarks, measured against two baselines in one run.
+
+    python benchmarks/run.py                 # full run (makes ~2.5 GB of test files in benchmarks/work/)
+    python benchmarks/run.py --smoke         # seconds: tiny files, one round; checks the harness works
+
+A  ``chainrun run`` with every meter on (true peak included), one worker;
+B  the plain script: soundfile.read the whole file, scipy.signal.sosfilt with the same SOS,
+   soundfile.write;
+C  the I/O floor: read and write the same file in blocks with soundfile, no DSP.
+
+A, B and C run interleaved, round after round, each in its own process, so that a noisy
+neighbour slows all three alike; the figures are medians. Peak RSS is the whole process's
+(``ru_maxrss`` from ``os.wait4``). Separately: peak RSS of A on a short vs a long file,
+16 files with one vs two workers, digital silence after loud content vs noise (denormals),
+and true-peak metering on vs off.
+
+Nothing here is asserted; the results are printed as a Markdown table (and written to
+``--out`` if given) for benchmarks/RESULTS.md.
+
+The measuring process imports nothing heavier than the standard library: a child's
+``ru_maxrss`` counts the pages it shared with its parent before ``exec``, so a parent that had
+imported scipy would inflate every child's peak RSS. Test files and the SOS are made by child
+processes of this same script (``--make-noise``, ``--make-sos``).
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import platform
+import shutil
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+RATE = 48000
+
+RECIPE = """\
+format: 1
+name: Benchmark chain (six biquads)
+chain:
+  - {type: highpass, freq: 40, order: 4}
+  - {type: notch, freq: 50, q: 20}
+  - {type: peak, freq: 250, gain_db: -3, q: 1.2}
+  - {type: peak, freq: 3200, gain_db: 2, q: 1.0}
+  - {type: high_shelf, freq: 9000, gain_db: 1.5, slope: 1}
+guard:
+  on_over: clip
+output:
+  subtype: same
+"""
+
+PLAIN_SCRIPT = """\
+import sys, soundfile as sf, scipy.signal as s, numpy as np
+sos = np.load(sys.argv[3])
+x, fs = sf.read(sys.argv[1])
+info = sf.info(sys.argv[1])
+y = s.sosfilt(sos, x, axis=0)
+sf.write(sys.argv[2], y, fs, subtype=info.subtype)
+"""
+
+FLOOR_SCRIPT = """\
+import sys, soundfile as sf
+info = sf.info(sys.argv[1])
+with sf.SoundFile(sys.argv[1]) as fin, sf.SoundFile(sys.argv[2], "w", info.samplerate, info.channels,
+                                                      info.subtype, format=info.format) as fout:
+    for block in fin.blocks(65536, dtype="float64"):
+        fout.write(block)
+"""
+
+
+def make_noise_file(path: str, seconds: float, channels: int = 2, subtype: str = "PCM_24",
+                    silence_after: float | None = None, seed: int = 7) -> None:
+    """Noise-like content (pinkish noise with a slow level envelope), written in blocks.
+
+    With ``silence_after``, loud content up to that time and digital silence after it.
+    """
+    import numpy as np
+    import soundfile as sf
+    from scipy.signal import lfilter
+
+    rng = np.random.default_rng(seed)
+    frames = int(seconds * RATE)
+    block = 1 << 16
+    b, a = [0.3], [1.0, -0.95]               # one-pole low-pass: more energy low down, like real ambience
+    zi = np.zeros((1, channels))
+    with sf.SoundFile(path, "w", RATE, channels, subtype, format="WAV") as f:
+        done = 0
+        while done < frames:
+            n = min(block, frames - done)
+            white = rng.standard_normal((n, channels))
+            low, zi = lfilter(b, a, white, axis=0, zi=zi)
+            pink = low + 0.5 * white
+            t = (done + np.arange(n)) / RATE
+            env = 0.03 * (1.0 + 0.5 * np.sin(2 * np.pi * t / 7.0))[:, None]
+            x = np.clip(pink * env * 4.0, -0.7, 0.7)
+            if silence_after is not None:
+                x[t >= silence_after] = 0.0
+            f.write(x)
+            done += n
+
+
+def timed(cmd: list[str], env: dict | None = None) -> tuple[float, float]:
+    """Wall seconds and peak RSS (MB) of one child process."""
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
+    _, status, usage = os.wait4(proc.pid, 0)
+    wall = time.perf_counter() - t0
+    err = proc.stderr.read().decode(errors="replace")
+    proc.stderr.close()
+    code = os.waitstatus_to_exitcode(status)
+    if code not in (0, 1):
+        raise SystemExit(f"benchmark step failed ({code}): {' '.join(cmd)}\n{err}")
+    return wall, usage.ru_maxrss / 1024.0
+
+
+def chainrun_cmd(recipe: str, inputs: list[str], out: str, *extra: str) -> list[str]:
+    return [sys.executable, "-m", "chainrun", "run", recipe, *inputs, "-o", out, "--redo", *extra]
+
+
+def median_rounds(steps: dict[str, list[str]], rounds: int, before=None) -> dict[str, tuple[float, float]]:
+    """Run every step once per round, interleaved; medians of wall time and of peak RSS."""
+    times: dict[str, list[float]] = {k: [] for k in steps}
+    rss: dict[str, list[float]] = {k: [] for k in steps}
+    for _ in range(rounds):
+        for name, cmd in steps.items():
+            if before:
+                before()
+            w, m = timed(cmd)
+            times[name].append(w)
+            rss[name].append(m)
+    return {k: (statistics.median(times[k]), statistics.median(rss[k])) for k in steps}
+
+
+def machine() -> str:
+    cpu = platform.processor() or platform.machine()
+    try:
+        with open("/proc/cpuinfo") as fh:
+            names = [ln.split(":", 1)[1].strip() for ln in fh if ln.startswith("model name")]
+        if names:
+            cpu = f"{names[0]} x{len(names)}"
+    except OSError:
+        pass
+    versions = subprocess.run(
+        [sys.executable, "-c", "import numpy, scipy, soundfile as sf; print(f'numpy {numpy.__version__}, "
+         "scipy {scipy.__version__}, soundfile {sf.__version__} (libsndfile {sf.__libsndfile_version__})')"],
+        capture_output=True, text=True).stdout.strip()
+    return f"{cpu}; {platform.system()} {platform.release()}; Python {platform.python_version()}, {versions}"
+
+
+def _child(*args: str) -> None:
+    subprocess.run([sys.executable, os.path.abspath(__file__), *args], check=True)
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--smoke", action="store_true", help="tiny files, one round: checks the harness runs")
+    ap.add_argument("--rounds", type=int, default=None, help="rounds of the interleaved A/B/C comparison")
+    ap.add_argument("--work", default=os.path.join(HERE, "work"), help="folder for generated files")
+    ap.add_argument("--out", help="also write the Markdown results to this file")
+    ap.add_argument("--make-noise", nargs=2, metavar=("PATH", "SECONDS"), help=argparse.SUPPRESS)
+    ap.add_argument("--silence-after", type=float, help=argparse.SUPPRESS)
+    ap.add_argument("--seed", type=int, default=7, help=argparse.SUPPRESS)
+    ap.add_argument("--make-sos", nargs=2, metavar=("RECIPE", "NPY"), help=argparse.SUPPRESS)
+    args = ap.parse_args(argv)
+    if args.make_noise:
+        make_noise_file(args.make_noise[0], float(args.make_noise[1]), silence_after=args.silence_after,
+                        seed=args.seed)
+        return 0
+    if args.make_sos:
+        import numpy as np
+        sys.path.insert(0, os.path.dirname(HERE))
+        from chainrun import design, load
+        np.save(args.make_sos[1], design(load(args.make_sos[0]), RATE).sos)
+        return 0
+
+    smoke = args.smoke
+    rounds = args.rounds or (1 if smoke else 5)
+    main_s = 5.0 if smoke else 600.0            # the 10-minute file
+    short_s, long_s = (2.0, 6.0) if smoke else (60.0, 3600.0)
+    many_s, many_n = (1.0, 4) if smoke else (60.0, 16)
+    work = args.work
+    os.makedirs(work, exist_ok=True)
+    scratch = tempfile.mkdtemp(prefix="out-", dir=work)
+
+    recipe = os.path.join(work, "bench-recipe.yaml")
+    with open(recipe, "w") as fh:
+        fh.write(RECIPE)
+    sos_path = os.path.join(work, "bench-sos.npy")
+    _child("--make-sos", recipe, sos_path)
+    plain = os.path.join(work, "plain.py")
+    floor = os.path.join(work, "floor.py")
+    with open(plain, "w") as fh:
+        fh.write(PLAIN_SCRIPT)
+    with open(floor, "w") as fh:
+        fh.write(FLOOR_SCRIPT)
+
+    def need(name: str, seconds: float, silence_after: float | None = None, seed: int = 7) -> str:
+        path = os.path.join(work, name)
+        data_bytes = int(seconds * RATE) * 2 * 3          # stereo PCM_24
+        if not os.path.exists(path) or not 0 <= os.path.getsize(path) - data_bytes <= 4096:
+            print(f"making {name} ({seconds:g} s)...", file=sys.stderr)
+            extra = ["--seed", str(seed)] + (["--silence-after", str(silence_after)] if silence_after else [])
+            _child("--make-noise", path, str(seconds), *extra)
+        return path
+
+    main_file = need(f"noise-{main_s:g}s.wav", main_s)
+    lines = [f"Machine: {machine()}", "",
+             f"Command: `python benchmarks/run.py{' --smoke' if smoke else ''} --rounds {rounds}`", ""]
+
+    def out(name: str) -> str:
+        return os.path.join(scratch, name)
+
+    short = need(f"noise-{short_s:g}s.wav", short_s)
+    print("A/B/C interleaved...", file=sys.stderr)
+    abc = median_rounds({
+        "A chainrun (all meters, 1 worker)": chainrun_cmd(recipe, [main_file], out("a"), "--workers", "1"),
+        "B plain script (read all, sosfilt, write)": [sys.executable, plain, main_file, out("b.wav"), sos_path],
+        "C I/O floor (blocks, no DSP)": [sys.executable, floor, main_file, out("c.wav")],
+        "A on the short file": chainrun_cmd(recipe, [short], out("a-short"), "--workers", "1"),
+        "C on the short file": [sys.executable, floor, short, out("c-short.wav")],
+    }, rounds)
+    (ta, ma), (tb, mb), (tc, mc), (ta_s, _), (tc_s, _) = abc.values()
+    lines += [f"## Stereo 48 kHz PCM_24, {main_s:g} s of noise-like content, six biquads; medians of {rounds} rounds",
+              "", "| step | median time | times real time | peak RSS |", "| --- | ---: | ---: | ---: |"]
+    for name, (t, m) in list(abc.items())[:3]:
+        lines.append(f"| {name} | {t:.2f} s | {main_s / t:.0f}x | {m:.0f} MB |")
+    marginal = (ta - ta_s) / (tc - tc_s) if tc > tc_s else float("nan")
+    lines += ["", f"- A/B = {ta / tb:.2f} (target <= 0.8)", f"- A/C = {ta / tc:.2f} (target <= 1.3)",
+              f"- A/C per extra second of audio = {marginal:.2f}: (A - A_short) / (C - C_short) with the "
+              f"{short_s:g} s file (A_short {ta_s:.2f} s, C_short {tc_s:.2f} s), i.e. without the fixed cost of "
+              "start-up, design and reports",
+              f"- peak RSS of A = {ma:.0f} MB (target <= 150 MB)", ""]
+
+    print("true peak on/off...", file=sys.stderr)
+    tp = median_rounds({
+        "on": chainrun_cmd(recipe, [main_file], out("tp-on"), "--workers", "1"),
+        "off": chainrun_cmd(recipe, [main_file], out("tp-off"), "--workers", "1", "--no-true-peak"),
+    }, rounds)
+    lines += [f"- true-peak metering adds {100 * (tp['on'][0] / tp['off'][0] - 1):+.0f} % to A "
+              f"({tp['on'][0]:.2f} s vs {tp['off'][0]:.2f} s; target <= +25 %)"]
+
+    print("silence vs noise...", file=sys.stderr)
+    silent = need(f"loud-then-silence-{main_s:g}s.wav", main_s, silence_after=main_s * 0.05)
+    dn = median_rounds({
+        "noise": chainrun_cmd(recipe, [main_file], out("dn-noise"), "--workers", "1"),
+        "silence": chainrun_cmd(recipe, [silent], out("dn-silence"), "--workers", "1"),
+    }, rounds)
+    lines += [f"- digital silence after loud content vs noise: {dn['silence'][0] / dn['noise'][0]:.2f} "
+              f"({dn['silence'][0]:.2f} s vs {dn['noise'][0]:.2f} s; target <= 1.2)"]
+
+    print("short vs long file RSS...", file=sys.stderr)
+    long_ = need(f"noise-{long_s:g}s.wav", long_s)
+    _, rss_short = timed(chainrun_cmd(recipe, [short], out("short"), "--workers", "1"))
+    t_long, rss_long = timed(chainrun_cmd(recipe, [long_], out("long"), "--workers", "1"))
+    shutil.rmtree(out("long"), ignore_errors=True)
+    lines += [f"- peak RSS, {short_s:g} s file {rss_short:.0f} MB vs {long_s:g} s file {rss_long:.0f} MB: "
+              f"ratio {rss_long / rss_short:.2f} (target <= 1.15; the long file ran at {long_s / t_long:.0f}x real time)"]
+
+    print("one vs two workers...", file=sys.stderr)
+    many_dir = os.path.join(work, f"many-{many_n}x{many_s:g}s")
+    os.makedirs(many_dir, exist_ok=True)
+    for i in range(many_n):
+        need(os.path.join(many_dir, f"take-{i:02d}.wav"), many_s, seed=100 + i)
+    wk = median_rounds({
+        "1": chainrun_cmd(recipe, [many_dir], out("w1"), "--workers", "1"),
+        "2": chainrun_cmd(recipe, [many_dir], out("w2"), "--workers", "2"),
+    }, rounds)
+    lines += [f"- {many_n} files of {many_s:g} s: one worker {wk['1'][0]:.2f} s, two workers {wk['2'][0]:.2f} s: "
+              f"speed-up {wk['1'][0] / wk['2'][0]:.2f}x (target >= 1.8x on two cores; this machine has "
+              f"{os.cpu_count()} cores)", ""]
+
+    shutil.rmtree(scratch, ignore_errors=True)
+    text = "\n".join(lines)
+    print(text)
+    if args.out:
+        with open(args.out, "w") as fh:
+            fh.write(text + "\n")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

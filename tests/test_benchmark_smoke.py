@@ -1,0 +1,25 @@
+"""The benchmark harness runs end to end in its smoke mode, so it cannot rot.
+
+Nothing about speed is asserted here (speed is measured by benchmarks/run.py, not tested); this
+only checks that every step ran and produced its line of results.
+"""
+import os
+import subprocess
+import sys
+
+import pytest
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+
+
+@pytest.mark.slow
+def test_benchmark_smoke_mode_runs(tmp_path):
+    out = tmp_path / "results.md"
+    proc = subprocess.run([sys.executable, os.path.join(ROOT, "benchmarks", "run.py"), "--smoke",
+                           "--work", str(tmp_path / "work"), "--out", str(out)],
+                          capture_output=True, text=True, timeout=600, cwd=ROOT)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    text = out.read_text()
+    for line in ("A chainrun", "B plain script", "C I/O floor", "A/B =", "A/C =", "true-peak metering adds",
+                 "digital silence after loud content", "peak RSS,", "speed-up"):
+        assert line in text, f"missing from the benchmark results: {line}"
