@@ -10,18 +10,21 @@ import hashlib
 import json
 import multiprocessing
 import os
+import re
+import signal
 import stat
 import sys
 import time
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from . import __version__
 from .design import Chain, design
 from .guard import Assessment, assess, check_raw_sections
 from .recipe import Recipe, RecipeError
 from .journal import Journal, LockedError, OutdirLock, clean_leftovers
-from .render import DEFAULT_BLOCK, MAX_BLOCK, TEMP_TAG, AudioError, FileResult, Policy, Source, probe, render_file
+from .render import (DEFAULT_BLOCK, MAX_BLOCK, TEMP_TAG, AudioError, FileResult, Policy, Source, _sf_path, probe,
+                     render_file)
 
 __all__ = ["BatchError", "Job", "Plan", "RateDesign", "BatchResult", "discover", "prepare", "claim_outdir",
            "execute", "run_batch", "job_key"]
@@ -111,8 +114,24 @@ def _looks_like_audio(path: str) -> bool:
     return head in _MAGIC
 
 
+NOT_AUDIO = "not audio (by name and by content)"
+MAC_METADATA = "a macOS metadata file, not audio"
+QUIET_SKIPS = frozenset({NOT_AUDIO, MAC_METADATA})     # skips not worth a line on stderr
+INTERRUPTED = "not rendered: the batch was interrupted"
+BROKEN_LINK = "a link to nothing (broken symbolic link); there is nothing to read"
+
+
 def _skip(path: str, rel: str, why: str) -> FileResult:
     return FileResult(input=path, relpath=rel, status="skipped", message=why)
+
+
+def _fail(path: str, rel: str, why: str) -> FileResult:
+    """An input found (or named) that cannot be rendered: failed, so the batch does not end 'all ok'."""
+    return FileResult(input=path, relpath=rel, status="failed", message=why)
+
+
+def _reason(exc: OSError) -> str:
+    return (exc.strerror or str(exc)).lower()
 
 
 def discover(inputs: list[str], outdir: str | None) -> Plan:
@@ -133,6 +152,10 @@ def discover(inputs: list[str], outdir: str | None) -> Plan:
 
     def add(path: str, rel: str) -> None:
         real = os.path.realpath(path)
+        if out_real is not None and _inside(real, out_real):
+            plan.skipped.append(_skip(path, rel, f"a link into the output folder {outdir}; outputs are not "
+                                                 "read as inputs"))
+            return
         if real in seen_inputs:
             plan.skipped.append(_skip(path, rel, f"the same file as {seen_inputs[real]}; rendered once"))
             return
@@ -142,11 +165,12 @@ def discover(inputs: list[str], outdir: str | None) -> Plan:
             return
         output = os.path.normpath(os.path.join(outdir, rel))
         if not _inside(os.path.dirname(output), out_real) or os.path.isabs(rel) or rel.startswith(".."):
-            plan.skipped.append(_skip(path, rel, "its output name would leave OUTDIR; skipped"))
+            plan.skipped.append(_fail(path, rel, "its output name would leave OUTDIR (through a link in the "
+                                                 "output folder); not rendered"))
             return
         key = os.path.normcase(output)
         if key in seen_outputs:
-            plan.skipped.append(_skip(path, rel, f"its output name collides with that of {seen_outputs[key]}; "
+            plan.skipped.append(_fail(path, rel, f"its output name collides with that of {seen_outputs[key]}; "
                                                  "rename one of them"))
             return
         seen_inputs[real], seen_outputs[key] = path, path
@@ -162,20 +186,29 @@ def discover(inputs: list[str], outdir: str | None) -> Plan:
             if out_real is not None and _inside(arg, out_real):
                 raise BatchError(f"{arg}: error: this input lies inside the output folder {outdir}; "
                                  "choose an output folder outside every input")
-            _walk(arg, add, plan)
+            _walk(arg, add, plan, out_real)
         else:
             if out_real is not None and _inside(arg, out_real):
                 raise BatchError(f"{arg}: error: this input lies inside the output folder {outdir}; "
                                  "choose an output folder outside every input")
             name = os.path.basename(arg)
-            if not os.path.exists(arg):
-                plan.skipped.append(_skip(arg, name, "a link to nothing (broken symbolic link)"))
-            else:
-                add(arg, name)
+            try:
+                mode = os.stat(arg).st_mode
+            except FileNotFoundError:
+                plan.skipped.append(_fail(arg, name, BROKEN_LINK))
+                continue
+            except OSError as exc:
+                plan.skipped.append(_fail(arg, name, f"cannot be read: {_reason(exc)}"))
+                continue
+            if not stat.S_ISREG(mode):     # a pipe or a device: opening it could wait for ever
+                plan.skipped.append(_fail(arg, name, "not a regular file (a pipe, socket or device); "
+                                                     "chainrun reads audio files only"))
+                continue
+            add(arg, name)
     return plan
 
 
-def _walk(top: str, add, plan: Plan) -> None:
+def _walk(top: str, add, plan: Plan, out_real: str | None = None) -> None:
     visited: set[tuple[int, int]] = set()
     st = os.stat(top)
     visited.add((st.st_dev, st.st_ino))
@@ -187,7 +220,8 @@ def _walk(top: str, add, plan: Plan) -> None:
                 entries = sorted(it, key=lambda e: e.name)
         except OSError as exc:
             rel = os.path.relpath(folder, top)
-            plan.skipped.append(_skip(folder, rel, f"folder cannot be listed: {(exc.strerror or str(exc)).lower()}"))
+            plan.skipped.append(_fail(folder, rel, f"folder cannot be listed: {_reason(exc)}; "
+                                                   "the files in it were not rendered"))
             continue
         subfolders = []
         for e in entries:
@@ -201,9 +235,14 @@ def _walk(top: str, add, plan: Plan) -> None:
                 try:
                     est = os.stat(path)
                 except OSError as exc:
-                    plan.skipped.append(_skip(path, rel, f"cannot be opened: {(exc.strerror or '').lower()}"))
+                    plan.skipped.append(_fail(path, rel, f"folder cannot be opened: {_reason(exc)}; "
+                                                         "the files in it were not rendered"))
                     continue
                 key = (est.st_dev, est.st_ino)
+                if out_real is not None and _inside(path, out_real):
+                    plan.skipped.append(_skip(path, rel, "a link into the output folder; outputs are not read "
+                                                         "as inputs, not searched"))
+                    continue
                 if key in visited:
                     plan.skipped.append(_skip(path, rel, "a link back to a folder already searched "
                                                          "(symbolic link loop); not followed"))
@@ -213,17 +252,18 @@ def _walk(top: str, add, plan: Plan) -> None:
                     subfolders.append(path)
                 continue
             if e.name.startswith("._"):
-                plan.skipped.append(_skip(path, rel, "a macOS metadata file, not audio"))
+                plan.skipped.append(_skip(path, rel, MAC_METADATA))
                 continue
             if e.name.startswith(".") or TEMP_TAG in e.name:
                 continue
-            if e.is_symlink() and not os.path.exists(path):
-                plan.skipped.append(_skip(path, rel, "a link to nothing (broken symbolic link)"))
-                continue
             try:
                 mode = os.stat(path).st_mode
-            except OSError as exc:
-                plan.skipped.append(_skip(path, rel, f"cannot be read: {(exc.strerror or '').lower()}"))
+            except FileNotFoundError:
+                plan.skipped.append(_fail(path, rel, BROKEN_LINK if e.is_symlink() else "vanished while the folder "
+                                                                                          "was searched"))
+                continue
+            except OSError as exc:          # e.g. a link that loops: too many levels of symbolic links
+                plan.skipped.append(_fail(path, rel, f"cannot be read: {_reason(exc)}"))
                 continue
             if not stat.S_ISREG(mode):
                 plan.skipped.append(_skip(path, rel, "not a regular file"))
@@ -231,8 +271,29 @@ def _walk(top: str, add, plan: Plan) -> None:
             if _looks_like_audio(path):
                 add(path, rel)
             else:
-                plan.skipped.append(_skip(path, rel, "not audio (by name and by content)"))
+                plan.skipped.append(_skip(path, rel, NOT_AUDIO))
         stack.extend(reversed(subfolders))
+
+
+def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
+    """A located, one-line RecipeError for a fault (not a RecipeError) raised designing or assessing at ``rate``.
+
+    The section that cannot be designed on its own is named; if each can, the recipe itself.
+    """
+    from .design import design_section
+
+    text = (str(exc).strip().splitlines() or [""])[0]
+    why = f"{type(exc).__name__}{': ' + text if text else ''}"
+    for section in recipe.sections:
+        try:
+            design_section(section, rate)
+        except RecipeError:
+            continue
+        except Exception:
+            return RecipeError.at(section.locate("freq"), f"{section.title} cannot be designed at {rate} Hz "
+                                                          f"({why}); change its parameters, and please report it")
+    return RecipeError(recipe.path, 1, 1, f"the chain cannot be designed or assessed at {rate} Hz ({why}); "
+                                          "please report it")
 
 
 def design_rates(recipe: Recipe, rates: set[int]) -> dict[int, RateDesign]:
@@ -241,10 +302,13 @@ def design_rates(recipe: Recipe, rates: set[int]) -> dict[int, RateDesign]:
     for rate in sorted(rates):
         try:
             chain = design(recipe, rate)
+            a = assess(chain, recipe.guard, recipe)
         except RecipeError as exc:
             out[rate] = RateDesign(rate, None, None, str(exc))
             continue
-        a = assess(chain, recipe.guard, recipe)
+        except Exception as exc:     # a fault in design or guard: this rate cannot be used, the batch says why
+            out[rate] = RateDesign(rate, None, None, str(design_fault(recipe, rate, exc)))
+            continue
         err = next((str(p) for p in a.problems if p.severity == "error"), None)
         out[rate] = RateDesign(rate, chain, a, err)
     return out
@@ -290,9 +354,21 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
     probed: list[tuple[Job, Source]] = []
     for job in plan.jobs:
         try:
-            probed.append((job, probe(job.input)))
+            with open(job.input, "rb"):     # a plain open first: its error names the cause (permission denied)
+                pass
+        except OSError as exc:
+            results.append(FileResult(job.input, job.relpath, "failed", f"cannot read: {_reason(exc)}"))
+            continue
+        try:
+            src = probe(job.input)
         except AudioError as exc:
             results.append(FileResult(job.input, job.relpath, "failed", str(exc)))
+            continue
+        short = cut_short(src)
+        if short:
+            results.append(FileResult(job.input, job.relpath, "failed", short, source=src))
+            continue
+        probed.append((job, src))
     designs = design_rates(recipe, {src.rate for _, src in probed})
     work = []
     for job, src in probed:
@@ -309,23 +385,178 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
     return Prepared(recipe, policy, outdir, designs, work, results)
 
 
+# libsndfile's header log (sf_command SFC_GET_LOG_INFO): a chunk whose size says more than the file holds
+# is logged as "<chunk> : <declared> (should be <present>)", and RF64 as a frame count that does not match.
+_SFC_GET_LOG_INFO = 0x1001
+_DECLARED_RE = re.compile(r"^\s*(?:data|SSND|Data Size)\s*:\s*(\d+)\s*\(should be (\d+)\)", re.M)
+_DS64_RE = re.compile(r"Calculated frame count (\d+) does not match value from 'ds64' chunk of (\d+)")
+_W64_RE = re.compile(r"^\s*riff\s*:\s*(\d+)\s*\(should be (\d+)\)", re.M)
+_UNKNOWN_LENGTH = {0, 0x7FFFFFFF, 0xFFFFFFFF}        # placeholders of unfinished or streamed headers
+_BYTES = {"PCM_S8": 1, "PCM_U8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4, "FLOAT": 4, "DOUBLE": 8,
+          "ULAW": 1, "ALAW": 1}
+
+
+def cut_short(src: Source) -> str | None:
+    """Why ``src`` holds less audio than its header declares, or None.
+
+    libsndfile quietly reads what is there when a header promises more (a copy or
+    a recording that did not finish); chainrun does not deliver such a file as if
+    it were whole.
+    """
+    import soundfile as sf
+
+    try:
+        with sf.SoundFile(_sf_path(src.path)) as f:
+            buf = sf._ffi.new("char[]", 16384)
+            sf._snd.sf_command(f._file, _SFC_GET_LOG_INFO, buf, 16384)
+            log = sf._ffi.string(buf).decode("latin-1")
+    except Exception:          # unreadable now: rendering will say so
+        return None
+    frame = src.channels * _BYTES.get(src.subtype, 1)
+    for m in _DECLARED_RE.finditer(log):
+        declared, present = int(m.group(1)), int(m.group(2))
+        if declared not in _UNKNOWN_LENGTH and declared - present >= frame:
+            return (f"cut short: its header declares {declared} bytes of audio but the file holds {present} "
+                    f"({present // frame} of {declared // frame} frames; a copy or recording that did not "
+                    "finish); not rendered, copy it again or repair its header")
+    m = _DS64_RE.search(log)                    # RF64: frames present, frames declared
+    short = m is not None and int(m.group(1)) < int(m.group(2))
+    if not short and src.format == "W64":
+        m = _W64_RE.search(log)                 # Wave64 logs only its outer size: declared, present
+        short = m is not None and int(m.group(1)) - int(m.group(2)) >= frame
+    if short:
+        return (f"cut short: the file holds less audio than its header declares ({m.group(0).strip()}; a copy "
+                "or recording that did not finish); not rendered, copy it again or repair its header")
+    return None
+
+
+# The largest block in samples (frames x channels): a file with many channels is read in fewer frames
+# per block, so memory stays bounded (the block size never changes the output).
+MAX_BLOCK_SAMPLES = MAX_BLOCK
+
+
+def _temp_name_too_long(output: str) -> str | None:
+    folder, name = os.path.split(output)
+    temp = os.fsencode(f".{name}{TEMP_TAG}00000000")
+    try:
+        limit = os.pathconf(folder or ".", "PC_NAME_MAX")
+    except (OSError, ValueError):
+        limit = 255
+    if limit and len(temp) > limit:
+        return (f"its name is too long to write: the temporary file chainrun writes beside the output needs "
+                f"{len(temp)} bytes and this file system allows {limit}; shorten the name by "
+                f"{len(temp) - limit} bytes or more")
+    return None
+
+
 def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
     folder = os.path.dirname(job.output) or "."
+
+    def fail(why: str) -> FileResult:
+        return FileResult(job.input, job.relpath, "failed", why, source=src)
+
     try:
         os.makedirs(folder, exist_ok=True)
     except OSError as exc:
-        return FileResult(job.input, job.relpath, "failed",
-                          f"cannot create its output folder {folder}: {(exc.strerror or str(exc)).lower()}",
-                          source=src)
-    return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
-                       relpath=job.relpath)
+        return fail(f"cannot create its output folder {folder}: {_reason(exc)}")
+    if os.path.isdir(job.output) and not os.path.islink(job.output):
+        return fail(f"a folder already has its output name ({job.output}); move that folder away")
+    if not os.access(folder, os.W_OK | os.X_OK, effective_ids=os.access in os.supports_effective_ids):
+        try:
+            read_only = bool(os.statvfs(folder).f_flag & os.ST_RDONLY)
+        except OSError:
+            read_only = False
+        return fail(f"cannot write into its output folder {folder}: "
+                    f"{'read-only file system' if read_only else 'permission denied'}; nothing was delivered")
+    too_long = _temp_name_too_long(job.output)
+    if too_long:
+        return fail(too_long)
+    if src.channels * policy.block_size > MAX_BLOCK_SAMPLES:
+        policy = replace(policy, block_size=max(MIN_BLOCK, MAX_BLOCK_SAMPLES // src.channels))
+    r = render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
+                    relpath=job.relpath)
+    if r.status == "failed" and r.message.startswith(_SYSTEM_ERROR):
+        r.message = _write_failure(job.output, src, r.out_subtype, policy) or r.message
+    return r
 
 
-def _worker_init() -> None:
-    # Workers ignore Ctrl-C: the parent decides, cancels what has not started and
-    # lets running files finish their atomic write or clean up.
-    import signal as _signal
-    _signal.signal(_signal.SIGINT, _signal.SIG_IGN)
+# render_file reports every libsndfile error as "not readable as audio: ...", and libsndfile says only
+# "System error" when a write fails (its errno text is not passed on): a full disk or a file size limit.
+_SYSTEM_ERROR = "not readable as audio: System error"
+
+
+def _write_failure(output: str, src: Source, subtype: str | None, policy: Policy) -> str | None:
+    """The likely cause of a libsndfile "System error" while writing ``output``, if one is evident."""
+    width = {"PCM_U8": 1, "PCM_S8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4, "FLOAT": 4, "DOUBLE": 8}
+    samples = src.frames * src.channels
+    need = samples * width.get(subtype or "", 8) + (samples * 8 if policy.on_over == "scale" else 0)
+    try:
+        import resource
+
+        soft = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
+        if soft != resource.RLIM_INFINITY and need > soft:
+            return (f"cannot write the output: file too large (this process may write files of up to {soft} "
+                    f"bytes, see ulimit -f; the output needs about {need}); nothing was delivered")
+    except (ImportError, OSError, ValueError):
+        pass
+    folder = os.path.dirname(output) or "."
+    try:
+        st = os.statvfs(folder)
+    except OSError:
+        return None
+    if st.f_flag & os.ST_RDONLY:
+        return "cannot write the output: read-only file system; nothing was delivered"
+    free = st.f_bavail * st.f_frsize
+    if free < need:
+        return (f"cannot write the output: no space left on device ({free} bytes free in {folder}, the output "
+                f"needs about {need}); nothing was delivered")
+    return None
+
+
+# In a worker process: Ctrl-C (SIGINT, from the terminal or forwarded by the parent) stops the file being
+# rendered (render_file removes its temporary file) and every file queued after it.
+_STOP = False
+_RENDERING = False
+
+
+def _worker_sigint(signum, frame) -> None:
+    global _STOP
+    _STOP = True
+    if _RENDERING:
+        raise KeyboardInterrupt
+
+
+def _worker_init(parent: int | None = None) -> None:
+    if sys.platform.startswith("linux"):
+        # A worker must not outlive its batch: if the parent is killed (SIGKILL, a crash), the kernel kills
+        # the worker too. Otherwise it would go on writing outputs that no journal records, and hold the
+        # output folder's lock (inherited with fork) for ever.
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)     # PR_SET_PDEATHSIG
+        except (OSError, AttributeError):
+            pass
+    if parent is not None and os.getppid() != parent:       # the parent died before prctl took effect
+        os._exit(1)
+    signal.signal(signal.SIGINT, _worker_sigint)
+
+
+def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
+    global _RENDERING
+    interrupted = FileResult(job.input, job.relpath, "failed", INTERRUPTED, source=src)
+    if _STOP:
+        return interrupted
+    _RENDERING = True
+    try:
+        if _STOP:
+            return interrupted
+        return _render_job(job, src, sos, bound, policy)
+    except KeyboardInterrupt:
+        return interrupted
+    finally:
+        _RENDERING = False
 
 
 def job_key(recipe: Recipe, policy: Policy) -> str:
@@ -352,13 +583,17 @@ def claim_outdir(outdir: str) -> tuple[OutdirLock, list[str]]:
     except OSError as exc:
         raise BatchError(f"{outdir}: error: cannot use the output folder: "
                          f"{(exc.strerror or str(exc)).lower()}") from None
-    notes = []
-    if lock.took_over:
-        notes.append(f"took over the lock left by pid {lock.took_over.get('pid')} on host "
-                     f"{lock.took_over.get('host')} (that run is gone)")
-    removed = clean_leftovers(outdir)
-    if removed:
-        notes.append(f"removed {len(removed)} unfinished temporary file(s) left by an interrupted run")
+    try:
+        notes = []
+        if lock.took_over:
+            notes.append(f"took over the lock left by pid {lock.took_over.get('pid')} on host "
+                         f"{lock.took_over.get('host')} (that run is gone)")
+        removed = clean_leftovers(outdir)
+        if removed:
+            notes.append(f"removed {len(removed)} unfinished temporary file(s) left by an interrupted run")
+    except BaseException:        # Ctrl-C here: the caller never gets the lock, so release it now
+        lock.release()
+        raise
     return lock, notes
 
 
@@ -378,15 +613,20 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     notes: list[str] = []
     interrupted = False
     journal = Journal(prep.outdir)
+    if journal.problem:
+        notes.append(f"the resume journal cannot be read ({journal.problem}); every file is rendered")
     key = job_key(prep.recipe, prep.policy)
 
     todo = []
     for job, src in prep.work:
         entry = journal.finished(job.relpath, key, job.input, job.output) if resume else None
-        if entry is None:
+        try:
+            r = FileResult.from_record(entry.result, job.input, job.relpath, job.output, src) if entry else None
+        except Exception:      # an entry that matches but cannot be read back: render the file again
+            r = None
+        if r is None:
             todo.append((job, src))
             continue
-        r = FileResult.from_record(entry.result, job.input, job.relpath, job.output, src)
         r.extra["resumed"] = True
         results.append(r)
     if len(todo) < len(prep.work):
@@ -397,9 +637,14 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         d = prep.designs[src.rate]
         return job, src, d.chain.sos, d.assessment.peak_gain, prep.policy
 
+    journal_failed: list[str] = []
+
     def finished(job: Job, r: FileResult) -> None:
-        if r.status in ("ok", "clipped"):
-            journal.record(job.relpath, key, job.input, job.output, r.to_record())
+        if r.status in ("ok", "clipped") and not journal_failed:
+            try:
+                journal.record(job.relpath, key, job.input, job.output, r.to_record())
+            except OSError as exc:      # the file is delivered; only a later run's resume is affected
+                journal_failed.append(f"{journal.path}: {_reason(exc)}")
         results.append(r)
         if progress:
             progress(r)
@@ -407,25 +652,28 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     # Longest files first, so the pool does not end waiting on one long file.
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
     if workers == 1 or len(todo) <= 1:
-        if started:
-            started()
         try:
+            if started:
+                started()
             for job, src in todo:
                 try:
                     r = _render_job(*args(job, src))
                 except Exception as exc:  # a fault outside render_file's own handling: this file only
-                    r = FileResult(job.input, job.relpath, "failed", f"unexpected fault: {type(exc).__name__}: {exc}",
-                                   source=src)
+                    text = (str(exc).strip().splitlines() or [""])[0]
+                    r = FileResult(job.input, job.relpath, "failed", f"unexpected fault: {type(exc).__name__}: "
+                                   f"{text}; nothing was delivered", source=src)
                 finished(job, r)
         except KeyboardInterrupt:
             interrupted = True
     else:
         pool = ProcessPoolExecutor(max_workers=min(workers, len(todo)), initializer=_worker_init,
-                                   mp_context=_POOL_CONTEXT)
-        pending = {pool.submit(_render_job, *args(job, src)): job for job, src in todo}
-        if started:
-            started()          # with "fork", every worker exists once the first job is submitted
+                                   initargs=(os.getpid(),), mp_context=_POOL_CONTEXT)
+        pending: dict = {}
         try:
+            for job, src in todo:     # inside the try: a Ctrl-C while submitting still stops the workers
+                pending[pool.submit(_render_in_worker, *args(job, src))] = job
+            if started:
+                started()          # with "fork", every worker exists once the first job is submitted
             while pending:
                 done, _ = wait(pending, return_when=FIRST_COMPLETED)
                 for fut in done:
@@ -433,26 +681,51 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
                     try:
                         r = fut.result()
                     except Exception as exc:  # a worker died: the file is failed, the batch goes on
-                        r = FileResult(job.input, job.relpath, "failed", f"the worker rendering it stopped: {exc}")
+                        text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+                        r = FileResult(job.input, job.relpath, "failed", f"the worker rendering it stopped: {text}; "
+                                       "nothing was delivered")
                     finished(job, r)
         except KeyboardInterrupt:
             interrupted = True
             for fut in pending:
                 fut.cancel()
+            _stop_workers(pool)
         finally:
-            pool.shutdown(wait=True, cancel_futures=True)
+            while True:
+                try:
+                    pool.shutdown(wait=True, cancel_futures=True)
+                    break
+                except KeyboardInterrupt:      # Ctrl-C again: the workers are already stopping
+                    interrupted = True
+                    _stop_workers(pool)
             for fut, job in pending.items():
                 if fut.done() and not fut.cancelled() and fut.exception() is None:
                     finished(job, fut.result())
+    if journal_failed:
+        notes.append(f"the resume journal cannot be written ({journal_failed[0]}); the files are delivered, "
+                     "but a later run renders them again")
+    # Every writer has stopped: a temporary file left by a worker that died, or by a Ctrl-C that came while
+    # a file was being cleaned up, goes now rather than at the next run.
+    removed = clean_leftovers(prep.outdir)
+    if removed:
+        notes.append(f"removed {len(removed)} unfinished temporary file(s) of files that were not delivered")
     done_inputs = {r.input for r in results}
     for job, src in prep.work:
         if job.input not in done_inputs:
-            results.append(FileResult(job.input, job.relpath, "failed", "not rendered: the batch was interrupted",
-                                      source=src))
+            results.append(FileResult(job.input, job.relpath, "failed", INTERRUPTED, source=src))
     order = {job.input: i for i, (job, _) in enumerate(prep.work)}
     results.sort(key=lambda r: (order.get(r.input, -1), r.relpath))
     return BatchResult(prep.recipe, prep.policy, prep.outdir, prep.designs, results,
                        time.perf_counter() - t0, interrupted, notes)
+
+
+def _stop_workers(pool: ProcessPoolExecutor) -> None:
+    """Pass Ctrl-C on to every worker (each stops its file and skips the rest of its queue)."""
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        try:
+            os.kill(proc.pid, signal.SIGINT)
+        except (OSError, AttributeError, TypeError):
+            pass
 
 
 def run_batch(recipe: Recipe, inputs: list[str], outdir: str, *, workers: int = 1,

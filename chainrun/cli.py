@@ -5,6 +5,7 @@ import argparse
 import json
 import math
 import os
+import re
 import sys
 import traceback
 
@@ -36,8 +37,13 @@ def _rate(text: str) -> int:
     return int(value)
 
 
+_CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
+
+
 def _err(line: str) -> None:
-    print(line, file=sys.stderr)
+    """One diagnostic line on stderr; a newline or escape inside it (from a file name) is shown escaped."""
+    line = str(line).encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    print(_CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], line), file=sys.stderr)
 
 
 def _db(x: float, unit: str = "dB") -> str:
@@ -77,16 +83,23 @@ def check_recipe(path: str, rates: tuple[int, ...]) -> dict:
         return entry
     entry.update(name=recipe.name, digest=recipe.digest, sections=len(recipe.sections))
     accepted = True
+    from .batch import design_fault
+
     for rate in rates:
         try:
-            chain = design(recipe, rate)
+            try:
+                chain = design(recipe, rate)
+                a = assess(chain, recipe.guard, recipe)
+            except RecipeError:
+                raise
+            except Exception as fault:      # a fault, not a recipe error: still one located line
+                raise design_fault(recipe, rate, fault) from None
         except RecipeError as exc:
             entry["errors"].append(str(exc))
             entry["rates"].append(dict.fromkeys(_ASSESSMENT_KEYS) | {"rate": rate, "accepted": False,
                                                                      "error": str(exc)})
             accepted = False
             continue
-        a = assess(chain, recipe.guard, recipe)
         entry["rates"].append(a.to_dict() | {"error": next((str(p) for p in a.problems
                                                             if p.severity == "error"), None)})
         for p in a.problems:
@@ -187,9 +200,13 @@ class _Progress:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from .batch import BatchError, claim_outdir, execute, make_policy, prepare
-    from .report import console_summary, error_lines, write_reports
+    from .batch import INTERRUPTED, MAX_WORKERS, BatchError, claim_outdir, execute, make_policy, prepare
+    from .report import ReportError, console_summary, error_lines, write_reports
 
+    if args.workers is not None and args.workers > MAX_WORKERS:
+        _err(f"--workers {args.workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
+        return EXIT_USAGE
+    workers = args.workers or min(_cores(), MAX_WORKERS)
     try:
         recipe = load(args.recipe)
     except RecipeError as exc:
@@ -222,19 +239,24 @@ def cmd_run(args: argparse.Namespace) -> int:
         pictures: dict = {}
         progress = _Progress(len(prep.work), sys.stderr.isatty())
         try:
-            result = execute(prep, workers=args.workers or _cores(), progress=progress, resume=not args.redo,
+            result = execute(prep, workers=workers, progress=progress, resume=not args.redo,
                              started=lambda: pictures.update(draw_pictures(recipe, prep.designs)))
         finally:
             progress.close()
         result.notes[:0] = notes
         result.pictures = pictures
+        report_errors: list[str] = []
         try:
             paths = write_reports(result, args.report, command=["chainrun"] + args.argv)
-            report_error = None
+        except ReportError as exc:
+            paths = exc.written
+            report_errors = exc.problems
         except OSError as exc:
             paths = {}
-            report_error = (f"{exc.filename or args.report or args.outdir}: error: cannot write the report: "
-                            f"{(exc.strerror or str(exc)).lower()}; the files listed above as ok were delivered")
+            report_errors = [f"{exc.filename or args.report or args.outdir}: error: cannot write the report: "
+                             f"{(exc.strerror or str(exc)).lower()}"]
+        if report_errors:
+            report_errors[-1] += "; the files listed above as ok were delivered"
     finally:
         lock.release()
     for note in result.notes:
@@ -242,17 +264,19 @@ def cmd_run(args: argparse.Namespace) -> int:
     print(console_summary(result, paths))
     for line in error_lines(result):
         _err(line)
-    if report_error:
-        _err(report_error)
+    for line in report_errors:
+        _err(line)
     if result.interrupted:
-        _err("chainrun: interrupted; files not yet rendered are listed as failed, and no partial file was left")
-    return EXIT_OK if result.all_ok and not report_error else EXIT_NOT_OK
+        left = sum(r.status == "failed" and r.message == INTERRUPTED for r in result.results)
+        _err(f"chainrun: interrupted; {left} file(s) not rendered (listed in the report as failed); "
+             "no partial file was left, and the next run resumes")
+    return EXIT_OK if result.all_ok and not report_errors else EXIT_NOT_OK
 
 
 # --------------------------------------------------------------------------- scan
 
 def cmd_scan(args: argparse.Namespace) -> int:
-    from .batch import BatchError, discover
+    from .batch import BatchError, cut_short, discover
     from .render import AudioError, FileResult, probe, scan_file
     from .report import file_dict, shown
 
@@ -264,9 +288,19 @@ def cmd_scan(args: argparse.Namespace) -> int:
     results = []
     for job in plan.jobs:
         try:
+            with open(job.input, "rb"):
+                pass
             src = probe(job.input)
+        except OSError as exc:
+            results.append(FileResult(job.input, job.relpath, "failed",
+                                      f"cannot read: {(exc.strerror or str(exc)).lower()}"))
+            continue
         except AudioError as exc:
             results.append(FileResult(job.input, job.relpath, "failed", str(exc)))
+            continue
+        short = cut_short(src)
+        if short:
+            results.append(FileResult(job.input, job.relpath, "failed", short, source=src))
             continue
         results.append(scan_file(src, true_peak=not args.no_true_peak, relpath=job.relpath))
     results.extend(plan.skipped)
@@ -280,7 +314,7 @@ def cmd_scan(args: argparse.Namespace) -> int:
             m = r.input_meters
             if m is None:
                 print(f"{r.status:<8} {'-':>11} {'-':>11} {'-':>11} {'-':>8}  {shown(r.relpath)}"
-                      + (f"  ({r.message})" if r.message else ""))
+                      + (f"  ({shown(r.message)})" if r.message else ""))
                 continue
             worst = lambda attr: max((getattr(c, attr) for c in m.channels if getattr(c, attr) is not None),
                                      default=None)
@@ -289,7 +323,7 @@ def cmd_scan(args: argparse.Namespace) -> int:
                   f"{_db(worst('rms_dbfs'), 'dBFS'):>11} {clipped:>8}  {shown(r.relpath)}")
     bad = [r for r in results if r.status in ("failed", "clipped")]
     for r in bad:
-        _err(f"{shown(r.input)}: {'error' if r.status == 'failed' else 'clipped'}: {r.message}")
+        _err(f"{shown(r.input)}: {'error' if r.status == 'failed' else 'clipped'}: {shown(r.message)}")
     return EXIT_NOT_OK if bad else EXIT_OK
 
 
@@ -301,15 +335,22 @@ PLOT_SUFFIXES = (".png", ".svg")
 def cmd_plot(args: argparse.Namespace) -> int:
     if os.path.splitext(args.output)[1].lower() not in PLOT_SUFFIXES:
         raise UsageError(f"{args.output}: error: the picture must be a .png or .svg file")
+    from .batch import design_fault
+
     try:
         recipe = load(args.recipe)
-        chain = design(recipe, args.rate)
+        try:
+            chain = design(recipe, args.rate)
+            assessment = assess(chain, recipe.guard, recipe)
+        except RecipeError:
+            raise
+        except Exception as fault:
+            raise design_fault(recipe, args.rate, fault) from None
     except RecipeError as exc:
         _err(str(exc))
         return EXIT_USAGE
     from .plot import save_response
 
-    assessment = assess(chain, recipe.guard, recipe)
     for p in assessment.problems:
         _err(str(p))
     try:
@@ -322,8 +363,16 @@ def cmd_plot(args: argparse.Namespace) -> int:
 
 # --------------------------------------------------------------------------- main
 
+class _Parser(argparse.ArgumentParser):
+    """argparse, with a usage error as one line (argparse would print the whole usage block first)."""
+
+    def error(self, message: str):
+        _err(f"{self.prog}: error: {message}; see '{self.prog} --help'")
+        self.exit(EXIT_USAGE)
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="chainrun",
         description="Guarded IIR equaliser chains for folders of audio files.",
         epilog="Exit status: 0 all fine, 1 something rejected or not ok, 2 usage error.")
@@ -391,9 +440,9 @@ def main(argv: list[str] | None = None) -> int:
     except RecipeError as exc:
         _err(str(exc))
         return EXIT_USAGE
-    except KeyboardInterrupt:
-        _err("chainrun: interrupted")
-        return 130
+    except KeyboardInterrupt:      # before any file was rendered, or while the reports were written
+        _err("chainrun: interrupted; no partial file was left")
+        return EXIT_NOT_OK
     except BrokenPipeError:
         return EXIT_NOT_OK
     except Exception as exc:  # a bug, not bad input: say so in one line

@@ -12,6 +12,7 @@
 """
 from __future__ import annotations
 
+import errno
 import fcntl
 import hashlib
 import json
@@ -42,24 +43,40 @@ class OutdirLock:
         self.took_over: dict | None = None
 
     def acquire(self) -> "OutdirLock":
-        fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
-        try:
-            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
-            owner = _read_owner(fd)
+        while True:
+            # O_NOFOLLOW: a symbolic link planted at the lock's name is refused, never followed (the lock
+            # file is truncated below, and that must never reach a file elsewhere).
+            fd = _open_own_file(self.path, os.O_RDWR | os.O_CREAT)
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except BlockingIOError:
+                owner = _read_owner(fd)
+                os.close(fd)
+                raise LockedError(_locked_message(self.path, owner)) from None
+            # The owner unlinks the lock file when it releases it: a lock won on a file that is no longer
+            # at this path (or was replaced) protects nothing, so try again on the file that is there now.
+            try:
+                st, now = os.fstat(fd), os.stat(self.path, follow_symlinks=False)
+                same = (st.st_dev, st.st_ino) == (now.st_dev, now.st_ino)
+            except FileNotFoundError:
+                same = False
+            if same:
+                break
+            fcntl.flock(fd, fcntl.LOCK_UN)
             os.close(fd)
-            who = f"pid {owner.get('pid', '?')} on host {owner.get('host', '?')}" if owner else "another process"
-            since = f", since {owner['started']}" if owner and "started" in owner else ""
-            raise LockedError(f"{self.path}: error: another chainrun run ({who}{since}) is writing into this "
-                              "output folder; wait for it to finish or choose another folder") from None
-        previous = _read_owner(fd)
-        if previous and previous.get("pid") != os.getpid():
-            self.took_over = previous       # its process is gone: the kernel released its lock
-        me = {"pid": os.getpid(), "host": socket.gethostname(), "started": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
-        os.ftruncate(fd, 0)
-        os.pwrite(fd, (json.dumps(me) + "\n").encode(), 0)
-        os.fsync(fd)
         self.fd = fd
+        try:
+            previous = _read_owner(fd)
+            if previous and previous.get("pid") != os.getpid():
+                self.took_over = previous       # its process is gone: the kernel released its lock
+            me = {"pid": os.getpid(), "host": socket.gethostname(),
+                  "started": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
+            os.ftruncate(fd, 0)
+            os.pwrite(fd, (json.dumps(me) + "\n").encode(), 0)
+            os.fsync(fd)
+        except BaseException:        # a full disk, Ctrl-C: do not leave a lock file behind
+            self.release()
+            raise
         return self
 
     def release(self) -> None:
@@ -80,6 +97,37 @@ class OutdirLock:
 
     def __exit__(self, *exc) -> None:
         self.release()
+
+
+def _open_own_file(path: str, flags: int) -> int:
+    """Open one of chainrun's own files in OUTDIR; a symbolic link at its name is refused."""
+    try:
+        return os.open(path, flags | os.O_NOFOLLOW | os.O_CLOEXEC, 0o644)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP:
+            raise OSError(errno.ELOOP, f"{os.path.basename(path)} is a symbolic link; chainrun does not follow "
+                                       "links for its own files (remove it)", path) from None
+        raise
+
+
+def _alive(pid) -> bool:
+    try:
+        os.kill(int(pid), 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, ValueError, TypeError, OverflowError):
+        return True
+    return True
+
+
+def _locked_message(path: str, owner: dict | None) -> str:
+    who = f"pid {owner.get('pid', '?')} on host {owner.get('host', '?')}" if owner else "another process"
+    since = f", since {owner['started']}" if owner and "started" in owner else ""
+    if owner and owner.get("host") == socket.gethostname() and not _alive(owner.get("pid")):
+        return (f"{path}: error: the chainrun run that took this output folder ({who}{since}) is gone, but "
+                "processes it started still hold it; wait for them to end, or end them, then run again")
+    return (f"{path}: error: another chainrun run ({who}{since}) is writing into this output folder; "
+            "wait for it to finish or choose another folder")
 
 
 def _read_owner(fd: int) -> dict | None:
@@ -132,17 +180,24 @@ class Journal:
     def __init__(self, outdir: str):
         self.path = os.path.join(outdir, JOURNAL_NAME)
         self.entries: dict[str, Entry] = {}
+        self.problem: str | None = None      # why the journal cannot be read, if it cannot
         try:
-            with open(self.path, encoding="utf-8", errors="surrogateescape") as fh:
+            with os.fdopen(_open_own_file(self.path, os.O_RDONLY), encoding="utf-8",
+                           errors="surrogateescape") as fh:
                 for line in fh:
                     try:
                         d = json.loads(line)
+                        if not all(isinstance(d.get(k), dict) for k in ("input", "output")):
+                            continue
+                        result = d.get("result", {})
                         self.entries[d["relpath"]] = Entry(d["relpath"], d["key"], d["input"], d["output"],
-                                                           d.get("result", {}))
-                    except (ValueError, KeyError, TypeError):
+                                                           result if isinstance(result, dict) else {})
+                    except (ValueError, KeyError, TypeError, AttributeError):
                         continue      # a line cut short by a kill, or foreign text: ignored
         except FileNotFoundError:
             pass
+        except OSError as exc:      # a folder or a link at its name, no permission: every file is rendered
+            self.problem = f"{self.path}: {(exc.strerror or str(exc)).lower()}"
 
     def finished(self, relpath: str, key: str, input_path: str, output_path: str) -> Entry | None:
         """The entry of a delivered file if input, output and job key all still match."""
@@ -161,8 +216,12 @@ class Journal:
         entry = {"relpath": relpath, "key": key, "input": fingerprint(input_path),
                  "output": fingerprint(output_path), "result": result}
         line = json.dumps(entry, ensure_ascii=True) + "\n"
-        fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+        fd = _open_own_file(self.path, os.O_RDWR | os.O_APPEND | os.O_CREAT)
         try:
+            # A line cut short (a torn write at power loss) would swallow the next entry: start afresh.
+            size = os.fstat(fd).st_size
+            if size and os.pread(fd, 1, size - 1) != b"\n":
+                line = "\n" + line
             os.write(fd, line.encode())
             os.fsync(fd)
         finally:

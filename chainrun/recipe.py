@@ -17,6 +17,7 @@ import json
 import math
 import os
 import re
+import stat
 from dataclasses import dataclass, field, replace
 from types import MappingProxyType
 from typing import Any, Mapping
@@ -35,6 +36,8 @@ MAX_ORDER = 8                     # Butterworth order and raw iir order
 MAX_ABS_GAIN_DB = 120.0           # |gain_db| of a single section
 MAX_BW_OCTAVES = 10.0             # bandwidth in octaves
 MAX_NESTING = 32                  # YAML collections inside collections (aliases followed)
+MAX_IIR_COEFF = 1e9               # |b[i] / a[0]| and |a[i] / a[0]| of a raw iir section
+MIN_FREQ_HZ = 1e-3                # lowest section frequency; below it the designs underflow to nonsense
 
 _FLOAT_RE = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
 _CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
@@ -247,6 +250,9 @@ def _compose(text: str, path: str) -> _Node | None:
     return _convert(root, path, constructor, budget)
 
 
+_PLAIN_COLLECTIONS = ("tag:yaml.org,2002:map", "tag:yaml.org,2002:seq")
+
+
 def _convert(node, path: str, constructor, budget: list, depth: int = 0) -> _Node:
     budget[0] -= 1
     where = _loc(path, node.start_mark)
@@ -256,6 +262,12 @@ def _convert(node, path: str, constructor, budget: list, depth: int = 0) -> _Nod
     if depth > MAX_NESTING:   # only reachable through aliases, e.g. one that contains itself: &a [*a]
         raise RecipeError.at(where, f"aliases nest lists and mappings more than {MAX_NESTING} deep "
                                     "(an alias may refer to itself); a recipe is a small, flat file")
+    if isinstance(node, (yaml.MappingNode, yaml.SequenceNode)) and node.tag not in _PLAIN_COLLECTIONS:
+        # A tag such as !!python/object on a list or mapping would otherwise be dropped silently
+        # (nothing is ever constructed from it); say that it is not allowed.
+        tag = node.tag.replace("tag:yaml.org,2002:", "!!")
+        raise RecipeError.at(where, f"could not determine a constructor for the tag '{tag}': tags are not "
+                                    "allowed; write a plain list or mapping")
     if isinstance(node, yaml.MappingNode):
         out: dict[str, tuple[Location, _Node]] = {}
         for knode, vnode in node.value:
@@ -367,7 +379,7 @@ def _check_keys(entries: Mapping[str, tuple[Location, _Node]], allowed: tuple[st
 
 # Parameter readers, one line each: key -> function(node, name) -> value.
 _PARAM_READERS = {
-    "freq": lambda n, name: _number(n, name, lo=0.0, lo_open=True, unit="Hz"),
+    "freq": lambda n, name: _frequency(n, name),
     "q": lambda n, name: _number(n, name, lo=0.0, lo_open=True, hi=1000.0),
     "bw": lambda n, name: _number(n, name, lo=0.0, lo_open=True, hi=MAX_BW_OCTAVES, unit="octaves"),
     "gain_db": lambda n, name: _number(n, name, lo=-MAX_ABS_GAIN_DB, hi=MAX_ABS_GAIN_DB, unit="dB"),
@@ -396,6 +408,14 @@ _GUARD_KEYS = ("max_gain_db", "pole_margin", "max_decay_s", "ceiling_dbfs", "tru
 ON_OVER = ("reject", "clip", "scale")
 OUTPUT_SUBTYPES = ("same", "PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE")
 DITHER = ("auto", "tpdf", "none")
+
+
+def _frequency(node: _Node, name: str) -> float:
+    v = _number(node, name, lo=0.0, lo_open=True, unit="Hz")
+    if v < MIN_FREQ_HZ:
+        raise RecipeError.at(node.where, f"{name} {_fmt(v)} Hz is too low to design; "
+                                         f"allowed: {_fmt(MIN_FREQ_HZ)} Hz and above")
+    return v
 
 
 def _coefficients(node: _Node, name: str) -> tuple[float, ...]:
@@ -458,7 +478,9 @@ def _rule_shelf(params, entries, name, where) -> None:
         params.setdefault("slope", 1.0)
         # W3C Audio EQ Cookbook: alpha = sin(w0)/2 * sqrt((A + 1/A)(1/S - 1) + 2) must be real.
         a = 10.0 ** (params["gain_db"] / 40.0)
-        s_max = 1.0 / (1.0 - 2.0 / (a + 1.0 / a)) if params["gain_db"] != 0 else math.inf
+        # For a gain so small that A + 1/A rounds to 2, any slope is allowed (and 1/0 would be raised).
+        excess = 1.0 - 2.0 / (a + 1.0 / a)
+        s_max = 1.0 / excess if excess > 0 else math.inf
         if params["slope"] > s_max:
             raise RecipeError.at(where.get("slope", where["type"]),
                                  f"{name}.slope {_fmt(params['slope'])} is too steep for "
@@ -479,6 +501,16 @@ def _rule_iir(params, entries, name, where) -> None:
         raise RecipeError.at(where["a"], f"{name}.a[0] is 0; the leading denominator coefficient must be non-zero")
     if all(x == 0.0 for x in b):
         raise RecipeError.at(where["b"], f"{name}.b is all zeros; the section would output silence")
+    # Beyond these ratios the design and the guard over- or underflow (a stable order-8 denominator has
+    # |a[i] / a[0]| <= 70, and a numerator within the 120 dB gain limit stays far below 1e9).
+    for key, coeffs in (("a", a), ("b", b)):
+        big = max(abs(x / a[0]) if math.isfinite(x / a[0]) else math.inf for x in coeffs)
+        if big > MAX_IIR_COEFF:
+            raise RecipeError.at(where[key], f"{name}.{key} has a coefficient {_fmt(big)} times a[0]; "
+                                             f"allowed: up to {MAX_IIR_COEFF:g} times a[0] (scale b and a alike)")
+    if max(abs(x / a[0]) for x in b) <= 1e-14:
+        raise RecipeError.at(where["b"], f"{name}.b is effectively zero (every b[i] / a[0] is 1e-14 or less); "
+                                         "the section would output silence")
     order = max(len(b), len(a)) - 1
     if order > MAX_ORDER:
         raise RecipeError.at(where["a"], f"{name} has order {order}; allowed: up to {MAX_ORDER}")
@@ -539,6 +571,8 @@ def _read_text(path: str, where: Location | None) -> str:
     try:
         if os.path.isdir(path):
             raise fail(f"'{path}' is a folder; a recipe is a .yaml file")
+        if not stat.S_ISREG(os.stat(path).st_mode):     # a pipe or a device: reading it could wait for ever
+            raise fail(f"'{path}' is not a regular file (a pipe, socket or device); a recipe is a .yaml file")
         size = os.path.getsize(path)
         if size > MAX_FILE_BYTES:
             raise fail(f"recipe is {size} bytes; allowed: up to {MAX_FILE_BYTES} bytes")

@@ -12,6 +12,8 @@ import json
 import math
 import os
 import platform
+import re
+import tempfile
 import time
 from typing import Any
 
@@ -45,11 +47,16 @@ def _worst(reading, attr: str) -> float | None:
     return max(vals) if vals else None
 
 
+_CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
+
+
 def shown(path: str | None) -> str | None:
-    """A path as text; bytes that are not UTF-8 shown as \\xNN."""
+    """A path (or any text) on one line: bytes that are not UTF-8 shown as \\xNN, control characters
+    (a newline in a file name, a terminal escape) as \\n, \\x1b and so on."""
     if path is None:
         return None
-    return path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    text = path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    return _CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], text)
 
 
 def file_dict(r: FileResult) -> dict:
@@ -57,7 +64,7 @@ def file_dict(r: FileResult) -> dict:
     s = r.source
     d = {
         "input": shown(r.input), "relpath": shown(r.relpath), "output": shown(r.output),
-        "status": r.status, "message": r.message,
+        "status": r.status, "message": shown(r.message),
         "rate_hz": s.rate if s else None, "channels": s.channels if s else None,
         "frames": s.frames if s else None, "duration_s": s.duration_s if s else None,
         "format": s.format if s else None, "subtype": s.subtype if s else None,
@@ -133,14 +140,13 @@ def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
 def _atomic_write(path: str, text: str) -> None:
     tmp = temp_path_for(path)
     try:
-        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+        with open(tmp, "x", encoding="utf-8", newline="") as fh:
             fh.write(text)
             fh.flush()
             os.fsync(fh.fileno())
         os.replace(tmp, path)
     finally:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
+        _remove_quietly(tmp)
 
 
 def report_paths(b: BatchResult, json_path: str | None = None) -> dict[str, str]:
@@ -148,22 +154,84 @@ def report_paths(b: BatchResult, json_path: str | None = None) -> dict[str, str]
     return {"json": base + ".json", "csv": base + ".csv", "html": base + ".html"}
 
 
+class ReportError(OSError):
+    """Some reports could not be written; ``written`` has the paths of those that were, ``problems`` one
+    line for each that was not."""
+
+    def __init__(self, written: dict[str, str], problems: list[str]):
+        super().__init__("; ".join(problems))
+        self.written, self.problems = written, problems
+
+
+def _why_not(exc: OSError, path: str) -> str:
+    return f"{shown(path)}: error: cannot write the report: {(exc.strerror or str(exc)).lower()}"
+
+
 def write_reports(b: BatchResult, json_path: str | None = None, command: list[str] | None = None) -> dict[str, str]:
-    """Write the JSON, CSV and HTML reports (each atomically); returns their paths."""
+    """Write the JSON, CSV and HTML reports (each atomically); returns their paths.
+
+    Each report is written on its own, the JSON (the complete record) first, so a
+    full disk loses as little as possible. If the JSON report cannot be written
+    where it belongs, it is written to the system's temporary folder instead.
+
+    Raises
+    ------
+    ReportError
+        If any report could not be written where it belongs (after writing all
+        that could be).
+    """
     paths = report_paths(b, json_path)
-    os.makedirs(os.path.dirname(paths["json"]) or ".", exist_ok=True)
+    written: dict[str, str] = {}
+    problems: list[str] = []
+    try:
+        os.makedirs(os.path.dirname(paths["json"]) or ".", exist_ok=True)
+    except OSError:
+        pass                    # each write below says why it fails
     data = batch_dict(b, command)
-    _atomic_write(paths["json"], json.dumps(data, indent=2, allow_nan=False) + "\n")
+    text = json.dumps(data, indent=2, allow_nan=False) + "\n"
+    try:
+        _atomic_write(paths["json"], text)
+        written["json"] = paths["json"]
+    except OSError as exc:
+        line = _why_not(exc, paths["json"])
+        fallback = None
+        try:
+            fd, fallback = tempfile.mkstemp(prefix="chainrun-report-", suffix=".json")
+            with os.fdopen(fd, "w", encoding="utf-8") as fh:
+                fh.write(text)
+            written["json"] = fallback
+            line += f"; it was written to {fallback} instead"
+        except OSError:
+            if fallback:
+                _remove_quietly(fallback)
+        problems.append(line)
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=CSV_FIELDS, lineterminator="\n")
     w.writeheader()
     for r in worst_first(b.results):
         w.writerow(_csv_row(r))
-    _atomic_write(paths["csv"], buf.getvalue())
+    try:
+        _atomic_write(paths["csv"], buf.getvalue())
+        written["csv"] = paths["csv"]
+    except OSError as exc:
+        problems.append(_why_not(exc, paths["csv"]))
     from .htmlreport import render_html      # matplotlib is imported only when a report is written
 
-    _atomic_write(paths["html"], render_html(data, b))
+    try:
+        _atomic_write(paths["html"], render_html(data, b))
+        written["html"] = paths["html"]
+    except OSError as exc:
+        problems.append(_why_not(exc, paths["html"]))
+    if problems:
+        raise ReportError(written, problems)
     return paths
+
+
+def _remove_quietly(path: str) -> None:
+    try:
+        os.unlink(path)
+    except OSError:
+        pass
 
 
 def worst_first(results: list[FileResult]) -> list[FileResult]:
@@ -190,7 +258,7 @@ def console_summary(b: BatchResult, paths: dict[str, str] | None = None, limit: 
         lines.append(f"{r.status:<9} {_fmt_db(_worst(r.output_meters, 'peak_dbfs'), 'dBFS'):>11} "
                      f"{_fmt_db(_worst(r.output_meters, 'true_peak_dbtp'), 'dBTP'):>13} "
                      f"{_fmt_db(_worst(r.input_meters, 'peak_dbfs'), 'dBFS'):>11}  {shown(r.relpath)}"
-                     + (f"  ({r.message})" if r.message else ""))
+                     + (f"  ({shown(r.message)})" if r.message else ""))
     if len(rows) > limit:
         lines.append(f"... and {len(rows) - limit} more in the report")
     counts = ", ".join(f"{b.count(s)} {s}" for s in STATUS_ORDER if b.count(s))
@@ -206,6 +274,18 @@ _ERROR_WORD = {"failed": "error", "rejected": "rejected", "clipped": "clipped"}
 
 
 def error_lines(b: BatchResult) -> list[str]:
-    """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr."""
-    return [f"{shown(r.input)}: {_ERROR_WORD[r.status]}: {r.message}"
-            for r in worst_first(b.results) if r.status in _ERROR_WORD]
+    """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr.
+
+    Also a note for each input skipped for a reason worth knowing (named twice, a
+    link loop); not for files that are plainly not audio. After Ctrl-C, the files
+    not rendered because of it are left to the report and the closing line.
+    """
+    from .batch import INTERRUPTED, QUIET_SKIPS
+
+    lines = []
+    for r in worst_first(b.results):
+        if r.status in _ERROR_WORD and not (b.interrupted and r.message == INTERRUPTED):
+            lines.append(f"{shown(r.input)}: {_ERROR_WORD[r.status]}: {shown(r.message)}")
+        elif r.status == "skipped" and r.message not in QUIET_SKIPS:
+            lines.append(f"{shown(r.input)}: note: skipped: {shown(r.message)}")
+    return lines

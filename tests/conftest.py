@@ -143,3 +143,137 @@ def run_cli(capsys):
         return status, out, err
 
     return _run
+
+
+# --------------------------------------------------------------------------- files, permissions, mounts
+
+
+def _tree_hashes(folder) -> dict:
+    import hashlib
+    import os
+
+    out = {}
+    for root, dirs, files in os.walk(folder):
+        for name in files:
+            path = os.path.join(root, name)
+            if os.path.islink(path):
+                out[os.path.relpath(path, folder)] = "-> " + os.readlink(path)
+                continue
+            try:
+                with open(path, "rb") as fh:
+                    out[os.path.relpath(path, folder)] = hashlib.sha256(fh.read()).hexdigest()
+            except OSError as exc:          # a pipe, or a file the test made unreadable
+                out[os.path.relpath(path, folder)] = f"unreadable: {exc.errno}"
+    return out
+
+
+@pytest.fixture
+def tree_hashes():
+    """``tree_hashes(folder)`` -> {relative path: sha256} of every file under ``folder``.
+
+    Links are listed by their target, not followed; files that cannot be read by their error number.
+    Compare before and after a run to show that inputs are never modified.
+    """
+    return _tree_hashes
+
+
+class _Caps:
+    """The calling thread's capabilities (Linux capget/capset), to make root obey file permission bits."""
+
+    DAC = (1 << 1) | (1 << 2)           # CAP_DAC_OVERRIDE, CAP_DAC_READ_SEARCH
+
+    def __init__(self):
+        import ctypes
+
+        class Header(ctypes.Structure):
+            _fields_ = [("version", ctypes.c_uint32), ("pid", ctypes.c_int)]
+
+        class Data(ctypes.Structure):
+            _fields_ = [("effective", ctypes.c_uint32), ("permitted", ctypes.c_uint32),
+                        ("inheritable", ctypes.c_uint32)]
+
+        self.ctypes, self.libc = ctypes, ctypes.CDLL(None, use_errno=True)
+        self.header, self.data = Header(0x20080522, 0), (Data * 2)()       # _LINUX_CAPABILITY_VERSION_3
+        if self.libc.capget(ctypes.byref(self.header), self.data) != 0:
+            raise OSError(ctypes.get_errno(), "capget failed")
+        self.saved = self.data[0].effective
+
+    def set_effective(self, value: int) -> None:
+        self.data[0].effective = value
+        if self.libc.capset(self.ctypes.byref(self.header), self.data) != 0:
+            raise OSError(self.ctypes.get_errno(), "capset failed")
+
+
+@pytest.fixture
+def permissions_apply():
+    """A context manager under which permission bits stop this process, even when it runs as root.
+
+    As root, ``chmod 000`` stops nothing: CAP_DAC_OVERRIDE and CAP_DAC_READ_SEARCH bypass the bits. Inside
+    ``with permissions_apply():`` those two capabilities are dropped from the effective set of the calling
+    thread (threads it starts inherit that), and restored on leaving. Not root: nothing to do. Skips the test
+    if root's capabilities cannot be changed here. Use it around in-process runs (``--workers 1``).
+    """
+    import contextlib
+    import os
+    import sys
+
+    @contextlib.contextmanager
+    def _apply():
+        if os.geteuid() != 0:
+            yield
+            return
+        if not sys.platform.startswith("linux"):
+            pytest.skip("running as root on a system without Linux capabilities: permission bits do not apply")
+        try:
+            caps = _Caps()
+            caps.set_effective(caps.saved & ~_Caps.DAC)
+        except (OSError, AttributeError) as exc:
+            pytest.skip(f"running as root and cannot drop CAP_DAC_OVERRIDE here ({exc}); "
+                        "permission bits do not apply to root")
+        try:
+            yield
+        finally:
+            caps.set_effective(caps.saved)
+
+    return _apply
+
+
+@pytest.fixture
+def mounts():
+    """Small mounts for fault tests, unmounted afterwards: ``mounts.tmpfs(path, size)`` and
+    ``mounts.read_only(path)`` (a read-only bind mount of ``path`` onto itself).
+
+    Both need root and a kernel that allows them (they do in a privileged container); otherwise
+    they return False, and the test decides whether to skip or fall back to a simulation.
+    """
+    import os
+    import subprocess
+
+    made: list[str] = []
+
+    class _Mounts:
+        @staticmethod
+        def _run(*argv) -> bool:
+            try:
+                return subprocess.run(list(argv), capture_output=True, timeout=30).returncode == 0
+            except (OSError, subprocess.SubprocessError):
+                return False
+
+        def tmpfs(self, path, size: str) -> bool:
+            os.makedirs(path, exist_ok=True)
+            if os.geteuid() != 0 or not self._run("mount", "-t", "tmpfs", "-o", f"size={size},mode=0755",
+                                                  "tmpfs", str(path)):
+                return False
+            made.append(str(path))
+            return True
+
+        def read_only(self, path) -> bool:
+            if os.geteuid() != 0 or not self._run("mount", "--bind", str(path), str(path)):
+                return False
+            made.append(str(path))
+            return self._run("mount", "-o", "remount,bind,ro", str(path), str(path))
+
+    yield _Mounts()
+    for path in reversed(made):
+        if not _Mounts._run("umount", path):
+            _Mounts._run("umount", "-l", path)

@@ -1,0 +1,273 @@
+"""Interruptions (issue #4): a real batch, killed at many points, loses nothing and resumes.
+
+A real ``python -m chainrun run`` process renders a small season (four recordings, a tiny block size so
+it takes a few seconds) and is stopped with SIGKILL or SIGINT at a kill point: a moment after it starts,
+when OUTDIR's lock appears, when the k-th temporary output appears (plus a delay), when the k-th final
+output appears, when the JSON report appears. Then:
+
+* every file under a final output name is byte-identical to the output of an uninterrupted run, or
+  absent — never incomplete; a report present under its final name is complete JSON;
+* after SIGKILL with ``--workers 2``, no worker outlives the batch (they would go on writing unrecorded
+  outputs and hold OUTDIR's lock);
+* SIGINT exits cleanly: status 1, one line saying it was interrupted, no traceback, no temporary file
+  left, the lock released — with ``--workers 1`` and ``--workers 2``;
+* the next run (resuming is the default; ``--redo`` would force re-rendering) removes the leftovers
+  (``.*.chainrun-part-*``), takes over a stale lock with a note, keeps the outputs the journal shows as
+  complete for the same recipe digest and input fingerprint (their bytes and modification times do not
+  change), renders the rest, and ends with every output bit-identical to the uninterrupted run.
+
+The figures (kill points tried, where the signal landed, outputs kept, files lost) are collected and
+written to ``CHAINRUN_FIGURES/interruptions.json`` when that variable names a folder.
+"""
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from chainrun.journal import JOURNAL_NAME, LOCK_NAME
+from chainrun.render import TEMP_TAG
+
+pytestmark = pytest.mark.slow
+
+RECIPE = """\
+format: 1
+name: Saltings Hour boathouse chain
+chain:
+  - {type: highpass, freq: 70, order: 4, label: slipway rumble}
+  - {type: notch, freq: 50, q: 20, label: winch hum}
+  - {type: peak, freq: 3000, gain_db: 2, q: 1}
+  - {type: gain, gain_db: -2}
+"""
+FILES = {   # relpath: (frames, channels, rate, subtype)
+    "boathouse/host.wav": (40_000, 2, 48000, "PCM_24"),
+    "boathouse/guest.wav": (36_000, 2, 48000, "PCM_24"),
+    "boathouse/room_tone.wav": (30_000, 2, 48000, "PCM_16"),
+    "marsh/dawn.wav": (34_000, 1, 44100, "FLOAT"),
+}
+SLOW_BLOCK = "32"
+REPORTS = ("chainrun-report.json", "chainrun-report.csv", "chainrun-report.html")
+FIGURES: list[dict] = []
+
+
+def chainrun(*argv, **kw) -> subprocess.Popen:
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONWARNINGS"}
+    return subprocess.Popen([sys.executable, "-m", "chainrun", *map(str, argv)], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, env=env, **kw)
+
+
+def finals(outdir: Path) -> dict[str, bytes]:
+    """Files under their final output names (not chainrun's dot files, not temporaries, not reports)."""
+    out = {}
+    for root, _, files in os.walk(outdir):
+        for f in files:
+            if f.startswith(".") or f in REPORTS:
+                continue
+            p = os.path.join(root, f)
+            out[os.path.relpath(p, outdir)] = Path(p).read_bytes()
+    return out
+
+
+def temporaries(outdir: Path) -> list[str]:
+    return sorted(os.path.join(r, f) for r, _, fs in os.walk(outdir) for f in fs if TEMP_TAG in f)
+
+
+def processes_mentioning(text: str) -> list[int]:
+    found = []
+    for pid in os.listdir("/proc"):
+        if not pid.isdigit():
+            continue
+        try:
+            with open(f"/proc/{pid}/cmdline", "rb") as fh:
+                cmd = fh.read().replace(b"\0", b" ").decode(errors="replace")
+            with open(f"/proc/{pid}/stat") as fh:
+                state = fh.read().rsplit(")", 1)[1].split()[0]
+        except OSError:
+            continue
+        if text in cmd and state != "Z":
+            found.append(int(pid))
+    return found
+
+
+@pytest.fixture(scope="module")
+def season(tmp_path_factory):
+    """The inputs, the recipe and the outputs of one uninterrupted run (the reference)."""
+    d = tmp_path_factory.mktemp("season")
+    rng = np.random.default_rng(2024)
+    for rel, (frames, ch, rate, subtype) in FILES.items():
+        (d / "in" / rel).parent.mkdir(parents=True, exist_ok=True)
+        sf.write(str(d / "in" / rel), rng.uniform(-0.4, 0.4, (frames, ch)), rate, subtype=subtype)
+    (d / "recipe.yaml").write_text(RECIPE)
+    proc = chainrun("run", d / "recipe.yaml", d / "in", "-o", d / "reference", "--workers", "1")
+    out, err = proc.communicate(timeout=300)
+    assert proc.returncode == 0, err
+    ref = finals(d / "reference")
+    assert sorted(ref) == sorted(FILES)
+    hashes = {rel: (d / "in" / rel).read_bytes() for rel in FILES}
+    return d, ref, hashes
+
+
+def wait_for(proc: subprocess.Popen, outdir: Path, event: str, k: int, timeout: float = 60.0) -> bool:
+    """Poll until the kill point's event; False if the run ended first."""
+    seen_temps: set[str] = set()
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < timeout:
+        if proc.poll() is not None:
+            return False
+        if event == "spawn":
+            return True
+        if outdir.exists():
+            if event == "lock" and (outdir / LOCK_NAME).exists():
+                return True
+            if event == "temp":
+                seen_temps.update(os.path.basename(t).split(TEMP_TAG)[0] for t in temporaries(outdir))
+                if len(seen_temps) >= k:
+                    return True
+            if event == "final" and len(finals(outdir)) >= k:
+                return True
+            if event == "report" and (outdir / "chainrun-report.json").exists():
+                return True
+        time.sleep(0.001)
+    raise AssertionError(f"kill point {event} {k} not reached in {timeout} s")
+
+
+# (event, k, delay after it in s): spread over the whole life of a run
+POINTS = [("spawn", 0, 0.3), ("lock", 0, 0.0), ("temp", 1, 0.0), ("temp", 1, 0.25), ("final", 1, 0.0),
+          ("temp", 2, 0.1), ("final", 2, 0.02), ("temp", 3, 0.3), ("final", 3, 0.0), ("final", 4, 0.0),
+          ("report", 0, 0.0)]
+KILLS = [("SIGKILL", p, 1 if i % 2 == 0 else 2) for i, p in enumerate(POINTS)]
+# SIGINT from the lock on: a Ctrl-C while Python is still importing numpy (before chainrun's code runs)
+# ends with Python's own traceback; see RELIABILITY.md
+INTS = [("SIGINT", p, 1 if i % 2 == 0 else 2) for i, p in enumerate(POINTS[1:])]
+
+
+def _id(case) -> str:
+    sig, (event, k, delay), w = case
+    return f"{sig}-w{w}-{event}{k or ''}+{delay}s"
+
+
+@pytest.mark.parametrize("case", KILLS + INTS, ids=[_id(c) for c in KILLS + INTS])
+def test_killed_batch_loses_nothing_and_the_next_run_resumes(case, season, tmp_path):
+    d, ref, input_bytes = season
+    sig_name, (event, k, delay), workers = case
+    sig = getattr(signal, sig_name)
+    out = tmp_path / "out"
+    proc = chainrun("run", d / "recipe.yaml", d / "in", "-o", out, "--workers", workers, "--block-size", SLOW_BLOCK)
+    landed = wait_for(proc, out, event, k)
+    if landed and delay:
+        time.sleep(delay)
+    landed = landed and proc.poll() is None
+    if landed:
+        proc.send_signal(sig)
+    stdout, stderr = proc.communicate(timeout=120)
+    if landed and proc.returncode == 0 and "interrupted" not in stderr:
+        landed = False              # it ended between the last look and the signal: it had finished
+    figure = {"signal": sig_name, "workers": workers, "point": f"{event} {k} +{delay}s", "landed": landed,
+              "exit": proc.returncode}
+
+    # 1. nothing under a final name is incomplete
+    before = finals(out) if out.exists() else {}
+    for rel, data in before.items():
+        assert data == ref[rel], f"{rel} is under its final name but differs from the uninterrupted output"
+    for name in REPORTS[:1]:
+        if (out / name).exists():
+            json.loads((out / name).read_text(encoding="utf-8"))      # a report is complete or absent
+    left = temporaries(out) if out.exists() else []
+    figure.update(complete_before=len(before), temporaries_left=len(left))
+
+    if sig == signal.SIGINT and landed:
+        # 2. Ctrl-C: one line, exit 1, no traceback, nothing left behind, the lock released
+        assert proc.returncode == 1, stderr
+        assert "Traceback" not in stderr and "Error" not in stderr, stderr
+        said = [ln for ln in stderr.splitlines() if "interrupted" in ln]
+        assert len(said) == 1 and said[0].startswith("chainrun: interrupted"), stderr
+        assert all(ln.startswith("chainrun: ") for ln in stderr.splitlines()), stderr
+        assert left == [], left
+        assert not (out / LOCK_NAME).exists()
+        if "not rendered" in said[0]:
+            # stopped while rendering: the report is written, says so, and lists what was delivered; the
+            # workers stopped too (before the fix they went on rendering after the report was due)
+            report = json.loads((out / "chainrun-report.json").read_text(encoding="utf-8"))
+            assert report["summary"]["interrupted"] is True
+            delivered_at_stop = {f["relpath"] for f in report["files"] if f["status"] == "ok"}
+            assert delivered_at_stop <= set(before)
+            n = int(said[0].split("interrupted; ")[1].split(" ")[0])
+            assert n == sum(f["message"] == "not rendered: the batch was interrupted" for f in report["files"])
+            assert n + len(delivered_at_stop) == len(FILES)
+            figure["delivered_at_stop"] = len(delivered_at_stop)
+        else:
+            delivered_at_stop = set()           # stopped before rendering began, or while writing the reports
+    elif sig == signal.SIGKILL and landed:
+        assert proc.returncode == -signal.SIGKILL
+        # 3. no worker outlives its batch (they are killed with it)
+        t0 = time.monotonic()
+        while processes_mentioning(str(out)) and time.monotonic() - t0 < 10:
+            time.sleep(0.05)
+        assert processes_mentioning(str(out)) == [], "a worker outlived the killed batch"
+    else:
+        assert proc.returncode == 0, stderr                 # it finished before the kill point
+
+    mtimes = {rel: os.stat(out / rel).st_mtime_ns for rel in before}
+    try:          # the killed run's lock file, if it got as far as writing its owner into it
+        lock_left = json.loads((out / LOCK_NAME).read_text()).get("pid") == proc.pid
+    except (OSError, ValueError, AttributeError):
+        lock_left = False
+
+    # 4. the next run cleans up, resumes and finishes; the outputs are those of an uninterrupted run
+    again = chainrun("run", d / "recipe.yaml", d / "in", "-o", out, "--workers", "2")
+    stdout2, stderr2 = again.communicate(timeout=300)
+    assert again.returncode == 0, stderr2
+    assert "Traceback" not in stderr2
+    if left:
+        assert f"removed {len(left)} unfinished temporary file(s) left by an interrupted run" in stderr2, stderr2
+    if lock_left:                                            # a stale lock, detected and taken over, named
+        assert f"took over the lock left by pid {proc.pid} on host" in stderr2, stderr2
+    after = finals(out)
+    assert after == ref                                      # bit-identical to the uninterrupted run
+    assert temporaries(out) == [] and not (out / LOCK_NAME).exists()
+    report = json.loads((out / "chainrun-report.json").read_text(encoding="utf-8"))
+    assert {f["relpath"]: f["status"] for f in report["files"]} == {rel: "ok" for rel in FILES}
+    resumed = [f["relpath"] for f in report["files"] if f.get("resumed")]
+    for rel in resumed:                                      # kept, not rendered again
+        assert rel in before and os.stat(out / rel).st_mtime_ns == mtimes[rel], rel
+    if sig == signal.SIGINT and landed:
+        assert delivered_at_stop <= set(resumed)            # what Ctrl-C's report called delivered is kept
+    if resumed:
+        assert f"{len(resumed)} file(s) already delivered by an earlier run" in stderr2, stderr2
+    assert {rel: (d / "in" / rel).read_bytes() for rel in FILES} == input_bytes      # inputs untouched
+    figure.update(kept_by_resume=len(resumed), rendered_by_resume=len(FILES) - len(resumed), lost=0)
+    FIGURES.append(figure)
+
+
+def test_interruption_figures():
+    if len(FIGURES) < len(KILLS + INTS):
+        pytest.skip("run the whole file to collect the figures")
+    landed = [f for f in FIGURES if f["landed"]]
+    summary = {
+        "kill_points_tried": len(FIGURES),
+        "sigkill_points": sum(f["signal"] == "SIGKILL" for f in FIGURES),
+        "sigint_points": sum(f["signal"] == "SIGINT" for f in FIGURES),
+        "landed_while_running": len(landed),
+        "survived": len(FIGURES),          # every point reaching here passed all checks
+        "files_lost": sum(f["lost"] for f in FIGURES),
+        "outputs_kept_by_resume": sum(f["kept_by_resume"] for f in FIGURES),
+        "temporaries_left_by_sigkill": sum(f["temporaries_left"] for f in FIGURES if f["signal"] == "SIGKILL"),
+        "points": FIGURES,
+    }
+    figures = os.environ.get("CHAINRUN_FIGURES")
+    if figures:
+        os.makedirs(figures, exist_ok=True)
+        with open(os.path.join(figures, "interruptions.json"), "w") as fh:
+            json.dump(summary, fh, indent=2)
+    assert summary["sigkill_points"] >= 10 and summary["sigint_points"] >= 10
+    # the kill points really interrupt runs (not just runs that had already finished)
+    assert sum(f["signal"] == "SIGKILL" for f in landed) >= 10
+    assert sum(f["signal"] == "SIGINT" for f in landed) >= 10
