@@ -552,7 +552,8 @@ def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) 
     try:
         if _STOP:
             return interrupted
-        return _render_job(job, src, sos, bound, policy)
+        # Every core is kept busy by the pool already: render this file's stages one after the other.
+        return _render_job(job, src, sos, bound, replace(policy, overlap=False))
     except KeyboardInterrupt:
         return interrupted
     finally:

@@ -228,7 +228,18 @@ def design_section(section: Section, rate: float) -> np.ndarray:
         raise RecipeError.at(section.locate("freq"),
                              f"chain[{section.index}].freq {freq:g} Hz is at or above Nyquist "
                              f"({rate / 2:g} Hz) for {rate:g} Hz files")
-    sos = np.asarray(_DESIGNERS[section.kind](section.params, float(rate)), dtype=np.float64)
+    try:
+        with np.errstate(over="raise", invalid="raise", divide="raise"):
+            sos = np.asarray(_DESIGNERS[section.kind](section.params, float(rate)), dtype=np.float64)
+    except (OverflowError, FloatingPointError, ZeroDivisionError, ValueError) as exc:
+        key = "bw" if "bw" in section.params else ("freq" if freq is not None else None)
+        raise RecipeError.at(section.locate(key),
+                             f"chain[{section.index}] {section.kind} cannot be designed at {rate:g} Hz "
+                             f"({exc}); move freq further below Nyquist ({rate / 2:g} Hz) or narrow the band"
+                             ) from None
+    if not np.all(np.isfinite(sos)):
+        raise RecipeError.at(section.where, f"chain[{section.index}] {section.kind} has non-finite coefficients "
+                                            f"at {rate:g} Hz; its values are too extreme to design")
     return np.atleast_2d(sos)
 
 

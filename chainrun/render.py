@@ -62,7 +62,13 @@ class AudioError(Exception):
 
 @dataclass(frozen=True)
 class Policy:
-    """How to render: headroom policy, ceiling, output format, block size."""
+    """How to render: headroom policy, ceiling, output format, block size.
+
+    ``overlap`` runs decoding, filtering and encoding of one file in three
+    threads; it pays when one file at a time is rendered, and costs CPU when
+    several worker processes already keep every core busy (the batch turns it
+    off for its process pool). It never changes the output.
+    """
 
     on_over: str = "reject"
     ceiling_dbfs: float = 0.0
@@ -72,6 +78,7 @@ class Policy:
     block_size: int = DEFAULT_BLOCK
     true_peak: bool = True
     max_regions: int = 20
+    overlap: bool = True
 
     @property
     def ceiling(self) -> float:
@@ -280,9 +287,18 @@ class Quantiser:
         return codes, clipped
 
 
+_NAME_MAX = 255          # bytes in one file name on the usual file systems
+
+
 def temp_path_for(final: str) -> str:
+    """``.<name>.chainrun-part-<hex>`` beside ``final``; a long name is shortened to keep it legal."""
     d, name = os.path.split(final)
-    return os.path.join(d, f".{name}{TEMP_TAG}{secrets.token_hex(4)}")
+    tail = f"{TEMP_TAG}{secrets.token_hex(4)}"
+    raw = os.fsencode(name)
+    room = _NAME_MAX - 1 - len(tail)
+    if len(raw) > room:
+        name = os.fsdecode(raw[:room])
+    return os.path.join(d, f".{name}{tail}")
 
 
 def _fsync_path(path: str, directory: bool = False) -> None:
@@ -297,15 +313,60 @@ def _remove_quietly(path: str | None) -> None:
     if path:
         try:
             os.unlink(path)
-        except FileNotFoundError:
+        except OSError:        # gone already, or its folder went read-only: nothing more can be done
             pass
 
 
-def _open_output(path: str, src: Source, fmt: str, subtype: str) -> sf.SoundFile:
-    f = sf.SoundFile(_sf_path(path), "w", src.rate, src.channels, subtype, format=fmt)
-    # The PEAK chunk of float WAV/AIFF carries a time stamp; without it reruns are bit-identical.
-    sf._snd.sf_command(f._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
-    return f
+class _Output:
+    """The temporary output file; libsndfile's errors become one line naming their cause."""
+
+    def __init__(self, path: str, src: Source, fmt: str, subtype: str):
+        try:
+            self.f = sf.SoundFile(_sf_path(path), "w", src.rate, src.channels, subtype, format=fmt)
+        except (sf.LibsndfileError, RuntimeError) as exc:
+            raise AudioError(f"cannot create the output: {_sf_reason(None, exc)}; nothing was delivered") from None
+        # The PEAK chunk of float WAV/AIFF carries a time stamp; without it reruns are bit-identical.
+        sf._snd.sf_command(self.f._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
+
+    def write(self, data: np.ndarray) -> None:
+        try:
+            self.f.write(data)
+        except (sf.LibsndfileError, RuntimeError) as exc:
+            raise AudioError(f"cannot write the output: {_sf_reason(self.f, exc)}; nothing was delivered") from None
+
+    @property
+    def closed(self) -> bool:
+        return self.f.closed
+
+    def close(self) -> None:
+        if self.f.closed:
+            return
+        try:
+            self.f.close()
+        except (sf.LibsndfileError, RuntimeError) as exc:
+            raise AudioError(f"cannot finish the output: {_sf_reason(None, exc)}; nothing was delivered") from None
+
+    def __enter__(self) -> "_Output":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+
+def _sf_reason(f: sf.SoundFile | None, exc: BaseException) -> str:
+    """libsndfile's own description of the last error (it keeps the system's reason for I/O errors)."""
+    try:
+        ptr = sf._snd.sf_strerror(f._file if f is not None and not f.closed else sf._ffi.NULL)
+        text = sf._ffi.string(ptr).decode("utf-8", "replace").strip().rstrip(".")
+    except Exception:
+        text = ""
+    if not text or text.lower() in ("no error", "system error"):
+        text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    return text.replace("System error : ", "").lower()
+
+
+def _open_output(path: str, src: Source, fmt: str, subtype: str) -> _Output:
+    return _Output(path, src, fmt, subtype)
 
 
 class _Blocks:
@@ -370,8 +431,10 @@ class _Scratch:
 _END = object()
 
 
-def _pipeline(items, transform, consume, depth: int = 2) -> None:
+def _pipeline(items, transform, consume, overlap: bool = True, depth: int = 2) -> None:
     """Run ``items`` (an iterator) in a reader thread, ``transform`` here, ``consume`` in a writer thread.
+
+    Without ``overlap``, the same three steps run one after the other in this thread.
 
     Decoding, filtering and encoding overlap: libsndfile (through cffi), sosfilt
     and numpy's large array operations release the GIL. Items stay in order;
@@ -379,6 +442,12 @@ def _pipeline(items, transform, consume, depth: int = 2) -> None:
     items, so memory stays a few blocks whatever the file's length. The first
     error in any stage stops all three and is raised here; so is Ctrl-C.
     """
+    if not overlap:
+        for item in items:
+            out = transform(item)
+            if out is not None:
+                consume(out)
+        return
     q_in: queue.Queue = queue.Queue(depth)
     q_out: queue.Queue = queue.Queue(depth)
     stop = threading.Event()
@@ -573,7 +642,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
                     y = filt(x, frame0)
                     pre.update(y)
                     return y
-                _pipeline(reader, pass1, write_scratch)
+                _pipeline(reader, pass1, write_scratch, policy.overlap)
             finally:
                 reader.close()
                 fh.close()
@@ -593,7 +662,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
 
                 def encode(y):
                     out.write(quantise(y)[0])
-                _pipeline(store.blocks(block, gain), pass2, encode)
+                _pipeline(store.blocks(block, gain), pass2, encode, policy.overlap)
             _remove_quietly(scratch)
             scratch = None
         else:
@@ -621,7 +690,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
 
                 def encode(item):
                     out.write(quantise(*item)[0])
-                _pipeline(reader, process, encode)
+                _pipeline(reader, process, encode, policy.overlap)
             finally:
                 reader.close()
                 out.close()
