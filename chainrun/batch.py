@@ -296,6 +296,23 @@ def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
                                           "please report it")
 
 
+def probe_job(job: Job) -> Source | FileResult:
+    """The header of one discovered input, or a failed result saying in one line why it cannot be read."""
+    try:
+        with open(job.input, "rb"):     # a plain open first: its error names the cause (permission denied)
+            pass
+    except OSError as exc:
+        return FileResult(job.input, job.relpath, "failed", f"cannot read: {_reason(exc)}")
+    try:
+        src = probe(job.input)
+    except AudioError as exc:
+        return FileResult(job.input, job.relpath, "failed", str(exc))
+    short = cut_short(src)
+    if short:
+        return FileResult(job.input, job.relpath, "failed", short, source=src)
+    return src
+
+
 def design_rates(recipe: Recipe, rates: set[int]) -> dict[int, RateDesign]:
     """Design and assess the recipe at every rate in the batch (pure, before any audio)."""
     out = {}
@@ -353,21 +370,11 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
     results = list(plan.skipped)
     probed: list[tuple[Job, Source]] = []
     for job in plan.jobs:
-        try:
-            with open(job.input, "rb"):     # a plain open first: its error names the cause (permission denied)
-                pass
-        except OSError as exc:
-            results.append(FileResult(job.input, job.relpath, "failed", f"cannot read: {_reason(exc)}"))
+        got = probe_job(job)
+        if isinstance(got, FileResult):
+            results.append(got)
             continue
-        try:
-            src = probe(job.input)
-        except AudioError as exc:
-            results.append(FileResult(job.input, job.relpath, "failed", str(exc)))
-            continue
-        short = cut_short(src)
-        if short:
-            results.append(FileResult(job.input, job.relpath, "failed", short, source=src))
-            continue
+        src = got
         probed.append((job, src))
     designs = design_rates(recipe, {src.rate for _, src in probed})
     work = []

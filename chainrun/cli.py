@@ -281,8 +281,8 @@ def cmd_run(args: argparse.Namespace) -> int:
 # --------------------------------------------------------------------------- scan
 
 def cmd_scan(args: argparse.Namespace) -> int:
-    from .batch import BatchError, cut_short, discover
-    from .render import AudioError, FileResult, probe, scan_file
+    from .batch import BatchError, discover, probe_job
+    from .render import FileResult, scan_file
     from .report import file_dict, shown
 
     try:
@@ -292,20 +292,9 @@ def cmd_scan(args: argparse.Namespace) -> int:
         return EXIT_USAGE
     results = []
     for job in plan.jobs:
-        try:
-            with open(job.input, "rb"):
-                pass
-            src = probe(job.input)
-        except OSError as exc:
-            results.append(FileResult(job.input, job.relpath, "failed",
-                                      f"cannot read: {(exc.strerror or str(exc)).lower()}"))
-            continue
-        except AudioError as exc:
-            results.append(FileResult(job.input, job.relpath, "failed", str(exc)))
-            continue
-        short = cut_short(src)
-        if short:
-            results.append(FileResult(job.input, job.relpath, "failed", short, source=src))
+        src = probe_job(job)
+        if isinstance(src, FileResult):
+            results.append(src)
             continue
         results.append(scan_file(src, true_peak=not args.no_true_peak, relpath=job.relpath))
     results.extend(plan.skipped)
