@@ -5,7 +5,6 @@ import argparse
 import json
 import math
 import os
-import re
 import sys
 import traceback
 
@@ -13,6 +12,7 @@ from . import __version__
 from .design import design
 from .guard import assess
 from .recipe import RecipeError, load
+from .report import fmt_db, loudest, shown
 
 DEFAULT_RATES = (44100, 48000, 96000)
 _ASSESSMENT_KEYS = ("rate", "accepted", "rows", "max_pole_radius", "decay_60db_s", "decay_exact", "max_gain_db",
@@ -37,21 +37,9 @@ def _rate(text: str) -> int:
     return int(value)
 
 
-_CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
-
-
 def _err(line: str) -> None:
-    """One diagnostic line on stderr; a newline or escape inside it (from a file name) is shown escaped."""
-    line = str(line).encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
-    print(_CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], line), file=sys.stderr)
-
-
-def _db(x: float, unit: str = "dB") -> str:
-    if x is None or (isinstance(x, float) and math.isnan(x)):
-        return "-"
-    if math.isinf(x):
-        return f"{'+' if x > 0 else '-'}inf {unit}"
-    return f"{x:+.2f} {unit}"
+    """One line on stderr; undecodable bytes and control characters shown escaped (report.shown)."""
+    print(shown(str(line)), file=sys.stderr)
 
 
 # --------------------------------------------------------------------------- check
@@ -128,7 +116,7 @@ def _print_check(entry: dict) -> None:
             decay = "-" if r["decay_60db_s"] is None else (
                 f"{'' if r['decay_exact'] else '>'}{r['decay_60db_s']:.3f} s")
             gain = "-" if r["max_gain_db"] is None else f"{r['max_gain_db']:+.2f} dB @ {r['max_gain_hz']:.0f} Hz"
-            peak = _db(r["worst_case_peak_gain_db"] if r["worst_case_peak_gain_db"] is not None else math.inf)
+            peak = fmt_db(r["worst_case_peak_gain_db"] if r["worst_case_peak_gain_db"] is not None else math.inf)
             print(f"  {r['rate']:>6} Hz  {r['rows']:>7}  {radius:>15}  {decay:>11}  {gain:>22}  {peak:>15}  {verdict}")
     for line in entry["errors"] + entry["warnings"]:
         _err(line)
@@ -283,7 +271,7 @@ def cmd_run(args: argparse.Namespace) -> int:
 def cmd_scan(args: argparse.Namespace) -> int:
     from .batch import BatchError, discover, probe_job
     from .render import FileResult, scan_file
-    from .report import file_dict, shown
+    from .report import file_dict
 
     try:
         plan = discover(args.inputs, None)
@@ -310,11 +298,10 @@ def cmd_scan(args: argparse.Namespace) -> int:
                 print(f"{r.status:<8} {'-':>11} {'-':>11} {'-':>11} {'-':>8}  {shown(r.relpath)}"
                       + (f"  ({shown(r.message)})" if r.message else ""))
                 continue
-            worst = lambda attr: max((getattr(c, attr) for c in m.channels if getattr(c, attr) is not None),
-                                     default=None)
             clipped = sum(c.clipped_samples for c in m.channels)
-            print(f"{r.status:<8} {_db(worst('peak_dbfs'), 'dBFS'):>11} {_db(worst('true_peak_dbtp'), 'dBTP'):>11} "
-                  f"{_db(worst('rms_dbfs'), 'dBFS'):>11} {clipped:>8}  {shown(r.relpath)}")
+            print(f"{r.status:<8} {fmt_db(loudest(m, 'peak_dbfs'), 'dBFS'):>11} "
+                  f"{fmt_db(loudest(m, 'true_peak_dbtp'), 'dBTP'):>11} "
+                  f"{fmt_db(loudest(m, 'rms_dbfs'), 'dBFS'):>11} {clipped:>8}  {shown(r.relpath)}")
     bad = [r for r in results if r.status in ("failed", "clipped")]
     for r in bad:
         _err(f"{shown(r.input)}: {'error' if r.status == 'failed' else 'clipped'}: {shown(r.message)}")

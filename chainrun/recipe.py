@@ -43,6 +43,11 @@ _FLOAT_RE = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
 _CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
 
 
+def one_line(text: str) -> str:
+    """``text`` with control characters (a newline, a terminal escape) shown escaped, e.g. ``\\n``."""
+    return _CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], text)
+
+
 @dataclass(frozen=True)
 class Location:
     """A place in a recipe file: path, 1-based line and 1-based column."""
@@ -69,7 +74,7 @@ class RecipeError(ValueError):
     def __init__(self, path: str, line: int, col: int, message: str):
         # One error, one line: control characters (a newline in a quoted key, a
         # YAML library message) are shown escaped, never as a line break.
-        message = _CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], str(message))
+        message = one_line(str(message))
         self.path, self.line, self.col, self.message = str(path), int(line), int(col), message
         super().__init__(f"{self.path}:{self.line}:{self.col}: error: {message}")
 

@@ -372,8 +372,8 @@ def _open_output(path: str, src: Source, fmt: str, subtype: str) -> _Output:
 class _Blocks:
     """Reads an input in blocks as channel-major float64 and checks it for length and NaN.
 
-    Yields ``(frame0, x)``: the index of the block's first frame and an array of
-    shape (channels, frames). With a meter, every block is metered as it is read.
+    Yields ``(frame0, x, peak)``: the index of the block's first frame, an array of
+    shape (channels, frames) and its largest magnitude. With a meter, every block is metered as it is read.
     """
 
     def __init__(self, src: Source, block: int, meter: Meter | None = None):
@@ -385,7 +385,7 @@ class _Blocks:
     def __iter__(self):
         return self
 
-    def __next__(self) -> tuple[int, np.ndarray]:
+    def __next__(self) -> tuple[int, np.ndarray, float]:
         got = self.f.read(self.block, dtype="float64", always_2d=True, out=self.buf)
         n = len(got)
         if n == 0:
@@ -394,7 +394,8 @@ class _Blocks:
                                  "(cut short, or changed while being read)")
             raise StopIteration
         x = got.T.copy()       # a new channel-major array: the buffer is reused for the next read
-        if not (math.isfinite(float(x.max())) and math.isfinite(float(x.min()))):
+        hi, lo = float(x.max()), float(x.min())
+        if not (math.isfinite(hi) and math.isfinite(lo)):
             ch, at = np.argwhere(~np.isfinite(x))[0]
             raise AudioError(f"sample {self.done + at} of channel {ch + 1} is {x[ch, at]}; "
                              "chainrun does not pass NaN or Inf on (repair or re-export the file)")
@@ -402,7 +403,7 @@ class _Blocks:
             self.meter.update(x)
         frame0 = self.done
         self.done += n
-        return frame0, x
+        return frame0, x, max(hi, -lo)
 
     def close(self) -> None:
         self.f.close()
@@ -554,11 +555,12 @@ class _Filter:
     def _flush(self) -> None:
         self.zi[np.abs(self.zi) < self.DENORMAL_FLOOR] = 0.0
 
-    def __call__(self, x: np.ndarray, frame0: int) -> np.ndarray:
+    def __call__(self, x: np.ndarray, frame0: int, x_peak: float) -> np.ndarray:
+        """Filter one block; ``x_peak`` is max |x| of the block (the reader has it already)."""
         y = self._filter(x, frame0)
         self.block_peak = 0.0
         if x.size:
-            self.in_peak = max(self.in_peak, float(x.max()), float(-x.min()))
+            self.in_peak = max(self.in_peak, x_peak)
             hi, lo = float(y.max()), float(y.min())
             if not (math.isfinite(hi) and math.isfinite(lo)):
                 raise AudioError(f"the filter output became non-finite near sample {frame0}; "
@@ -638,8 +640,8 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             fh, write_scratch = store.writer()
             try:
                 def pass1(item):
-                    frame0, x = item
-                    y = filt(x, frame0)
+                    frame0, x, x_peak = item
+                    y = filt(x, frame0, x_peak)
                     pre.update(y)
                     return y
                 _pipeline(reader, pass1, write_scratch, policy.overlap)
@@ -676,8 +678,8 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             rejecting = [False]
             try:
                 def process(item):
-                    frame0, x = item
-                    y = filt(x, frame0)
+                    frame0, x, x_peak = item
+                    y = filt(x, frame0, x_peak)
                     over_mask = None
                     if clip and filt.block_peak > ceiling:
                         over_mask = np.abs(y) > ceiling

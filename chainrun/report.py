@@ -12,17 +12,17 @@ import json
 import math
 import os
 import platform
-import re
 import tempfile
 import time
 from typing import Any
 
 from . import __version__
 from .batch import BatchResult
+from .recipe import one_line
 from .render import FileResult, temp_path_for
 
 __all__ = ["STATUS_ORDER", "file_dict", "batch_dict", "write_reports", "console_summary", "worst_first",
-           "error_lines", "report_paths", "shown"]
+           "error_lines", "report_paths", "shown", "fmt_db", "loudest"]
 
 # Status -> rank in "needs attention first" order.
 STATUS_ORDER = {"failed": 0, "rejected": 1, "clipped": 2, "ok": 3, "skipped": 4}
@@ -40,14 +40,13 @@ def _num(x: Any) -> Any:
     return x
 
 
-def _worst(reading, attr: str) -> float | None:
+def loudest(reading, attr: str) -> float | None:
+    """The largest of one meter figure (e.g. ``peak_dbfs``) over a reading's channels; None if none."""
     if reading is None:
         return None
     vals = [getattr(c, attr) for c in reading.channels if getattr(c, attr) is not None]
     return max(vals) if vals else None
 
-
-_CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
 
 
 def shown(path: str | None) -> str | None:
@@ -56,7 +55,7 @@ def shown(path: str | None) -> str | None:
     if path is None:
         return None
     text = path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
-    return _CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], text)
+    return one_line(text)
 
 
 def file_dict(r: FileResult) -> dict:
@@ -97,10 +96,10 @@ def _csv_row(r: FileResult) -> dict:
 
     row = {k: d.get(k) for k in CSV_FIELDS if k in d}
     row.update(
-        in_peak_dbfs=db(_worst(im, "peak_dbfs")), in_true_peak_dbtp=db(_worst(im, "true_peak_dbtp")),
+        in_peak_dbfs=db(loudest(im, "peak_dbfs")), in_true_peak_dbtp=db(loudest(im, "true_peak_dbtp")),
         in_clipped_samples=sum(c.clipped_samples for c in im.channels) if im else "",
-        out_peak_dbfs=db(_worst(om, "peak_dbfs")), out_true_peak_dbtp=db(_worst(om, "true_peak_dbtp")),
-        out_rms_dbfs=db(_worst(om, "rms_dbfs")),
+        out_peak_dbfs=db(loudest(om, "peak_dbfs")), out_true_peak_dbtp=db(loudest(om, "true_peak_dbtp")),
+        out_rms_dbfs=db(loudest(om, "rms_dbfs")),
         out_clipped_samples=sum(c.clipped_samples for c in om.channels) if om else "",
         over_db=db(r.over_db), trim_db=db(r.trim_db), gain_db=db(r.gain_db),
     )
@@ -237,16 +236,17 @@ def _remove_quietly(path: str) -> None:
 def worst_first(results: list[FileResult]) -> list[FileResult]:
     """Files needing attention first: failed, rejected, clipped, then by output peak, loudest first."""
     def key(r: FileResult):
-        peak = _worst(r.output_meters, "peak") or 0.0
+        peak = loudest(r.output_meters, "peak") or 0.0
         return (STATUS_ORDER.get(r.status, 9), -peak, r.relpath)
     return sorted(results, key=key)
 
 
-def _fmt_db(x: float | None, unit: str) -> str:
-    if x is None:
+def fmt_db(x: float | None, unit: str = "dB") -> str:
+    """A dB figure for a console table: ``+1.23 dBFS``, ``-inf dBFS`` for silence, ``-`` for none."""
+    if x is None or math.isnan(x):
         return "-"
-    if not math.isfinite(x):
-        return f"-inf {unit}"
+    if math.isinf(x):
+        return f"{'+' if x > 0 else '-'}inf {unit}"
     return f"{x:+.2f} {unit}"
 
 
@@ -255,9 +255,9 @@ def console_summary(b: BatchResult, paths: dict[str, str] | None = None, limit: 
     lines = [f"{'status':<9} {'out peak':>11} {'out true peak':>13} {'in peak':>11}  file"]
     rows = worst_first(b.results)
     for r in rows[:limit]:
-        lines.append(f"{r.status:<9} {_fmt_db(_worst(r.output_meters, 'peak_dbfs'), 'dBFS'):>11} "
-                     f"{_fmt_db(_worst(r.output_meters, 'true_peak_dbtp'), 'dBTP'):>13} "
-                     f"{_fmt_db(_worst(r.input_meters, 'peak_dbfs'), 'dBFS'):>11}  {shown(r.relpath)}"
+        lines.append(f"{r.status:<9} {fmt_db(loudest(r.output_meters, 'peak_dbfs'), 'dBFS'):>11} "
+                     f"{fmt_db(loudest(r.output_meters, 'true_peak_dbtp'), 'dBTP'):>13} "
+                     f"{fmt_db(loudest(r.input_meters, 'peak_dbfs'), 'dBFS'):>11}  {shown(r.relpath)}"
                      + (f"  ({shown(r.message)})" if r.message else ""))
     if len(rows) > limit:
         lines.append(f"... and {len(rows) - limit} more in the report")

@@ -23,8 +23,6 @@ import io
 import json
 import os
 import re
-import shutil
-import stat
 import struct
 import threading
 import time

@@ -33,7 +33,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun.journal import JOURNAL_NAME, LOCK_NAME
+from chainrun.journal import LOCK_NAME
 from chainrun.render import TEMP_TAG
 
 pytestmark = pytest.mark.slow
