@@ -560,7 +560,7 @@ def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) 
         if _STOP:
             return interrupted
         # Every core is kept busy by the pool already: render this file's stages one after the other.
-        return _render_job(job, src, sos, bound, replace(policy, overlap=False))
+        return _render_job(job, src, sos, bound, replace(policy, threads=1))
     except KeyboardInterrupt:
         return interrupted
     finally:
@@ -641,9 +641,14 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         notes.append(f"{len(prep.work) - len(todo)} file(s) already delivered by an earlier run with the same "
                      "recipe and inputs; kept as they are (use --redo to render them again)")
 
+    # --workers is the number of cores the batch may keep busy: one file per worker process, or, when
+    # a single file is left to render, that file's pipeline threads; one worker is one core.
+    in_process = workers == 1 or len(todo) <= 1
+    policy = replace(prep.policy, threads=workers if in_process else 1)
+
     def args(job: Job, src: Source):
         d = prep.designs[src.rate]
-        return job, src, d.chain.sos, d.assessment.peak_gain, prep.policy
+        return job, src, d.chain.sos, d.assessment.peak_gain, policy
 
     journal_failed: list[str] = []
 
@@ -659,7 +664,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
 
     # Longest files first, so the pool does not end waiting on one long file.
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
-    if workers == 1 or len(todo) <= 1:
+    if in_process:
         try:
             if started:
                 started()

@@ -389,7 +389,7 @@ class Meter:
 
     # -- public -------------------------------------------------------------
 
-    def update(self, block: np.ndarray) -> None:
+    def update(self, block: np.ndarray, extremes: tuple[np.ndarray, np.ndarray] | None = None) -> None:
         """Meter one block.
 
         Parameters
@@ -399,6 +399,10 @@ class Meter:
             C-contiguous is used as is; other float types or layouts are
             converted (a copy).  Integer arrays are refused: convert PCM codes
             to floats (1.0 = full scale) first.
+        extremes : (numpy.ndarray, numpy.ndarray), optional
+            ``(block.max(axis=1), block.min(axis=1))`` when the caller has them
+            already (the reader and the filter do); saves two passes over the
+            block.  They must be exactly those values.
 
         Raises
         ------
@@ -418,8 +422,10 @@ class Meter:
             return
         self._reading = None
         base = self._frames
-        hi = block.max(axis=1)
-        lo = block.min(axis=1)
+        if extremes is None:
+            hi, lo = block.max(axis=1), block.min(axis=1)
+        else:
+            hi, lo = extremes
         finite_block = bool(np.isfinite(hi).all() and np.isfinite(lo).all())
         bad = None if finite_block else ~np.isfinite(block)
         fs = self._full_scale

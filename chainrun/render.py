@@ -64,10 +64,11 @@ class AudioError(Exception):
 class Policy:
     """How to render: headroom policy, ceiling, output format, block size.
 
-    ``overlap`` runs decoding, filtering and encoding of one file in three
-    threads; it pays when one file at a time is rendered, and costs CPU when
-    several worker processes already keep every core busy (the batch turns it
-    off for its process pool). It never changes the output.
+    ``threads`` is how many cores the file may keep busy. With 1 (the
+    default) every step runs in the calling thread, one after the other; with 2
+    or more, decoding (with the input meters), filtering, and the output meters
+    with encoding run in three threads that overlap. The batch gives a file more
+    than one only when it renders that file alone. It never changes the output.
     """
 
     on_over: str = "reject"
@@ -78,7 +79,7 @@ class Policy:
     block_size: int = DEFAULT_BLOCK
     true_peak: bool = True
     max_regions: int = 20
-    overlap: bool = True
+    threads: int = 1
 
     @property
     def ceiling(self) -> float:
@@ -258,33 +259,90 @@ class Quantiser:
             self.limit = math.inf
         self.clipped = 0        # samples hard-clipped at full scale by all calls so far
 
-    def __call__(self, y: np.ndarray, counted: np.ndarray | None = None) -> tuple[np.ndarray, int]:
-        """Returns (frames x channels array to write, number of samples clipped at full scale).
+    def codes(self, y: np.ndarray, counted: np.ndarray | None = None,
+              peak: float | None = None) -> tuple[np.ndarray, int]:
+        """(frames x channels integer codes, or float samples for float output; samples clipped).
 
-        ``counted`` (channels x frames, bool) marks samples already counted as clipped
-        (by the clip policy); they are not counted again here. The count is also
-        added to ``clipped``.
+        Integer codes are the plain two's-complement values (-2**(bits-1) .. 2**(bits-1) - 1),
+        not yet shifted into the top bits of the word libsndfile takes. ``counted``
+        (channels x frames, bool) marks samples already counted as clipped (by the clip
+        policy); they are not counted again here. The count is also added to ``clipped``.
+        ``peak``, max |y| when the caller knows it, lets the search for codes out of
+        range be skipped when none can be: a dither draw moves a value by less than
+        1 LSB and rounding keeps a value below the top code at or below it.
         """
         if self.bits is None:
             return np.ascontiguousarray(y.T, dtype=self.dtype), 0
-        v = np.multiply(y.T, self.scale)      # (frames, channels), C-contiguous
+        v = np.empty(y.shape[::-1])            # (frames, channels), C-contiguous: the interleaved layout
+        np.multiply(y.T, self.scale, out=v)
         if self.rng is not None:
             r = self.rng.random((v.shape[0], v.shape[1], 2))
             v += r[..., 0]
             v -= r[..., 1]
         np.rint(v, out=v)
         clipped = 0
-        if v.size and (v.max() > self.hi or v.min() < self.lo):
+        safe = peak is not None and peak * self.scale + (1.0 if self.rng is not None else 0.0) <= self.hi
+        if v.size and not safe and (v.max() > self.hi or v.min() < self.lo):
             out_of_range = (v > self.hi) | (v < self.lo)
             if counted is not None:
                 out_of_range &= ~counted.T
             clipped = int(np.count_nonzero(out_of_range))
             self.clipped += clipped
             np.clip(v, self.lo, self.hi, out=v)
-        codes = v.astype(np.int32 if self.dtype == np.int32 else np.int16)
+        return v.astype(np.int32 if self.dtype == np.int32 else np.int16), clipped
+
+    def __call__(self, y: np.ndarray, counted: np.ndarray | None = None,
+                 peak: float | None = None) -> tuple[np.ndarray, int]:
+        """Returns (frames x channels array to hand to libsndfile, number of samples clipped at full scale).
+
+        As :meth:`codes`, with 24-bit codes shifted into the top bits of an int32
+        (libsndfile takes the top 24 bits of int32 data for PCM_24).
+        """
+        data, clipped = self.codes(y, counted, peak)
         if self.shift:
-            codes <<= self.shift
-        return codes, clipped
+            data <<= self.shift
+        return data, clipped
+
+
+def pack24(codes: np.ndarray, out: np.ndarray | None = None, big_endian: bool = False) -> np.ndarray:
+    """24-bit two's-complement codes (int32) -> the bytes of packed 3-byte samples, as a uint32 array.
+
+    Four samples become three 32-bit words, so the work is a few whole-array integer
+    operations instead of a byte-by-byte copy; libsndfile's own int -> 24-bit conversion
+    runs a per-sample loop that costs several times more (see benchmarks/RESULTS.md).
+    ``codes`` is read in C order (frames x channels, interleaved). Only for a
+    little-endian machine; ``big_endian`` gives the byte order of AIFF.
+
+    Returns
+    -------
+    numpy.ndarray
+        uint32 words (the last one may be only partly meaningful: take the first
+        ``3 * codes.size`` bytes).
+    """
+    flat = codes.reshape(-1)
+    n = flat.size
+    whole = -(-n // 4) * 4
+    if whole != n or big_endian:
+        padded = np.zeros(whole, dtype=np.int32)
+        padded[:n] = flat
+        if big_endian:      # bytes hi, mid, lo: byte-swap the code shifted into the top 24 bits
+            padded <<= 8
+            padded = padded.byteswap()
+        flat = padded
+    q = flat.view(np.uint32).reshape(-1, 4)
+    if out is None or out.size < whole // 4 * 3:
+        out = np.empty(whole // 4 * 3, dtype=np.uint32)
+    o = out[:whole // 4 * 3].reshape(-1, 3)
+    # word 0: sample 0 (3 bytes) + low byte of sample 1; word 1: its upper 2 bytes + 2 of sample 2; ...
+    np.bitwise_and(q[:, 0], 0xFFFFFF, out=o[:, 0])
+    o[:, 0] |= q[:, 1] << 24
+    np.right_shift(q[:, 1], 8, out=o[:, 1])
+    o[:, 1] &= 0xFFFF
+    o[:, 1] |= q[:, 2] << 16
+    np.right_shift(q[:, 2], 16, out=o[:, 2])
+    o[:, 2] &= 0xFF
+    o[:, 2] |= q[:, 3] << 8
+    return out[:whole // 4 * 3]
 
 
 _NAME_MAX = 255          # bytes in one file name on the usual file systems
@@ -317,8 +375,29 @@ def _remove_quietly(path: str | None) -> None:
             pass
 
 
+# Containers whose PCM_24 samples chainrun packs itself and hands to libsndfile as raw bytes
+# (sf_write_raw; libsndfile still writes and finishes the header): format -> big-endian?
+_PACKED_24 = {
+    "WAV": False,      # RIFF: little-endian
+    "WAVEX": False,    # WAVE_FORMAT_EXTENSIBLE: little-endian
+    "RF64": False,     # little-endian
+    "W64": False,      # Sony Wave64: little-endian
+    "AIFF": True,      # big-endian
+}
+
+
+def _write_raw(f: sf.SoundFile, words: np.ndarray, nbytes: int) -> int:
+    """Hand ``nbytes`` bytes of already-encoded samples to libsndfile; returns the bytes it took."""
+    return int(sf._snd.sf_write_raw(f._file, sf._ffi.from_buffer(words), nbytes))
+
+
 class _Output:
-    """The temporary output file; libsndfile's errors become one line naming their cause."""
+    """The temporary output file; libsndfile's errors become one line naming their cause.
+
+    PCM_24 in the containers of ``_PACKED_24`` is packed here (:func:`pack24`) and
+    written raw; every other subtype goes through libsndfile's own conversion.
+    Both give the same bytes (tests/test_render.py checks it for each container).
+    """
 
     def __init__(self, path: str, src: Source, fmt: str, subtype: str):
         try:
@@ -327,12 +406,32 @@ class _Output:
             raise AudioError(f"cannot create the output: {_sf_reason(None, exc)}; nothing was delivered") from None
         # The PEAK chunk of float WAV/AIFF carries a time stamp; without it reruns are bit-identical.
         sf._snd.sf_command(self.f._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
+        self.packed = (subtype == "PCM_24" and fmt in _PACKED_24 and sys.byteorder == "little")
+        self.big_endian = _PACKED_24.get(fmt, False)
+        self._words: np.ndarray | None = None
 
     def write(self, data: np.ndarray) -> None:
+        """Write what :class:`Quantiser` returns (frames x channels, libsndfile's layout)."""
         try:
             self.f.write(data)
         except (sf.LibsndfileError, RuntimeError) as exc:
             raise AudioError(f"cannot write the output: {_sf_reason(self.f, exc)}; nothing was delivered") from None
+
+    def put(self, quantise: "Quantiser", y: np.ndarray, counted: np.ndarray | None = None,
+            peak: float | None = None) -> None:
+        """Quantise ``y`` (channels x frames) and write it, packed here where that is faster.
+
+        ``peak`` is max |y| if the caller knows it (see :meth:`Quantiser.codes`).
+        """
+        if not self.packed:
+            self.write(quantise(y, counted, peak)[0])
+            return
+        codes, _ = quantise.codes(y, counted, peak)
+        self._words = pack24(codes, self._words, self.big_endian)
+        nbytes = 3 * codes.size
+        if _write_raw(self.f, self._words, nbytes) != nbytes:
+            raise AudioError(f"cannot write the output: {_sf_reason(self.f, OSError('short write'))}; "
+                             "nothing was delivered")
 
     @property
     def closed(self) -> bool:
@@ -394,13 +493,14 @@ class _Blocks:
                                  "(cut short, or changed while being read)")
             raise StopIteration
         x = got.T.copy()       # a new channel-major array: the buffer is reused for the next read
-        hi, lo = float(x.max()), float(x.min())
+        his, los = x.max(axis=1), x.min(axis=1)
+        hi, lo = float(his.max()), float(los.min())
         if not (math.isfinite(hi) and math.isfinite(lo)):
             ch, at = np.argwhere(~np.isfinite(x))[0]
             raise AudioError(f"sample {self.done + at} of channel {ch + 1} is {x[ch, at]}; "
                              "chainrun does not pass NaN or Inf on (repair or re-export the file)")
         if self.meter is not None:
-            self.meter.update(x)
+            self.meter.update(x, (his, los))
         frame0 = self.done
         self.done += n
         return frame0, x, max(hi, -lo)
@@ -432,7 +532,7 @@ class _Scratch:
 _END = object()
 
 
-def _pipeline(items, transform, consume, overlap: bool = True, depth: int = 2) -> None:
+def _pipeline(items, transform, consume, overlap: bool = True, depth: int = 3) -> None:
     """Run ``items`` (an iterator) in a reader thread, ``transform`` here, ``consume`` in a writer thread.
 
     Without ``overlap``, the same three steps run one after the other in this thread.
@@ -559,9 +659,12 @@ class _Filter:
         """Filter one block; ``x_peak`` is max |x| of the block (the reader has it already)."""
         y = self._filter(x, frame0)
         self.block_peak = 0.0
+        self.extremes = None
         if x.size:
             self.in_peak = max(self.in_peak, x_peak)
-            hi, lo = float(y.max()), float(y.min())
+            his, los = y.max(axis=1), y.min(axis=1)
+            self.extremes = (his, los)         # per channel, for the output meter
+            hi, lo = float(his.max()), float(los.min())
             if not (math.isfinite(hi) and math.isfinite(lo)):
                 raise AudioError(f"the filter output became non-finite near sample {frame0}; "
                                  "nothing was delivered")
@@ -616,6 +719,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
     t0 = time.perf_counter()
     res = FileResult(input=src.path, relpath=relpath or seed_key, status="failed", source=src)
     tmp = scratch = None
+    blas = _one_blas_thread()
     try:
         if os.path.exists(dst) and os.path.samefile(dst, src.path):
             raise AudioError("the output would overwrite the input; refused")
@@ -641,10 +745,13 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             try:
                 def pass1(item):
                     frame0, x, x_peak = item
-                    y = filt(x, frame0, x_peak)
-                    pre.update(y)
-                    return y
-                _pipeline(reader, pass1, write_scratch, policy.overlap)
+                    return filt(x, frame0, x_peak), filt.extremes
+
+                def keep(item):
+                    y, extremes = item
+                    pre.update(y, extremes)
+                    write_scratch(y)
+                _pipeline(reader, pass1, keep, policy.threads > 1)
             finally:
                 reader.close()
                 fh.close()
@@ -659,12 +766,13 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             out_meter = Meter(src.rate, src.channels, full_scale=out_fs, **meter_args)
             with _open_output(tmp, src, fmt, out_subtype) as out:
                 def pass2(y):
-                    out_meter.update(y)
-                    return y
+                    extremes = y.max(axis=1), y.min(axis=1)
+                    out_meter.update(y, extremes)
+                    return y, max(float(extremes[0].max()), -float(extremes[1].min()))
 
-                def encode(y):
-                    out.write(quantise(y)[0])
-                _pipeline(store.blocks(block, gain), pass2, encode, policy.overlap)
+                def encode(item):
+                    out.put(quantise, *item)
+                _pipeline(store.blocks(block, gain), pass2, encode, policy.threads > 1)
             _remove_quietly(scratch)
             scratch = None
         else:
@@ -681,18 +789,24 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
                     frame0, x, x_peak = item
                     y = filt(x, frame0, x_peak)
                     over_mask = None
-                    if clip and filt.block_peak > ceiling:
+                    extremes, peak = filt.extremes, filt.block_peak
+                    if clip and peak > ceiling:
                         over_mask = np.abs(y) > ceiling
                         res.clipped_by_chainrun += int(np.count_nonzero(over_mask))
                         np.clip(y, -ceiling, ceiling, out=y)
-                    out_meter.update(y)
+                        # clipping is monotonic: the extremes of the clipped block are the clipped extremes
+                        extremes = (np.minimum(extremes[0], ceiling), np.maximum(extremes[1], -ceiling))
+                        peak = ceiling
                     if policy.on_over == "reject" and _over(filt.out_peak, None, policy) > 0:
                         rejecting[0] = True        # will be rejected: stop writing, keep metering
-                    return None if rejecting[0] else (y, over_mask)
+                    return y, over_mask, not rejecting[0], extremes, peak
 
                 def encode(item):
-                    out.write(quantise(*item)[0])
-                _pipeline(reader, process, encode, policy.overlap)
+                    y, over_mask, wanted, extremes, peak = item
+                    out_meter.update(y, extremes)  # here, not above: balances the threads' work
+                    if wanted:
+                        out.put(quantise, y, over_mask, peak)
+                _pipeline(reader, process, encode, policy.threads > 1)
             finally:
                 reader.close()
                 out.close()
@@ -747,6 +861,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
     finally:
         _remove_quietly(tmp)
         _remove_quietly(scratch)
+        blas.restore_original_limits()
         res.seconds = time.perf_counter() - t0
 
 
@@ -758,8 +873,9 @@ def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, r
     try:
         reader = _Blocks(src, block, meter)
         try:
-            for _ in reader:
-                pass
+            with _one_blas_thread():
+                for _ in reader:
+                    pass
         finally:
             reader.close()
         res.input_meters = meter.result()
@@ -773,6 +889,19 @@ def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, r
         res.message = _why(exc)
     res.seconds = time.perf_counter() - t0
     return res
+
+
+def _one_blas_thread():
+    """Keep BLAS on the calling thread while a file is metered (a context manager).
+
+    The true-peak meter's matrix products are small; OpenBLAS would still spread
+    each over its own worker threads, which on a busy machine stall and which take
+    cores that ``--workers`` did not grant. chainrun's parallelism is its own:
+    worker processes, and the threads of one file's pipeline.
+    """
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=1, user_api="blas")
 
 
 def _max_tp(reading: MeterReading) -> float | None:

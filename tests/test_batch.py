@@ -370,6 +370,28 @@ def test_two_workers_give_the_same_outputs_as_one(tmp_path, season, write_recipe
     assert comparable(outs["1"])["marsh/hot.wav"]["status"] == "rejected"
 
 
+@pytest.mark.parametrize("workers, files, threads", [("1", 1, 1), ("1", 3, 1), ("2", 1, 2), ("2", 3, 1)])
+def test_workers_are_cores(tmp_path, write_audio, write_recipe, run_cli, monkeypatch, workers, files, threads):
+    # contract (README, "Commands"): --workers N keeps at most N cores busy. One worker renders every
+    # file in one thread; with more, several files go to worker processes, each rendering in one
+    # thread, and a file rendered alone gets the pipeline threads.
+    log = tmp_path / "threads.log"
+    real = batch.render_file
+
+    def spy(src, dst, sos, bound, policy, **kw):
+        with open(log, "a") as fh:          # a file: worker processes are forked, lists would stay there
+            fh.write(f"{policy.threads}\n")
+        return real(src, dst, sos, bound, policy, **kw)
+
+    monkeypatch.setattr(batch, "render_file", spy)
+    for i in range(files):
+        write_audio(f"in/take{i}.wav", np.full((2000, 2), 0.1), 48000, "PCM_24")
+    status, _, err = run_cli("run", write_recipe(GENTLE), tmp_path / "in", "-o", tmp_path / "out",
+                             "--workers", workers)
+    assert status == 0, err
+    assert log.read_text().split() == [str(threads)] * files
+
+
 # =========================================================================== faults inside a batch
 
 

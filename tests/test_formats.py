@@ -46,3 +46,50 @@ def test_container_that_cannot_hold_the_subtype(fmt, subtype):
 def test_lossy_input_cannot_be_written_back_as_it_is():
     with pytest.raises(AudioError, match="cannot be written back as it is; set output.subtype"):
         output_format(_source(1000, fmt="OGG", subtype="VORBIS"), "same")
+
+
+# --- 24-bit samples packed by chainrun --------------------------------------------------------------
+
+@pytest.mark.parametrize("frames, channels", [(1, 1), (3, 3), (1001, 2), (4096, 1), (7, 5)])
+def test_pack24_gives_the_three_low_bytes_of_each_code(frames, channels):
+    rng = np.random.default_rng(frames * 10 + channels)
+    codes = rng.integers(-2 ** 23, 2 ** 23, (frames, channels)).astype(np.int32)
+    codes[0, 0], codes[-1, -1] = -2 ** 23, 2 ** 23 - 1          # the extreme codes
+    n = codes.size
+    # analytic: a 24-bit little-endian sample is the low three bytes of its two's-complement int32, in
+    # the order of the samples (numpy's own byte view is the oracle); big-endian is the same three reversed
+    little = np.ascontiguousarray(codes.reshape(-1).astype("<i4").view(np.uint8).reshape(-1, 4)[:, :3])
+    assert render.pack24(codes).view(np.uint8)[:3 * n].tobytes() == little.tobytes()
+    assert render.pack24(codes, big_endian=True).view(np.uint8)[:3 * n].tobytes() == little[:, ::-1].tobytes()
+
+
+@pytest.mark.parametrize("fmt", sorted(render._PACKED_24))
+@pytest.mark.parametrize("frames, channels", [(1, 1), (1001, 2), (4096, 1), (7, 5)])
+def test_packed_24_bit_output_is_byte_identical_to_libsndfile(tmp_path, fmt, frames, channels):
+    # oracle: libsndfile's own conversion, which takes the top 24 bits of int32 data (the path every
+    # other subtype still goes through); chainrun packs PCM_24 itself and hands libsndfile raw bytes
+    rng = np.random.default_rng(5)
+    y = rng.uniform(-1.2, 1.2, (channels, frames))          # beyond full scale too: the codes clip
+    y[0, 0] = -1.0
+    src = _source(frames, channels, fmt, "PCM_24")
+    written = []
+    for packed in (True, False):
+        path = tmp_path / f"{fmt}-{packed}.bin"
+        out = render._Output(str(path), src, fmt, "PCM_24")
+        assert out.packed                                      # this container takes the packed path
+        out.packed = packed
+        q = render.Quantiser("PCM_24", dither=False, seed=0)
+        half = frames // 2
+        out.put(q, y[:, :half])
+        out.put(q, y[:, half:])
+        out.close()
+        written.append(path.read_bytes())
+    assert written[0] == written[1]
+
+
+def test_packed_path_is_only_for_containers_it_knows(tmp_path):
+    # FLAC compresses and CAF is not in the table: both keep libsndfile's own conversion
+    for fmt in ("FLAC", "CAF"):
+        out = render._Output(str(tmp_path / f"x.{fmt.lower()}"), _source(10, 1, fmt, "PCM_24"), fmt, "PCM_24")
+        assert not out.packed
+        out.close()

@@ -169,6 +169,42 @@ def test_dither_does_not_depend_on_block_split(splits):
     np.testing.assert_array_equal(np.concatenate(parts), whole)
 
 
+@settings(max_examples=60, deadline=None)
+@given(seed=st.integers(0, 2 ** 32 - 1), subtype=st.sampled_from(["PCM_16", "PCM_24", "PCM_32"]),
+       dither=st.booleans(), level=st.sampled_from([0.5, 0.99, 0.9999, 1.0, 1.5]))
+def test_known_peak_never_changes_the_codes(seed, subtype, dither, level):
+    # property: the peak handed to the quantiser only lets it skip looking for codes out of range when
+    # none can be; codes and clip counts are those of the quantiser left to find out for itself
+    rng = np.random.default_rng(seed)
+    y = rng.uniform(-level, level, (2, 3000))
+    peak = float(np.max(np.abs(y)))
+    a = Quantiser(subtype, dither, 99).codes(y)
+    b = Quantiser(subtype, dither, 99).codes(y, peak=peak)
+    np.testing.assert_array_equal(a[0], b[0])
+    assert a[1] == b[1]
+
+
+def test_blas_runs_on_the_calling_thread_while_a_file_is_metered(tmp_path, write_audio, monkeypatch):
+    # --workers grants cores; BLAS (the true-peak meter's matrix products) must not take more of them
+    from threadpoolctl import threadpool_info
+
+    seen = []
+    real = render.Meter.update
+
+    def spy(self, block, extremes=None):
+        seen.extend(lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas")
+        return real(self, block, extremes)
+
+    monkeypatch.setattr(render.Meter, "update", spy)
+    src = probe(str(_noise_file(write_audio)))
+    out = tmp_path / "out"
+    out.mkdir()
+    for threads in (1, 2):
+        res = render_file(src, str(out / f"take{threads}.wav"), UNITY, 1.0, Policy(threads=threads), "take.wav")
+        assert res.status == "ok"
+    assert seen and set(seen) == {1}
+
+
 # =========================================================================== render_file: faults
 
 
@@ -191,7 +227,7 @@ def test_disk_full_on_the_third_block_delivers_nothing(tmp_path, write_audio, mo
     out.mkdir()
     dst = out / "take.wav"
     old = _older_output(dst) if older else None
-    real_write = sf.SoundFile.write
+    real_write, real_raw = sf.SoundFile.write, render._write_raw
     calls = []
 
     def full_disk(self, data):
@@ -200,7 +236,14 @@ def test_disk_full_on_the_third_block_delivers_nothing(tmp_path, write_audio, mo
             raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
         return real_write(self, data)
 
+    def full_disk_raw(f, words, nbytes):      # PCM_24 is packed by chainrun and written raw
+        calls.append(nbytes)
+        if len(calls) == 3:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        return real_raw(f, words, nbytes)
+
     monkeypatch.setattr(sf.SoundFile, "write", full_disk)
+    monkeypatch.setattr(render, "_write_raw", full_disk_raw)
     res = render_file(src, str(dst), RESONANCE, 50.0, Policy(on_over=on_over, block_size=1000), "take.wav")
     assert len(calls) == 3
     assert res.status == "failed" and res.output is None
