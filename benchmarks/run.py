@@ -3,19 +3,25 @@
     python benchmarks/run.py                 # full run (makes ~2.5 GB of test files in benchmarks/work/)
     python benchmarks/run.py --smoke         # seconds: tiny files, one round; checks the harness works
 
-A  ``chainrun run`` with every meter on (true peak included), one worker;
+A  ``chainrun run`` with every meter on (true peak included), one worker (``--workers 1``: one
+   core, every step in one thread, like B and C);
+A2 the same with two workers, which for a single file means its pipeline threads (the default on
+   a two-core machine);
 B  the plain script: soundfile.read the whole file, scipy.signal.sosfilt with the same SOS,
    soundfile.write;
 C  the I/O floor: read and write the same file in blocks with soundfile, no DSP.
 
-A, B and C run interleaved, round after round, each in its own process, so that a noisy
-neighbour slows all three alike; the figures are medians. Peak RSS is the whole process's
-(``ru_maxrss`` from ``os.wait4``). Separately: peak RSS of A on a short vs a long file,
-16 files with one vs two workers, digital silence after loud content vs noise (denormals),
-and true-peak metering on vs off.
+A, A2, B and C run interleaved, round after round, each in its own process, so that a noisy
+neighbour slows all of them alike; the figures are medians. Peak RSS is the whole process's
+(``ru_maxrss`` from ``os.wait4``), CPU time its user + system time. Each ratio is given twice:
+for the whole process (start-up, imports, design and reports included) and per extra second of
+audio (the same steps on a short file subtracted, which leaves the cost that grows with the
+audio). Separately: peak RSS of A on a short vs a long file, 16 files with one vs two workers
+(whole process, and the part that grows with the audio: the same minus 16 one-second files),
+digital silence after loud content vs noise (denormals), and true-peak metering on vs off.
 
-Nothing here is asserted; the results are printed as a Markdown table (and written to
-``--out`` if given) for benchmarks/RESULTS.md.
+Nothing here is asserted; the results are printed as a Markdown list (and written to ``--out``
+if given) for benchmarks/RESULTS.md.
 
 The measuring process imports nothing heavier than the standard library: a child's
 ``ru_maxrss`` counts the pages it shared with its parent before ``exec``, so a parent that had
@@ -102,8 +108,15 @@ def make_noise_file(path: str, seconds: float, channels: int = 2, subtype: str =
             done += n
 
 
-def timed(cmd: list[str], env: dict | None = None) -> tuple[float, float]:
-    """Wall seconds and peak RSS (MB) of one child process."""
+class Run:
+    """One child process: wall seconds, CPU seconds (user + system), peak RSS in MB."""
+
+    def __init__(self, wall: float, cpu: float, rss: float):
+        self.wall, self.cpu, self.rss = wall, cpu, rss
+
+
+def timed(cmd: list[str], env: dict | None = None) -> Run:
+    """Run one child process to its end and measure it."""
     t0 = time.perf_counter()
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
     _, status, usage = os.wait4(proc.pid, 0)
@@ -113,25 +126,36 @@ def timed(cmd: list[str], env: dict | None = None) -> tuple[float, float]:
     code = os.waitstatus_to_exitcode(status)
     if code not in (0, 1):
         raise SystemExit(f"benchmark step failed ({code}): {' '.join(cmd)}\n{err}")
-    return wall, usage.ru_maxrss / 1024.0
+    return Run(wall, usage.ru_utime + usage.ru_stime, usage.ru_maxrss / 1024.0)
 
 
 def chainrun_cmd(recipe: str, inputs: list[str], out: str, *extra: str) -> list[str]:
     return [sys.executable, "-m", "chainrun", "run", recipe, *inputs, "-o", out, "--redo", *extra]
 
 
-def median_rounds(steps: dict[str, list[str]], rounds: int, before=None) -> dict[str, tuple[float, float]]:
-    """Run every step once per round, interleaved; medians of wall time and of peak RSS."""
-    times: dict[str, list[float]] = {k: [] for k in steps}
-    rss: dict[str, list[float]] = {k: [] for k in steps}
+class Medians:
+    """Medians over rounds of wall time, CPU time and peak RSS, per step."""
+
+    def __init__(self, runs: dict[str, list[Run]]):
+        self.runs = runs
+
+    def wall(self, k: str) -> float:
+        return statistics.median(r.wall for r in self.runs[k])
+
+    def cpu(self, k: str) -> float:
+        return statistics.median(r.cpu for r in self.runs[k])
+
+    def rss(self, k: str) -> float:
+        return statistics.median(r.rss for r in self.runs[k])
+
+
+def median_rounds(steps: dict[str, list[str]], rounds: int) -> Medians:
+    """Run every step once per round, interleaved."""
+    runs: dict[str, list[Run]] = {k: [] for k in steps}
     for _ in range(rounds):
         for name, cmd in steps.items():
-            if before:
-                before()
-            w, m = timed(cmd)
-            times[name].append(w)
-            rss[name].append(m)
-    return {k: (statistics.median(times[k]), statistics.median(rss[k])) for k in steps}
+            runs[name].append(timed(cmd))
+    return Medians(runs)
 
 
 def machine() -> str:
@@ -181,6 +205,7 @@ def main(argv: list[str] | None = None) -> int:
     main_s = 5.0 if smoke else 600.0            # the 10-minute file
     short_s, long_s = (2.0, 6.0) if smoke else (60.0, 3600.0)
     many_s, many_n = (1.0, 4) if smoke else (60.0, 16)
+    few_s = 0.2 if smoke else 1.0              # the small batch whose time is subtracted
     work = args.work
     os.makedirs(work, exist_ok=True)
     scratch = tempfile.mkdtemp(prefix="out-", dir=work)
@@ -214,33 +239,46 @@ def main(argv: list[str] | None = None) -> int:
         return os.path.join(scratch, name)
 
     short = need(f"noise-{short_s:g}s.wav", short_s)
-    print("A/B/C interleaved...", file=sys.stderr)
-    abc = median_rounds({
-        "A chainrun (all meters, 1 worker)": chainrun_cmd(recipe, [main_file], out("a"), "--workers", "1"),
-        "B plain script (read all, sosfilt, write)": [sys.executable, plain, main_file, out("b.wav"), sos_path],
-        "C I/O floor (blocks, no DSP)": [sys.executable, floor, main_file, out("c.wav")],
-        "A on the short file": chainrun_cmd(recipe, [short], out("a-short"), "--workers", "1"),
-        "C on the short file": [sys.executable, floor, short, out("c-short.wav")],
+    print("A/A2/B/C interleaved...", file=sys.stderr)
+    names = {"A": "A chainrun, one worker (all meters, one core)",
+             "A2": "A2 chainrun, two workers (all meters, the file's pipeline threads)",
+             "B": "B plain script (read all, sosfilt, write)",
+             "C": "C I/O floor (blocks, no DSP)"}
+    m = median_rounds({
+        "A": chainrun_cmd(recipe, [main_file], out("a"), "--workers", "1"),
+        "A2": chainrun_cmd(recipe, [main_file], out("a2"), "--workers", "2"),
+        "B": [sys.executable, plain, main_file, out("b.wav"), sos_path],
+        "C": [sys.executable, floor, main_file, out("c.wav")],
+        "A short": chainrun_cmd(recipe, [short], out("a-short"), "--workers", "1"),
+        "A2 short": chainrun_cmd(recipe, [short], out("a2-short"), "--workers", "2"),
+        "C short": [sys.executable, floor, short, out("c-short.wav")],
     }, rounds)
-    (ta, ma), (tb, mb), (tc, mc), (ta_s, _), (tc_s, _) = abc.values()
     lines += [f"## Stereo 48 kHz PCM_24, {main_s:g} s of noise-like content, six biquads; medians of {rounds} rounds",
-              "", "| step | median time | times real time | peak RSS |", "| --- | ---: | ---: | ---: |"]
-    for name, (t, m) in list(abc.items())[:3]:
-        lines.append(f"| {name} | {t:.2f} s | {main_s / t:.0f}x | {m:.0f} MB |")
-    marginal = (ta - ta_s) / (tc - tc_s) if tc > tc_s else float("nan")
-    lines += ["", f"- A/B = {ta / tb:.2f} (target <= 0.8)", f"- A/C = {ta / tc:.2f} (target <= 1.3)",
-              f"- A/C per extra second of audio = {marginal:.2f}: (A - A_short) / (C - C_short) with the "
-              f"{short_s:g} s file (A_short {ta_s:.2f} s, C_short {tc_s:.2f} s), i.e. without the fixed cost of "
-              "start-up, design and reports",
-              f"- peak RSS of A = {ma:.0f} MB (target <= 150 MB)", ""]
+              "", "| step | median time | CPU time | times real time | peak RSS |", "| --- | ---: | ---: | ---: | ---: |"]
+    for k in ("A", "A2", "B", "C"):
+        lines.append(f"| {names[k]} | {m.wall(k):.2f} s | {m.cpu(k):.2f} s | {main_s / m.wall(k):.0f}x | "
+                     f"{m.rss(k):.0f} MB |")
+
+    def per_second(k: str) -> float:
+        """(step - step on the short file) / (C - C on the short file): the ratio that grows with the audio."""
+        dc = m.wall("C") - m.wall("C short")
+        return (m.wall(k) - m.wall(f"{k} short")) / dc if dc > 0 else float("nan")
+
+    lines += ["", f"- A/B = {m.wall('A') / m.wall('B'):.2f} (target <= 0.8); A2/B = {m.wall('A2') / m.wall('B'):.2f}",
+              f"- A/C = {m.wall('A') / m.wall('C'):.2f} whole process (target <= 1.3); "
+              f"A2/C = {m.wall('A2') / m.wall('C'):.2f}",
+              f"- per extra second of audio: A/C = {per_second('A'):.2f}, A2/C = {per_second('A2'):.2f} "
+              f"((step - step on the {short_s:g} s file) / (C - C on the {short_s:g} s file); short-file medians: "
+              f"A {m.wall('A short'):.2f} s, A2 {m.wall('A2 short'):.2f} s, C {m.wall('C short'):.2f} s)",
+              f"- peak RSS of A = {m.rss('A'):.0f} MB, of A2 = {m.rss('A2'):.0f} MB (target <= 150 MB)", ""]
 
     print("true peak on/off...", file=sys.stderr)
     tp = median_rounds({
         "on": chainrun_cmd(recipe, [main_file], out("tp-on"), "--workers", "1"),
         "off": chainrun_cmd(recipe, [main_file], out("tp-off"), "--workers", "1", "--no-true-peak"),
     }, rounds)
-    lines += [f"- true-peak metering adds {100 * (tp['on'][0] / tp['off'][0] - 1):+.0f} % to A "
-              f"({tp['on'][0]:.2f} s vs {tp['off'][0]:.2f} s; target <= +25 %)"]
+    lines += [f"- true-peak metering adds {100 * (tp.wall('on') / tp.wall('off') - 1):+.0f} % to A "
+              f"({tp.wall('on'):.2f} s vs {tp.wall('off'):.2f} s; target <= +25 %)"]
 
     print("silence vs noise...", file=sys.stderr)
     silent = need(f"loud-then-silence-{main_s:g}s.wav", main_s, silence_after=main_s * 0.05)
@@ -248,29 +286,41 @@ def main(argv: list[str] | None = None) -> int:
         "noise": chainrun_cmd(recipe, [main_file], out("dn-noise"), "--workers", "1"),
         "silence": chainrun_cmd(recipe, [silent], out("dn-silence"), "--workers", "1"),
     }, rounds)
-    lines += [f"- digital silence after loud content vs noise: {dn['silence'][0] / dn['noise'][0]:.2f} "
-              f"({dn['silence'][0]:.2f} s vs {dn['noise'][0]:.2f} s; target <= 1.2)"]
+    lines += [f"- digital silence after loud content vs noise: {dn.wall('silence') / dn.wall('noise'):.2f} "
+              f"({dn.wall('silence'):.2f} s vs {dn.wall('noise'):.2f} s; target <= 1.2)"]
 
     print("short vs long file RSS...", file=sys.stderr)
     long_ = need(f"noise-{long_s:g}s.wav", long_s)
-    _, rss_short = timed(chainrun_cmd(recipe, [short], out("short"), "--workers", "1"))
-    t_long, rss_long = timed(chainrun_cmd(recipe, [long_], out("long"), "--workers", "1"))
+    r_short = timed(chainrun_cmd(recipe, [short], out("short"), "--workers", "1"))
+    r_long = timed(chainrun_cmd(recipe, [long_], out("long"), "--workers", "1"))
+    r_long2 = timed(chainrun_cmd(recipe, [long_], out("long2"), "--workers", "2"))
     shutil.rmtree(out("long"), ignore_errors=True)
-    lines += [f"- peak RSS, {short_s:g} s file {rss_short:.0f} MB vs {long_s:g} s file {rss_long:.0f} MB: "
-              f"ratio {rss_long / rss_short:.2f} (target <= 1.15; the long file ran at {long_s / t_long:.0f}x real time)"]
+    shutil.rmtree(out("long2"), ignore_errors=True)
+    lines += [f"- peak RSS, {short_s:g} s file {r_short.rss:.0f} MB vs {long_s:g} s file {r_long.rss:.0f} MB: "
+              f"ratio {r_long.rss / r_short.rss:.2f} (target <= 1.15; the long file ran at {long_s / r_long.wall:.0f}x "
+              f"real time with one worker; with two workers {long_s / r_long2.wall:.0f}x and {r_long2.rss:.0f} MB)"]
 
     print("one vs two workers...", file=sys.stderr)
-    many_dir = os.path.join(work, f"many-{many_n}x{many_s:g}s")
-    os.makedirs(many_dir, exist_ok=True)
-    for i in range(many_n):
-        need(os.path.join(many_dir, f"take-{i:02d}.wav"), many_s, seed=100 + i)
+    batches = {}
+    for label, seconds in (("long", many_s), ("short", few_s)):
+        folder = os.path.join(work, f"many-{many_n}x{seconds:g}s")
+        os.makedirs(folder, exist_ok=True)
+        for i in range(many_n):
+            need(os.path.join(folder, f"take-{i:02d}.wav"), seconds, seed=100 + i)
+        batches[label] = folder
     wk = median_rounds({
-        "1": chainrun_cmd(recipe, [many_dir], out("w1"), "--workers", "1"),
-        "2": chainrun_cmd(recipe, [many_dir], out("w2"), "--workers", "2"),
+        "1": chainrun_cmd(recipe, [batches["long"]], out("w1"), "--workers", "1"),
+        "2": chainrun_cmd(recipe, [batches["long"]], out("w2"), "--workers", "2"),
+        "1 short": chainrun_cmd(recipe, [batches["short"]], out("w1s"), "--workers", "1"),
+        "2 short": chainrun_cmd(recipe, [batches["short"]], out("w2s"), "--workers", "2"),
     }, rounds)
-    lines += [f"- {many_n} files of {many_s:g} s: one worker {wk['1'][0]:.2f} s, two workers {wk['2'][0]:.2f} s: "
-              f"speed-up {wk['1'][0] / wk['2'][0]:.2f}x (target >= 1.8x on two cores; this machine has "
-              f"{os.cpu_count()} cores)", ""]
+    grow1, grow2 = wk.wall("1") - wk.wall("1 short"), wk.wall("2") - wk.wall("2 short")
+    lines += [f"- {many_n} files of {many_s:g} s, two workers vs one: whole process {wk.wall('1'):.2f} s vs "
+              f"{wk.wall('2'):.2f} s, speed-up {wk.wall('1') / wk.wall('2'):.2f}x; the part that grows with the "
+              f"audio (the same minus {many_n} files of {few_s:g} s: {wk.wall('1 short'):.2f} s and "
+              f"{wk.wall('2 short'):.2f} s) {grow1:.2f} s vs {grow2:.2f} s, speed-up "
+              f"{grow1 / grow2 if grow2 > 0 else float('nan'):.2f}x (target >= 1.8x on two cores; this machine has "
+              f"{os.cpu_count()} cores; CPU time one worker {wk.cpu('1'):.2f} s, two workers {wk.cpu('2'):.2f} s)", ""]
 
     shutil.rmtree(scratch, ignore_errors=True)
     text = "\n".join(lines)
