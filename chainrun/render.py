@@ -532,7 +532,7 @@ class _Scratch:
 _END = object()
 
 
-def _pipeline(items, transform, consume, overlap: bool = True, depth: int = 3) -> None:
+def _pipeline(items, transform, consume, overlap: bool = True, depth: int = 2) -> None:
     """Run ``items`` (an iterator) in a reader thread, ``transform`` here, ``consume`` in a writer thread.
 
     Without ``overlap``, the same three steps run one after the other in this thread.
