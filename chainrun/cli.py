@@ -376,7 +376,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="audio files or folders (searched recursively)")
     p.add_argument("-o", "--outdir", required=True, metavar="OUTDIR", help="output folder (created if needed)")
     p.add_argument("--workers", type=_positive("--workers"), metavar="N",
-                   help=f"files rendered at once, in separate processes (default: all cores, here {_cores()})")
+                   help=f"cores to keep busy (default: all, here {_cores()}): N files at once in separate "
+                        "processes; a file rendered alone overlaps its reading, filtering and writing; "
+                        "1 renders everything in one thread")
     p.add_argument("--block-size", type=_positive("--block-size"), metavar="N",
                    help="frames per block (default 65536); never changes the output")
     p.add_argument("--on-over", choices=("reject", "clip", "scale"),
