@@ -313,18 +313,32 @@ def probe_job(job: Job) -> Source | FileResult:
     return src
 
 
+def design_and_assess(recipe: Recipe, rate: int) -> tuple[Chain, Assessment]:
+    """The recipe designed and assessed at ``rate`` (what ``check``, ``plot`` and a batch all need).
+
+    Raises
+    ------
+    RecipeError
+        For a recipe that cannot be used at ``rate``, and also, located by
+        :func:`design_fault`, for a fault (any other exception) in design or guard.
+    """
+    try:
+        chain = design(recipe, rate)
+        return chain, assess(chain, recipe.guard, recipe)
+    except RecipeError:
+        raise
+    except Exception as fault:      # a fault, not a recipe error: still one located line
+        raise design_fault(recipe, rate, fault) from None
+
+
 def design_rates(recipe: Recipe, rates: set[int]) -> dict[int, RateDesign]:
     """Design and assess the recipe at every rate in the batch (pure, before any audio)."""
     out = {}
     for rate in sorted(rates):
         try:
-            chain = design(recipe, rate)
-            a = assess(chain, recipe.guard, recipe)
+            chain, a = design_and_assess(recipe, rate)
         except RecipeError as exc:
             out[rate] = RateDesign(rate, None, None, str(exc))
-            continue
-        except Exception as exc:     # a fault in design or guard: this rate cannot be used, the batch says why
-            out[rate] = RateDesign(rate, None, None, str(design_fault(recipe, rate, exc)))
             continue
         err = next((str(p) for p in a.problems if p.severity == "error"), None)
         out[rate] = RateDesign(rate, chain, a, err)
@@ -370,11 +384,10 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
     results = list(plan.skipped)
     probed: list[tuple[Job, Source]] = []
     for job in plan.jobs:
-        got = probe_job(job)
-        if isinstance(got, FileResult):
-            results.append(got)
+        src = probe_job(job)
+        if isinstance(src, FileResult):
+            results.append(src)
             continue
-        src = got
         probed.append((job, src))
     designs = design_rates(recipe, {src.rate for _, src in probed})
     work = []
@@ -480,44 +493,8 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
         return fail(too_long)
     if src.channels * policy.block_size > MAX_BLOCK_SAMPLES:
         policy = replace(policy, block_size=max(MIN_BLOCK, MAX_BLOCK_SAMPLES // src.channels))
-    r = render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
-                    relpath=job.relpath)
-    if r.status == "failed" and r.message.startswith(_SYSTEM_ERROR):
-        r.message = _write_failure(job.output, src, r.out_subtype, policy) or r.message
-    return r
-
-
-# render_file reports every libsndfile error as "not readable as audio: ...", and libsndfile says only
-# "System error" when a write fails (its errno text is not passed on): a full disk or a file size limit.
-_SYSTEM_ERROR = "not readable as audio: System error"
-
-
-def _write_failure(output: str, src: Source, subtype: str | None, policy: Policy) -> str | None:
-    """The likely cause of a libsndfile "System error" while writing ``output``, if one is evident."""
-    width = {"PCM_U8": 1, "PCM_S8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4, "FLOAT": 4, "DOUBLE": 8}
-    samples = src.frames * src.channels
-    need = samples * width.get(subtype or "", 8) + (samples * 8 if policy.on_over == "scale" else 0)
-    try:
-        import resource
-
-        soft = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
-        if soft != resource.RLIM_INFINITY and need > soft:
-            return (f"cannot write the output: file too large (this process may write files of up to {soft} "
-                    f"bytes, see ulimit -f; the output needs about {need}); nothing was delivered")
-    except (ImportError, OSError, ValueError):
-        pass
-    folder = os.path.dirname(output) or "."
-    try:
-        st = os.statvfs(folder)
-    except OSError:
-        return None
-    if st.f_flag & os.ST_RDONLY:
-        return "cannot write the output: read-only file system; nothing was delivered"
-    free = st.f_bavail * st.f_frsize
-    if free < need:
-        return (f"cannot write the output: no space left on device ({free} bytes free in {folder}, the output "
-                f"needs about {need}); nothing was delivered")
-    return None
+    return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
+                       relpath=job.relpath)
 
 
 # In a worker process: Ctrl-C (SIGINT, from the terminal or forwarded by the parent) stops the file being
@@ -559,8 +536,7 @@ def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) 
     try:
         if _STOP:
             return interrupted
-        # Every core is kept busy by the pool already: render this file's stages one after the other.
-        return _render_job(job, src, sos, bound, replace(policy, threads=1))
+        return _render_job(job, src, sos, bound, policy)     # execute gave it one thread: one core
     except KeyboardInterrupt:
         return interrupted
     finally:

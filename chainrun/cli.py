@@ -9,8 +9,6 @@ import sys
 import traceback
 
 from . import __version__
-from .design import design
-from .guard import assess
 from .recipe import RecipeError, load
 from .report import fmt_db, loudest, shown
 
@@ -71,17 +69,11 @@ def check_recipe(path: str, rates: tuple[int, ...]) -> dict:
         return entry
     entry.update(name=recipe.name, digest=recipe.digest, sections=len(recipe.sections))
     accepted = True
-    from .batch import design_fault
+    from .batch import design_and_assess
 
     for rate in rates:
         try:
-            try:
-                chain = design(recipe, rate)
-                a = assess(chain, recipe.guard, recipe)
-            except RecipeError:
-                raise
-            except Exception as fault:      # a fault, not a recipe error: still one located line
-                raise design_fault(recipe, rate, fault) from None
+            _, a = design_and_assess(recipe, rate)
         except RecipeError as exc:
             entry["errors"].append(str(exc))
             entry["rates"].append(dict.fromkeys(_ASSESSMENT_KEYS) | {"rate": rate, "accepted": False,
@@ -228,8 +220,8 @@ def cmd_run(args: argparse.Namespace) -> int:
         progress = _Progress(len(prep.work), sys.stderr.isatty())
         try:
             # With worker processes this process only waits, so the report's pictures are drawn
-            # meanwhile; rendering in-process keeps both cores busy already, and drawing afterwards
-            # takes no longer and about 10 MB less peak memory.
+            # meanwhile. Rendering in-process has the cores --workers grants busy already (one
+            # worker: one core; one file: its pipeline threads), so the pictures come afterwards.
             draw_early = workers > 1 and len(prep.work) > 1
             result = execute(prep, workers=workers, progress=progress, resume=not args.redo,
                              started=(lambda: pictures.update(draw_pictures(recipe, prep.designs)))
@@ -316,17 +308,11 @@ PLOT_SUFFIXES = (".png", ".svg")
 def cmd_plot(args: argparse.Namespace) -> int:
     if os.path.splitext(args.output)[1].lower() not in PLOT_SUFFIXES:
         raise UsageError(f"{args.output}: error: the picture must be a .png or .svg file")
-    from .batch import design_fault
+    from .batch import design_and_assess
 
     try:
         recipe = load(args.recipe)
-        try:
-            chain = design(recipe, args.rate)
-            assessment = assess(chain, recipe.guard, recipe)
-        except RecipeError:
-            raise
-        except Exception as fault:
-            raise design_fault(recipe, args.rate, fault) from None
+        chain, assessment = design_and_assess(recipe, args.rate)
     except RecipeError as exc:
         _err(str(exc))
         return EXIT_USAGE

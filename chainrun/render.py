@@ -464,10 +464,6 @@ def _sf_reason(f: sf.SoundFile | None, exc: BaseException) -> str:
     return text.replace("System error : ", "").lower()
 
 
-def _open_output(path: str, src: Source, fmt: str, subtype: str) -> _Output:
-    return _Output(path, src, fmt, subtype)
-
-
 class _Blocks:
     """Reads an input in blocks as channel-major float64 and checks it for length and NaN.
 
@@ -797,7 +793,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             res.over_db = over if over > 0 else None
             # Pass 2: scale, meter, quantise, write.
             out_meter = Meter(src.rate, src.channels, full_scale=out_fs, **meter_args)
-            with _open_output(tmp, src, fmt, out_subtype) as out:
+            with _Output(tmp, src, fmt, out_subtype) as out:
                 def pass2(y):
                     extremes = y.max(axis=1), y.min(axis=1)
                     out_meter.update(y, extremes)
@@ -815,7 +811,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             out_meter = Meter(src.rate, src.channels, full_scale=min(out_fs, ceiling) if clip else out_fs,
                               **meter_args)
             reader = _Blocks(src, block, in_meter)
-            out = _open_output(tmp, src, fmt, out_subtype)
+            out = _Output(tmp, src, fmt, out_subtype)
             rejecting = [False]
             try:
                 def process(item):

@@ -48,7 +48,6 @@ def loudest(reading, attr: str) -> float | None:
     return max(vals) if vals else None
 
 
-
 def shown(path: str | None) -> str | None:
     """A path (or any text) on one line: bytes that are not UTF-8 shown as \\xNN, control characters
     (a newline in a file name, a terminal escape) as \\n, \\x1b and so on."""
