@@ -393,6 +393,22 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _from_ctrl_c(exc: BaseException) -> bool:
+    """True when ``exc`` wraps a KeyboardInterrupt.
+
+    Python turns a Ctrl-C that lands in some places (a descriptor's __set_name__
+    while a module defines its classes, e.g. during matplotlib's import) into a
+    RuntimeError whose cause is the KeyboardInterrupt; it is still a Ctrl-C.
+    """
+    seen = set()
+    while exc is not None and id(exc) not in seen:
+        if isinstance(exc, KeyboardInterrupt):
+            return True
+        seen.add(id(exc))
+        exc = exc.__cause__ or exc.__context__
+    return False
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``chainrun`` console script; returns the exit status."""
     parser = build_parser()
@@ -415,6 +431,9 @@ def main(argv: list[str] | None = None) -> int:
     except BrokenPipeError:
         return EXIT_NOT_OK
     except Exception as exc:  # a bug, not bad input: say so in one line
+        if _from_ctrl_c(exc):
+            _err("chainrun: interrupted; no partial file was left")
+            return EXIT_NOT_OK
         _err(f"chainrun: internal error: {type(exc).__name__}: {exc} "
              "(set CHAINRUN_DEBUG=1 for the traceback and please report it)")
         if os.environ.get("CHAINRUN_DEBUG"):

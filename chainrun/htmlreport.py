@@ -497,10 +497,15 @@ def draw_pictures(recipe, designs: dict) -> dict:
     """
     from concurrent.futures import ThreadPoolExecutor
 
-    from .plot import response_svg
+    def draw(d) -> str:
+        # Imported here, in the drawing thread: matplotlib takes ~0.4 s to import, and a Ctrl-C landing in
+        # the middle of that import in the main thread would surface as a RuntimeError from class creation.
+        from .plot import response_svg
+
+        return response_svg(recipe, d.chain, d.assessment)
 
     pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="chainrun-pictures")
-    futures = {rate: pool.submit(response_svg, recipe, d.chain, d.assessment)
+    futures = {rate: pool.submit(draw, d)
                for rate, d in sorted(designs.items()) if d.chain is not None and d.assessment is not None}
     pool.shutdown(wait=False)
     return futures
