@@ -345,6 +345,37 @@ def pack24(codes: np.ndarray, out: np.ndarray | None = None, big_endian: bool = 
     return out[:whole // 4 * 3]
 
 
+def unpack24(words: np.ndarray, frames: int, channels: int, out: np.ndarray,
+             scratch: np.ndarray | None = None) -> np.ndarray:
+    """Packed little-endian 3-byte samples -> channel-major float64, the values libsndfile reads.
+
+    The inverse of :func:`pack24`: ``words`` holds the bytes of ``frames * channels``
+    interleaved samples viewed as uint32 (padded to a whole number of 12-byte groups).
+    Each group of three words holds four samples; each sample is moved into the top
+    24 bits of an int32 (``code << 8``), then scaled by 2**-31, which is exactly
+    ``code / 2**23``, libsndfile's normalised reading. The result is written into
+    ``out[:, :frames]`` (shape channels x at least frames) and returned; ``scratch``
+    (uint32, at least as long as the samples rounded up to four) saves an allocation.
+    """
+    n = frames * channels
+    groups = -(-n // 4)
+    w = words[:3 * groups].reshape(-1, 3)
+    if scratch is None or scratch.size < 4 * groups:
+        scratch = np.empty(4 * groups, dtype=np.uint32)
+    s = scratch[:4 * groups].reshape(-1, 4)
+    np.left_shift(w[:, 0], 8, out=s[:, 0])
+    np.right_shift(w[:, 0], 16, out=s[:, 1])
+    s[:, 1] &= 0xFF00
+    s[:, 1] |= w[:, 1] << 16
+    np.right_shift(w[:, 1], 8, out=s[:, 2])
+    s[:, 2] &= 0xFFFF00
+    s[:, 2] |= w[:, 2] << 24
+    np.bitwise_and(w[:, 2], 0xFFFFFF00, out=s[:, 3])
+    codes = s.reshape(-1)[:n].view(np.int32).reshape(frames, channels)
+    np.multiply(codes.T, 2.0 ** -31, out=out[:, :frames])
+    return out[:, :frames]
+
+
 _NAME_MAX = 255          # bytes in one file name on the usual file systems
 
 
@@ -464,31 +495,76 @@ def _sf_reason(f: sf.SoundFile | None, exc: BaseException) -> str:
     return text.replace("System error : ", "").lower()
 
 
+# Containers whose PCM_24 samples chainrun reads raw (sf_read_raw) and unpacks itself, with the
+# four bytes their files start with. All are little-endian; a big-endian RIFX file also reports
+# itself as WAV, and the first bytes tell it apart.
+_UNPACKED_24 = {
+    "WAV": b"RIFF",
+    "WAVEX": b"RIFF",
+    "RF64": b"RF64",
+    "W64": b"riff",    # the first bytes of Wave64's 'riff' GUID
+}
+
+
+def _reads_raw(src: Source) -> bool:
+    """True if ``src`` holds little-endian packed PCM_24 that :func:`unpack24` can read."""
+    magic = _UNPACKED_24.get(src.format)
+    if src.subtype != "PCM_24" or magic is None or sys.byteorder != "little":
+        return False
+    try:
+        with open(src.path, "rb") as fh:
+            return fh.read(4) == magic
+    except OSError:
+        return False            # libsndfile's own reading will say what is wrong
+
+
 class _Blocks:
     """Reads an input in blocks as channel-major float64 and checks it for length and NaN.
 
-    Yields ``(frame0, x, peak)``: the index of the block's first frame, an array of
+    Yields ``(frame0, x, peak)``: the index of the block's first frame, a new array of
     shape (channels, frames) and its largest magnitude. With a meter, every block is metered as it is read.
+
+    Little-endian PCM_24 (the containers of ``_UNPACKED_24``) is read as raw bytes and
+    unpacked here (:func:`unpack24`); every other input goes through libsndfile's own
+    conversion. Both give the same numbers (tests/test_formats.py checks it for each
+    container), and the raw path costs about half as much (see benchmarks/RESULTS.md).
     """
 
     def __init__(self, src: Source, block: int, meter: Meter | None = None):
         self.src, self.block, self.meter = src, block, meter
+        self.raw = _reads_raw(src)
         self.f = sf.SoundFile(_sf_path(src.path), "r")
-        self.buf = np.empty((block, src.channels), dtype=np.float64)
+        if self.raw:
+            self.frame_bytes = 3 * src.channels
+            self.words = np.zeros(-(-block * src.channels // 4) * 3, dtype=np.uint32)
+            self.scratch = np.empty(self.words.size // 3 * 4, dtype=np.uint32)
+            self.ptr = sf._ffi.from_buffer(self.words)
+        else:
+            self.buf = np.empty((block, src.channels), dtype=np.float64)
         self.done = 0
 
     def __iter__(self):
         return self
 
+    def _read(self) -> np.ndarray:
+        """The next block, channel-major; empty at the end of the data."""
+        if not self.raw:
+            got = self.f.read(self.block, dtype="float64", always_2d=True, out=self.buf)
+            return got.T.copy()       # a new channel-major array: the buffer is reused for the next read
+        # libsndfile stops at the last frame of the data chunk and keeps the position.
+        got = int(sf._snd.sf_read_raw(self.f._file, self.ptr, self.block * self.frame_bytes))
+        n = max(got, 0) // self.frame_bytes
+        x = np.empty((self.src.channels, n), dtype=np.float64)
+        return unpack24(self.words, n, self.src.channels, x, self.scratch) if n else x
+
     def __next__(self) -> tuple[int, np.ndarray, float]:
-        got = self.f.read(self.block, dtype="float64", always_2d=True, out=self.buf)
-        n = len(got)
+        x = self._read()
+        n = x.shape[1]
         if n == 0:
             if self.done < self.src.frames:
                 raise AudioError(f"ended early: {self.done} of {self.src.frames} frames could be read "
                                  "(cut short, or changed while being read)")
             raise StopIteration
-        x = got.T.copy()       # a new channel-major array: the buffer is reused for the next read
         his, los = x.max(axis=1), x.min(axis=1)
         hi, lo = float(his.max()), float(los.min())
         if not (math.isfinite(hi) and math.isfinite(lo)):

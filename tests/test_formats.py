@@ -87,6 +87,60 @@ def test_packed_24_bit_output_is_byte_identical_to_libsndfile(tmp_path, fmt, fra
     assert written[0] == written[1]
 
 
+@pytest.mark.parametrize("frames, channels", [(1, 1), (3, 3), (1001, 2), (4096, 1), (7, 5)])
+def test_unpack24_reads_the_three_bytes_of_each_sample_as_code_over_2_to_the_23(frames, channels):
+    rng = np.random.default_rng(frames * 10 + channels + 1)
+    codes = rng.integers(-2 ** 23, 2 ** 23, (frames, channels)).astype(np.int32)
+    codes[0, 0], codes[-1, -1] = -2 ** 23, 2 ** 23 - 1          # the extreme codes
+    # analytic: the bytes are the low three of each little-endian int32 (numpy's byte view is the
+    # oracle), and a normalised reading is code / 2**23 (libsndfile's convention, which soundfile uses)
+    little = codes.reshape(-1).astype("<i4").view(np.uint8).reshape(-1, 4)[:, :3].reshape(-1)
+    padded = np.zeros(-(-little.size // 12) * 12, dtype=np.uint8)
+    padded[:little.size] = little
+    out = np.full((channels, frames + 3), np.nan)
+    got = render.unpack24(padded.view(np.uint32), frames, channels, out)
+    np.testing.assert_array_equal(got, codes.T / 2.0 ** 23)
+    assert np.isnan(out[:, frames:]).all()                      # nothing written past the frames
+
+
+def _blocks(path, block):
+    """Every block _Blocks reads from ``path``, joined, and whether it took the raw path."""
+    reader = render._Blocks(probe(str(path)), block)
+    try:
+        parts = [x for _, x, _ in reader]
+    finally:
+        reader.close()
+    return np.concatenate(parts, axis=1), reader.raw
+
+
+@pytest.mark.parametrize("fmt", sorted(render._UNPACKED_24))
+@pytest.mark.parametrize("frames, channels, block", [(1, 1, 16), (1001, 2, 64), (4096, 1, 4096), (777, 5, 100),
+                                                     (5000, 2, 65536)])
+def test_raw_24_bit_reading_gives_libsndfile_s_numbers(tmp_path, fmt, frames, channels, block):
+    # oracle: libsndfile's own conversion (soundfile.read as float64), which every other input still uses
+    rng = np.random.default_rng(frames + channels)
+    x = rng.uniform(-1.0, 1.0, (frames, channels))
+    x[0, 0], x[-1, -1] = -1.0, 1.0                               # the extreme codes (+1.0 clips to the top one)
+    path = tmp_path / f"in.{fmt.lower()}"
+    sf.write(path, x, 48000, subtype="PCM_24", format=fmt)
+    got, raw = _blocks(path, block)
+    assert raw                                                   # this container takes the raw path
+    np.testing.assert_array_equal(got, sf.read(path, dtype="float64", always_2d=True)[0].T)
+
+
+@pytest.mark.parametrize("fmt, subtype, endian", [("WAV", "PCM_24", "BIG"), ("AIFF", "PCM_24", "FILE"),
+                                                  ("FLAC", "PCM_24", "FILE"), ("WAV", "PCM_16", "FILE"),
+                                                  ("CAF", "PCM_24", "FILE")])
+def test_other_inputs_keep_libsndfile_s_reading(tmp_path, fmt, subtype, endian):
+    # a big-endian WAV (RIFX) reports itself as WAV, PCM_24: its first bytes send it to libsndfile
+    x = np.random.default_rng(3).uniform(-1.0, 1.0, (1001, 2))
+    path = tmp_path / f"in.{fmt.lower()}"
+    sf.write(path, x, 48000, subtype=subtype, format=fmt, endian=endian)
+    got, raw = _blocks(path, 100)
+    assert not raw
+    np.testing.assert_array_equal(got, sf.read(path, dtype="float64", always_2d=True)[0].T)
+
+
 def test_packed_path_is_only_for_containers_it_knows(tmp_path):
     # FLAC compresses and CAF is not in the table: both keep libsndfile's own conversion
     for fmt in ("FLAC", "CAF"):
