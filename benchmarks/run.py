@@ -11,7 +11,16 @@ B  the plain script: soundfile.read the whole file, scipy.signal.sosfilt with th
    soundfile.write;
 C  the I/O floor: read and write the same file in blocks with soundfile, no DSP.
 
-A, A2, B and C run interleaved, round after round, each in its own process, so that a noisy
+Two more floors show what the targets leave room for, in the same run:
+
+D  the filter floor: C plus scipy.signal.sosfilt with its state carried from block to block, and
+   nothing else (no meters, no checks, no atomic write): the least any streaming tool built on
+   sosfilt does;
+I  the import floor: a process that only imports numpy, soundfile and scipy.signal (I0: numpy and
+   soundfile only, what C imports), the start-up every run that designs and filters with
+   scipy.signal pays before it reads a sample.
+
+A, A2, B, C, D and I run interleaved, round after round, each in its own process, so that a noisy
 neighbour slows all of them alike; the figures are medians. Peak RSS is the whole process's
 (``ru_maxrss`` from ``os.wait4``), CPU time its user + system time. Each ratio is given twice:
 for the whole process (start-up, imports, design and reports included) and per extra second of
@@ -75,6 +84,22 @@ with sf.SoundFile(sys.argv[1]) as fin, sf.SoundFile(sys.argv[2], "w", info.sampl
     for block in fin.blocks(65536, dtype="float64"):
         fout.write(block)
 """
+
+FILTER_FLOOR_SCRIPT = """\
+import sys, soundfile as sf, scipy.signal as s, numpy as np
+sos = np.load(sys.argv[3])
+zi = None
+info = sf.info(sys.argv[1])
+with sf.SoundFile(sys.argv[1]) as fin, sf.SoundFile(sys.argv[2], "w", info.samplerate, info.channels,
+                                                      info.subtype, format=info.format) as fout:
+    for block in fin.blocks(65536, dtype="float64"):
+        if zi is None:
+            zi = np.zeros((sos.shape[0], 2, block.shape[1]))
+        y, zi = s.sosfilt(sos, block, axis=0, zi=zi)
+        fout.write(y)
+"""
+
+IMPORTS = {"I": "import numpy, soundfile, scipy.signal", "I0": "import numpy, soundfile"}
 
 
 def make_noise_file(path: str, seconds: float, channels: int = 2, subtype: str = "PCM_24",
@@ -217,10 +242,11 @@ def main(argv: list[str] | None = None) -> int:
     _child("--make-sos", recipe, sos_path)
     plain = os.path.join(work, "plain.py")
     floor = os.path.join(work, "floor.py")
-    with open(plain, "w") as fh:
-        fh.write(PLAIN_SCRIPT)
-    with open(floor, "w") as fh:
-        fh.write(FLOOR_SCRIPT)
+    filter_floor = os.path.join(work, "filter-floor.py")
+    for path, text in ((plain, PLAIN_SCRIPT), (floor, FLOOR_SCRIPT), (filter_floor, FILTER_FLOOR_SCRIPT)):
+        with open(path, "w") as fh:
+            fh.write(text)
+    imports = {k: [sys.executable, "-c", v] for k, v in IMPORTS.items()}
 
     def need(name: str, seconds: float, silence_after: float | None = None, seed: int = 7) -> str:
         path = os.path.join(work, name)
@@ -239,23 +265,29 @@ def main(argv: list[str] | None = None) -> int:
         return os.path.join(scratch, name)
 
     short = need(f"noise-{short_s:g}s.wav", short_s)
-    print("A/A2/B/C interleaved...", file=sys.stderr)
+    print("A/A2/B/C/D/I interleaved...", file=sys.stderr)
     names = {"A": "A chainrun, one worker (all meters, one core)",
              "A2": "A2 chainrun, two workers (all meters, the file's pipeline threads)",
              "B": "B plain script (read all, sosfilt, write)",
-             "C": "C I/O floor (blocks, no DSP)"}
+             "C": "C I/O floor (blocks, no DSP)",
+             "D": "D filter floor (C plus sosfilt, nothing else)",
+             "I": "I import floor (numpy, soundfile, scipy.signal; no audio)",
+             "I0": "I0 numpy and soundfile only (no audio)"}
     m = median_rounds({
         "A": chainrun_cmd(recipe, [main_file], out("a"), "--workers", "1"),
         "A2": chainrun_cmd(recipe, [main_file], out("a2"), "--workers", "2"),
         "B": [sys.executable, plain, main_file, out("b.wav"), sos_path],
         "C": [sys.executable, floor, main_file, out("c.wav")],
+        "D": [sys.executable, filter_floor, main_file, out("d.wav"), sos_path],
+        **imports,
         "A short": chainrun_cmd(recipe, [short], out("a-short"), "--workers", "1"),
         "A2 short": chainrun_cmd(recipe, [short], out("a2-short"), "--workers", "2"),
         "C short": [sys.executable, floor, short, out("c-short.wav")],
+        "D short": [sys.executable, filter_floor, short, out("d-short.wav"), sos_path],
     }, rounds)
     lines += [f"## Stereo 48 kHz PCM_24, {main_s:g} s of noise-like content, six biquads; medians of {rounds} rounds",
               "", "| step | median time | CPU time | times real time | peak RSS |", "| --- | ---: | ---: | ---: | ---: |"]
-    for k in ("A", "A2", "B", "C"):
+    for k in ("A", "A2", "B", "C", "D", "I", "I0"):
         lines.append(f"| {names[k]} | {m.wall(k):.2f} s | {m.cpu(k):.2f} s | {main_s / m.wall(k):.0f}x | "
                      f"{m.rss(k):.0f} MB |")
 
@@ -270,7 +302,11 @@ def main(argv: list[str] | None = None) -> int:
               f"- per extra second of audio: A/C = {per_second('A'):.2f}, A2/C = {per_second('A2'):.2f} "
               f"((step - step on the {short_s:g} s file) / (C - C on the {short_s:g} s file); short-file medians: "
               f"A {m.wall('A short'):.2f} s, A2 {m.wall('A2 short'):.2f} s, C {m.wall('C short'):.2f} s)",
-              f"- peak RSS of A = {m.rss('A'):.0f} MB, of A2 = {m.rss('A2'):.0f} MB (target <= 150 MB)", ""]
+              f"- peak RSS of A = {m.rss('A'):.0f} MB, of A2 = {m.rss('A2'):.0f} MB (target <= 150 MB)",
+              f"- the floors: D/C = {m.wall('D') / m.wall('C'):.2f} whole process, {per_second('D'):.2f} per extra "
+              f"second of audio (D short {m.wall('D short'):.2f} s); importing scipy.signal costs "
+              f"{m.wall('I') - m.wall('I0'):.2f} s and {m.rss('I') - m.rss('I0'):.0f} MB over numpy and soundfile "
+              f"(I - I0), which is {(m.wall('I') - m.wall('I0')) / m.wall('C'):.2f} of C", ""]
 
     print("true peak on/off...", file=sys.stderr)
     tp = median_rounds({
@@ -313,14 +349,19 @@ def main(argv: list[str] | None = None) -> int:
         "2": chainrun_cmd(recipe, [batches["long"]], out("w2"), "--workers", "2"),
         "1 short": chainrun_cmd(recipe, [batches["short"]], out("w1s"), "--workers", "1"),
         "2 short": chainrun_cmd(recipe, [batches["short"]], out("w2s"), "--workers", "2"),
+        **imports,
     }, rounds)
     grow1, grow2 = wk.wall("1") - wk.wall("1 short"), wk.wall("2") - wk.wall("2 short")
+    # If every start-up cost but the imports took no time and two workers halved the rest exactly:
+    best = (wk.wall("I") + grow1) / (wk.wall("I") + grow1 / 2) if grow1 > 0 else float("nan")
     lines += [f"- {many_n} files of {many_s:g} s, two workers vs one: whole process {wk.wall('1'):.2f} s vs "
               f"{wk.wall('2'):.2f} s, speed-up {wk.wall('1') / wk.wall('2'):.2f}x; the part that grows with the "
               f"audio (the same minus {many_n} files of {few_s:g} s: {wk.wall('1 short'):.2f} s and "
               f"{wk.wall('2 short'):.2f} s) {grow1:.2f} s vs {grow2:.2f} s, speed-up "
               f"{grow1 / grow2 if grow2 > 0 else float('nan'):.2f}x (target >= 1.8x on two cores; this machine has "
-              f"{os.cpu_count()} cores; CPU time one worker {wk.cpu('1'):.2f} s, two workers {wk.cpu('2'):.2f} s)", ""]
+              f"{os.cpu_count()} cores; CPU time one worker {wk.cpu('1'):.2f} s, two workers {wk.cpu('2'):.2f} s)",
+              f"- the whole-process speed-up two workers could reach if start-up were only the import floor I "
+              f"({wk.wall('I'):.2f} s in this group) and the growing part halved exactly: {best:.2f}x", ""]
 
     shutil.rmtree(scratch, ignore_errors=True)
     text = "\n".join(lines)

@@ -21,5 +21,6 @@ def test_benchmark_smoke_mode_runs(tmp_path):
     assert proc.returncode == 0, proc.stderr[-2000:]
     text = out.read_text()
     for line in ("A chainrun", "B plain script", "C I/O floor", "A/B =", "A/C =", "true-peak metering adds",
-                 "digital silence after loud content", "peak RSS,", "speed-up"):
+                 "digital silence after loud content", "peak RSS,", "speed-up", "D filter floor",
+                 "I import floor", "the floors: D/C =", "if start-up were only the import floor"):
         assert line in text, f"missing from the benchmark results: {line}"
