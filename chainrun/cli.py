@@ -214,18 +214,20 @@ def cmd_run(args: argparse.Namespace) -> int:
         _err(str(exc))
         return EXIT_USAGE
     try:
-        from .htmlreport import draw_pictures
+        from .htmlreport import draw_pictures, draw_pictures_aside
 
         pictures: dict = {}
         progress = _Progress(len(prep.work), sys.stderr.isatty())
         try:
-            # With worker processes this process only waits, so the report's pictures are drawn
-            # meanwhile. Rendering in-process has the cores --workers grants busy already (one
-            # worker: one core; one file: its pipeline threads), so the pictures come afterwards.
-            draw_early = workers > 1 and len(prep.work) > 1
+            # With one worker (one core) the report's pictures are drawn after the audio. With more,
+            # they are drawn while it renders: by a thread of this process when worker processes do the
+            # rendering (this one only waits), by a forked child process when a single file renders
+            # in this process's own threads (a thread here would compete with them for the GIL).
+            draw = None
+            if workers > 1:
+                draw = draw_pictures if len(prep.work) > 1 else draw_pictures_aside
             result = execute(prep, workers=workers, progress=progress, resume=not args.redo,
-                             started=(lambda: pictures.update(draw_pictures(recipe, prep.designs)))
-                             if draw_early else None)
+                             started=(lambda: pictures.update(draw(recipe, prep.designs))) if draw else None)
         finally:
             progress.close()
         result.notes[:0] = notes

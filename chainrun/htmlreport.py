@@ -20,9 +20,13 @@ are no per-file pictures, so a batch of thousands of files stays a plain table.
 from __future__ import annotations
 
 import html
+import json
 import math
+import os
 import re
 import shlex
+import signal
+import sys
 from typing import Any, Iterable
 
 from .batch import BatchResult
@@ -482,7 +486,9 @@ def _page(title: str, body: Iterable[str]) -> str:
 def _picture(batch: BatchResult, rate: int, d) -> str:
     ready = getattr(batch, "pictures", {}).get(rate)
     if ready is not None:
-        return ready.result()
+        svg = ready.result()
+        if svg is not None:
+            return svg
     from .plot import response_svg
 
     return response_svg(batch.recipe, d.chain, d.assessment)
@@ -509,6 +515,80 @@ def draw_pictures(recipe, designs: dict) -> dict:
                for rate, d in sorted(designs.items()) if d.chain is not None and d.assessment is not None}
     pool.shutdown(wait=False)
     return futures
+
+
+class _Aside:
+    """Response pictures drawn by a forked child process while this one renders audio.
+
+    The child draws the SVG of every rate, sends them as one JSON object down a
+    pipe and exits; it ignores SIGINT, so a Ctrl-C stops only the parent's
+    rendering and the report still gets its pictures. If the child fails in any
+    way, :meth:`result` gives None and the report draws the picture itself.
+    """
+
+    def __init__(self, recipe, designs: dict, rates: list[int]):
+        read_end, write_end = os.pipe()
+        pid = os.fork()
+        if pid == 0:                                   # the child: draw, send, exit without cleanup
+            code = 1
+            try:
+                os.close(read_end)
+                signal.signal(signal.SIGINT, signal.SIG_IGN)
+                from .plot import response_svg
+
+                svgs = {str(r): response_svg(recipe, designs[r].chain, designs[r].assessment) for r in rates}
+                with os.fdopen(write_end, "wb") as fh:
+                    fh.write(json.dumps(svgs).encode("utf-8"))
+                code = 0
+            except BaseException:                     # noqa: BLE001 - any failure: the parent draws instead
+                pass
+            finally:
+                os._exit(code)
+        os.close(write_end)
+        self._pid, self._fd = pid, read_end
+        self._svgs: dict | None = None
+
+    def _collect(self) -> dict:
+        try:
+            with os.fdopen(self._fd, "rb") as fh:
+                data = fh.read()
+            _, status = os.waitpid(self._pid, 0)
+            return json.loads(data) if os.waitstatus_to_exitcode(status) == 0 else {}
+        except (OSError, ValueError):
+            return {}
+
+    def picture(self, rate: int) -> "_AsidePicture":
+        return _AsidePicture(self, rate)
+
+
+class _AsidePicture:
+    """One rate's picture from an :class:`_Aside`, with a Future's ``result()``."""
+
+    def __init__(self, aside: _Aside, rate: int):
+        self.aside, self.rate = aside, rate
+
+    def result(self) -> str | None:
+        if self.aside._svgs is None:
+            self.aside._svgs = self.aside._collect()
+        return self.aside._svgs.get(str(self.rate))
+
+
+def draw_pictures_aside(recipe, designs: dict) -> dict:
+    """Start drawing the response picture of every designed rate in a forked child process.
+
+    For a process about to render in threads of its own: a child process does not
+    compete for the GIL. Call it before those threads start (a fork copies only
+    the calling thread). Returns ``{rate: picture}`` like :func:`draw_pictures`;
+    a picture's ``result()`` is None if the child failed. Where ``os.fork`` is not
+    available this is :func:`draw_pictures`.
+    """
+    if not hasattr(os, "fork") or not sys.platform.startswith("linux"):
+        return draw_pictures(recipe, designs)
+    rates = [rate for rate, d in sorted(designs.items()) if d.chain is not None and d.assessment is not None]
+    if not rates:
+        return {}
+    aside = _Aside(recipe, designs, rates)
+    return {rate: aside.picture(rate) for rate in rates}
 
 
 def render_html(data: dict, batch: BatchResult | None = None) -> str:

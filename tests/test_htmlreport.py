@@ -297,3 +297,119 @@ def test_clipped_below_full_scale_is_explained(tmp_path, capsys):
         assert f"chainrun hard-clipped {hot['clipped_by_chainrun']} sample(s) at the ceiling" in section
     else:
         assert '<th class="num">start frame</th>' in section
+
+
+# --- pictures drawn by a forked child process while this one renders ----------------------------
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+
+
+def _designed(rates):
+    """The marsh recipe and a design with its assessment per rate, as prepare() makes them."""
+    from types import SimpleNamespace
+
+    from chainrun import assess, design, load
+
+    recipe = load(os.path.join(ROOT, "recipes", "marsh-cleanup.yaml"))
+    designs = {}
+    for rate in rates:
+        chain = design(recipe, rate)
+        designs[rate] = SimpleNamespace(chain=chain, assessment=assess(chain, recipe.guard, recipe))
+    return recipe, designs
+
+
+def _only_in_a_child(monkeypatch, action):
+    """Patch plot.response_svg so that ``action()`` runs first in any process but this one."""
+    from chainrun import plot
+
+    parent, real = os.getpid(), plot.response_svg
+
+    def patched(*args, **kwargs):
+        if os.getpid() != parent:
+            action()
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(plot, "response_svg", patched)
+    return real
+
+
+def test_pictures_drawn_aside_are_those_drawn_here():
+    from types import SimpleNamespace
+
+    from chainrun import htmlreport
+    from chainrun.plot import response_svg
+
+    recipe, designs = _designed([44100, 48000])
+    designs[8000] = SimpleNamespace(chain=None, assessment=None)           # a rate without a chain: no picture
+    got = htmlreport.draw_pictures_aside(recipe, designs)
+    assert set(got) == {44100, 48000}
+    for rate in (44100, 48000):
+        d = designs[rate]
+        assert got[rate].result() == response_svg(recipe, d.chain, d.assessment)
+    with pytest.raises(ChildProcessError):                                 # the child was reaped: no zombie
+        os.waitpid(got[48000].aside._pid, os.WNOHANG)
+
+
+def test_a_failed_child_leaves_the_drawing_to_the_report(monkeypatch):
+    from types import SimpleNamespace
+
+    from chainrun import htmlreport
+
+    def fail():
+        raise RuntimeError("the drawing child fails")
+
+    real = _only_in_a_child(monkeypatch, fail)
+    recipe, designs = _designed([48000])
+    got = htmlreport.draw_pictures_aside(recipe, designs)
+    assert got[48000].result() is None
+    batch = SimpleNamespace(pictures=got, recipe=recipe)
+    d = designs[48000]
+    assert htmlreport._picture(batch, 48000, d) == real(recipe, d.chain, d.assessment)
+
+
+def test_a_ctrl_c_does_not_stop_the_drawing_child(monkeypatch, tmp_path):
+    # a Ctrl-C reaches the whole process group; it stops the rendering, and the report still needs its pictures
+    import signal
+    import time
+
+    from chainrun import htmlreport
+
+    marker = tmp_path / "drawing"
+
+    def slow():
+        marker.write_text("started")        # SIGINT is already ignored by now
+        time.sleep(0.5)
+
+    real = _only_in_a_child(monkeypatch, slow)
+    recipe, designs = _designed([48000])
+    got = htmlreport.draw_pictures_aside(recipe, designs)
+    deadline = time.monotonic() + 60
+    while not marker.exists() and time.monotonic() < deadline:
+        time.sleep(0.01)
+    assert marker.exists()
+    os.kill(got[48000].aside._pid, signal.SIGINT)
+    d = designs[48000]
+    assert got[48000].result() == real(recipe, d.chain, d.assessment)
+
+
+def test_one_file_with_two_workers_gets_its_picture_from_a_child(tmp_path, monkeypatch, capsys):
+    from chainrun import htmlreport
+
+    calls = []
+    real = htmlreport.draw_pictures_aside
+
+    def spy(recipe, designs):
+        calls.append(sorted(designs))
+        return real(recipe, designs)
+
+    monkeypatch.setattr(htmlreport, "draw_pictures_aside", spy)
+    src = tmp_path / "in"
+    src.mkdir()
+    sf.write(src / "take.wav", sine(0.5, RATE, 0.1), RATE, subtype="PCM_24")
+    recipe = tmp_path / "recipe.yaml"
+    recipe.write_text(RECIPE, encoding="utf-8")
+    assert main(["run", str(recipe), str(src), "-o", str(tmp_path / "out"), "--workers", "2"]) == 0
+    capsys.readouterr()
+    page = (tmp_path / "out" / "chainrun-report.html").read_text(encoding="utf-8")
+    assert calls == [[RATE]]
+    assert page.count("<svg") == 1
