@@ -523,7 +523,7 @@ class _Aside:
     The child draws the SVG of every rate, sends them as one JSON object down a
     pipe and exits; it ignores SIGINT, so a Ctrl-C stops only the parent's
     rendering and the report still gets its pictures. If the child fails in any
-    way, :meth:`result` gives None and the report draws the picture itself.
+    way, each picture's ``result()`` gives None and the report draws it itself.
     """
 
     def __init__(self, recipe, designs: dict, rates: list[int]):

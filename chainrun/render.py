@@ -527,7 +527,7 @@ class _Blocks:
     Little-endian PCM_24 (the containers of ``_UNPACKED_24``) is read as raw bytes and
     unpacked here (:func:`unpack24`); every other input goes through libsndfile's own
     conversion. Both give the same numbers (tests/test_formats.py checks it for each
-    container), and the raw path costs about half as much (see benchmarks/RESULTS.md).
+    container), and the raw path costs about 40 % less (see benchmarks/RESULTS.md).
     """
 
     def __init__(self, src: Source, block: int, meter: Meter | None = None):
