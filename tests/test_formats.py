@@ -95,12 +95,14 @@ def test_unpack24_reads_the_three_bytes_of_each_sample_as_code_over_2_to_the_23(
     # analytic: the bytes are the low three of each little-endian int32 (numpy's byte view is the
     # oracle), and a normalised reading is code / 2**23 (libsndfile's convention, which soundfile uses)
     little = codes.reshape(-1).astype("<i4").view(np.uint8).reshape(-1, 4)[:, :3].reshape(-1)
-    padded = np.zeros(-(-little.size // 12) * 12, dtype=np.uint8)
+    padded = np.full(little.size + 5, 0xFF, dtype=np.uint8)     # what follows the samples must not show
     padded[:little.size] = little
     out = np.full((channels, frames + 3), np.nan)
-    got = render.unpack24(padded.view(np.uint32), frames, channels, out)
+    got = render.unpack24(padded[:little.size + 1], frames, channels, out)
     np.testing.assert_array_equal(got, codes.T / 2.0 ** 23)
     assert np.isnan(out[:, frames:]).all()                      # nothing written past the frames
+    with pytest.raises(ValueError, match="one byte past the last sample"):
+        render.unpack24(padded[:little.size], frames, channels, out)
 
 
 def _blocks(path, block):
