@@ -291,6 +291,51 @@ class Quantiser:
             np.clip(v, self.lo, self.hi, out=v)
         return v.astype(np.int32 if self.dtype == np.int32 else np.int16), clipped
 
+    def packed24(self, y: np.ndarray, counted: np.ndarray | None = None, peak: float | None = None,
+                 big_endian: bool = False, out: np.ndarray | None = None) -> np.ndarray:
+        """PCM_24 only: the packed 3-byte samples of ``y`` (channels x frames), interleaved.
+
+        The codes are those of :meth:`codes`: the same dither draws, rounding,
+        clipping and count, in the same order. Each channel is quantised as one
+        contiguous row, and its codes are stored three bytes apart with a stride of
+        three bytes per channel (low byte first, or high byte first for AIFF), so no
+        interleaved int32 array is formed. The bytes go into ``out`` (uint8) when it
+        is large enough, else into a new array; the array is returned and its first
+        ``3 * y.size`` bytes are the samples.
+        """
+        if self.bits != 24:
+            raise ValueError("packed24 is for PCM_24")
+        channels, frames = y.shape
+        nbytes = 3 * channels * frames
+        if out is None or out.size < nbytes:
+            out = np.empty(nbytes, dtype=np.uint8)
+        r = self.rng.random((frames, channels, 2)) if self.rng is not None else None
+        safe = peak is not None and peak * self.scale + (1.0 if r is not None else 0.0) <= self.hi
+        v = np.empty(frames)
+        code = np.empty(frames, dtype=np.int32)
+        part = np.empty(frames, dtype=np.int32)
+        places = (2, 1, 0) if big_endian else (0, 1, 2)      # where bytes 0 (lowest), 1, 2 of a code go
+        clipped = 0
+        for c in range(channels):
+            np.multiply(y[c], self.scale, out=v)
+            if r is not None:
+                v += r[:, c, 0]
+                v -= r[:, c, 1]
+            np.rint(v, out=v)
+            if frames and not safe and (v.max() > self.hi or v.min() < self.lo):
+                out_of_range = (v > self.hi) | (v < self.lo)
+                if counted is not None:
+                    out_of_range &= ~counted[c]
+                clipped += int(np.count_nonzero(out_of_range))
+                np.clip(v, self.lo, self.hi, out=v)
+            np.copyto(code, v, casting="unsafe")            # whole numbers in range: exact
+            for k, place in enumerate(places):
+                byte = code if k == 0 else np.right_shift(code, 8 * k, out=part)
+                # int32 -> uint8 keeps the low eight bits (two's complement), the byte wanted
+                np.copyto(out[3 * c + place:nbytes:3 * channels], byte, casting="unsafe")
+        self.clipped += clipped
+        return out
+
     def __call__(self, y: np.ndarray, counted: np.ndarray | None = None,
                  peak: float | None = None) -> tuple[np.ndarray, int]:
         """Returns (frames x channels array to hand to libsndfile, number of samples clipped at full scale).
@@ -304,52 +349,11 @@ class Quantiser:
         return data, clipped
 
 
-def pack24(codes: np.ndarray, out: np.ndarray | None = None, big_endian: bool = False) -> np.ndarray:
-    """24-bit two's-complement codes (int32) -> the bytes of packed 3-byte samples, as a uint32 array.
-
-    Four samples become three 32-bit words, so the work is a few whole-array integer
-    operations instead of a byte-by-byte copy; libsndfile's own int -> 24-bit conversion
-    runs a per-sample loop that costs several times more (see benchmarks/RESULTS.md).
-    ``codes`` is read in C order (frames x channels, interleaved). Only for a
-    little-endian machine; ``big_endian`` gives the byte order of AIFF.
-
-    Returns
-    -------
-    numpy.ndarray
-        uint32 words (the last one may be only partly meaningful: take the first
-        ``3 * codes.size`` bytes).
-    """
-    flat = codes.reshape(-1)
-    n = flat.size
-    whole = -(-n // 4) * 4
-    if whole != n or big_endian:
-        padded = np.zeros(whole, dtype=np.int32)
-        padded[:n] = flat
-        if big_endian:      # bytes hi, mid, lo: byte-swap the code shifted into the top 24 bits
-            padded <<= 8
-            padded = padded.byteswap()
-        flat = padded
-    q = flat.view(np.uint32).reshape(-1, 4)
-    if out is None or out.size < whole // 4 * 3:
-        out = np.empty(whole // 4 * 3, dtype=np.uint32)
-    o = out[:whole // 4 * 3].reshape(-1, 3)
-    # word 0: sample 0 (3 bytes) + low byte of sample 1; word 1: its upper 2 bytes + 2 of sample 2; ...
-    np.bitwise_and(q[:, 0], 0xFFFFFF, out=o[:, 0])
-    o[:, 0] |= q[:, 1] << 24
-    np.right_shift(q[:, 1], 8, out=o[:, 1])
-    o[:, 1] &= 0xFFFF
-    o[:, 1] |= q[:, 2] << 16
-    np.right_shift(q[:, 2], 16, out=o[:, 2])
-    o[:, 2] &= 0xFF
-    o[:, 2] |= q[:, 3] << 8
-    return out[:whole // 4 * 3]
-
-
 def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
              scratch: np.ndarray | None = None) -> np.ndarray:
     """Packed little-endian 3-byte samples -> channel-major float64, the values libsndfile reads.
 
-    The inverse of :func:`pack24`. ``raw`` (uint8, contiguous) holds the bytes of
+    The inverse of :meth:`Quantiser.packed24`. ``raw`` (uint8, contiguous) holds the bytes of
     ``frames * channels`` interleaved samples and at least one byte more, of any
     value. Each sample is read as a little-endian int32 starting at its first byte
     (a strided view, three bytes per step, so its top byte belongs to the next
@@ -420,7 +424,7 @@ def _write_raw(f: sf.SoundFile, words: np.ndarray, nbytes: int) -> int:
 class _Output:
     """The temporary output file; libsndfile's errors become one line naming their cause.
 
-    PCM_24 in the containers of ``_PACKED_24`` is packed here (:func:`pack24`) and
+    PCM_24 in the containers of ``_PACKED_24`` is packed here (:meth:`Quantiser.packed24`) and
     written raw; every other subtype goes through libsndfile's own conversion.
     Both give the same bytes (tests/test_render.py checks it for each container).
     """
@@ -434,7 +438,7 @@ class _Output:
         sf._snd.sf_command(self.f._file, _SFC_SET_ADD_PEAK_CHUNK, sf._ffi.NULL, 0)
         self.packed = (subtype == "PCM_24" and fmt in _PACKED_24 and sys.byteorder == "little")
         self.big_endian = _PACKED_24.get(fmt, False)
-        self._words: np.ndarray | None = None
+        self._bytes: np.ndarray | None = None
 
     def write(self, data: np.ndarray) -> None:
         """Write what :class:`Quantiser` returns (frames x channels, libsndfile's layout)."""
@@ -452,10 +456,9 @@ class _Output:
         if not self.packed:
             self.write(quantise(y, counted, peak)[0])
             return
-        codes, _ = quantise.codes(y, counted, peak)
-        self._words = pack24(codes, self._words, self.big_endian)
-        nbytes = 3 * codes.size
-        if _write_raw(self.f, self._words, nbytes) != nbytes:
+        self._bytes = quantise.packed24(y, counted, peak, self.big_endian, self._bytes)
+        nbytes = 3 * y.size
+        if _write_raw(self.f, self._bytes, nbytes) != nbytes:
             raise AudioError(f"cannot write the output: {_sf_reason(self.f, OSError('short write'))}; "
                              "nothing was delivered")
 

@@ -50,22 +50,41 @@ def test_lossy_input_cannot_be_written_back_as_it_is():
 
 # --- 24-bit samples packed by chainrun --------------------------------------------------------------
 
+@pytest.mark.parametrize("dither", [False, True])
 @pytest.mark.parametrize("frames, channels", [(1, 1), (3, 3), (1001, 2), (4096, 1), (7, 5)])
-def test_pack24_gives_the_three_low_bytes_of_each_code(frames, channels):
+def test_packed24_gives_the_three_low_bytes_of_each_code(frames, channels, dither):
     rng = np.random.default_rng(frames * 10 + channels)
-    codes = rng.integers(-2 ** 23, 2 ** 23, (frames, channels)).astype(np.int32)
-    codes[0, 0], codes[-1, -1] = -2 ** 23, 2 ** 23 - 1          # the extreme codes
-    n = codes.size
+    y = rng.uniform(-1.1, 1.1, (channels, frames))                # beyond full scale too: some codes clip
+    y[0, 0] = -1.0                                                # the lowest code
+    counted = rng.random((channels, frames)) < 0.3                # some already counted by the clip policy
+    expected, expected_clipped = render.Quantiser("PCM_24", dither, seed=9).codes(y, counted)
     # analytic: a 24-bit little-endian sample is the low three bytes of its two's-complement int32, in
     # the order of the samples (numpy's own byte view is the oracle); big-endian is the same three reversed
-    little = np.ascontiguousarray(codes.reshape(-1).astype("<i4").view(np.uint8).reshape(-1, 4)[:, :3])
-    assert render.pack24(codes).view(np.uint8)[:3 * n].tobytes() == little.tobytes()
-    assert render.pack24(codes, big_endian=True).view(np.uint8)[:3 * n].tobytes() == little[:, ::-1].tobytes()
+    little = expected.reshape(-1).astype("<i4").view(np.uint8).reshape(-1, 4)[:, :3]
+    n = 3 * expected.size
+    for big_endian, want in ((False, little), (True, little[:, ::-1])):
+        q = render.Quantiser("PCM_24", dither, seed=9)
+        got = q.packed24(y, counted, big_endian=big_endian, out=np.full(n + 7, 0xAA, dtype=np.uint8))
+        assert got[:n].tobytes() == np.ascontiguousarray(want).tobytes()
+        assert (got[n:] == 0xAA).all()                            # nothing written past the samples
+        assert q.clipped == expected_clipped
+
+
+def test_packed24_skips_the_range_search_only_when_no_code_can_leave_the_range():
+    # the known peak lets the search be skipped; a wrong "peak" would show as a wrapped code, so give
+    # the true one and check the count and bytes still match the full search
+    y = np.array([[0.5, -0.999, 0.25, 1.0]])
+    q1, q2 = render.Quantiser("PCM_24", False, 0), render.Quantiser("PCM_24", False, 0)
+    a = q1.packed24(y)[:12]
+    b = q2.packed24(y, peak=1.0)[:12]
+    assert a.tobytes() == b.tobytes() and q1.clipped == q2.clipped == 1     # 1.0 is one above the top code
+    assert a[9:12].tobytes() == b"\xff\xff\x7f"                            # the top code, 2**23 - 1
 
 
 @pytest.mark.parametrize("fmt", sorted(render._PACKED_24))
 @pytest.mark.parametrize("frames, channels", [(1, 1), (1001, 2), (4096, 1), (7, 5)])
-def test_packed_24_bit_output_is_byte_identical_to_libsndfile(tmp_path, fmt, frames, channels):
+@pytest.mark.parametrize("dither", [False, True])
+def test_packed_24_bit_output_is_byte_identical_to_libsndfile(tmp_path, fmt, frames, channels, dither):
     # oracle: libsndfile's own conversion, which takes the top 24 bits of int32 data (the path every
     # other subtype still goes through); chainrun packs PCM_24 itself and hands libsndfile raw bytes
     rng = np.random.default_rng(5)
@@ -78,7 +97,7 @@ def test_packed_24_bit_output_is_byte_identical_to_libsndfile(tmp_path, fmt, fra
         out = render._Output(str(path), src, fmt, "PCM_24")
         assert out.packed                                      # this container takes the packed path
         out.packed = packed
-        q = render.Quantiser("PCM_24", dither=False, seed=0)
+        q = render.Quantiser("PCM_24", dither=dither, seed=0)
         half = frames // 2
         out.put(q, y[:, :half])
         out.put(q, y[:, half:])
