@@ -304,8 +304,8 @@ def main(argv: list[str] | None = None) -> int:
               f"A {m.wall('A short'):.2f} s, A2 {m.wall('A2 short'):.2f} s, C {m.wall('C short'):.2f} s)",
               f"- peak RSS of A = {m.rss('A'):.0f} MB, of A2 = {m.rss('A2'):.0f} MB (target <= 150 MB)",
               f"- the floors: D/C = {m.wall('D') / m.wall('C'):.2f} whole process, {per_second('D'):.2f} per extra "
-              f"second of audio (D short {m.wall('D short'):.2f} s); per extra second of audio A costs "
-              f"{m.wall('A') - m.wall('A short'):.2f} s and D {m.wall('D') - m.wall('D short'):.2f} s; "
+              f"second of audio (D short {m.wall('D short'):.2f} s); the {main_s - short_s:g} s of audio between the two "
+              f"files cost A {m.wall('A') - m.wall('A short'):.2f} s and D {m.wall('D') - m.wall('D short'):.2f} s; "
               f"importing scipy.signal costs "
               f"{m.wall('I') - m.wall('I0'):.2f} s and {m.rss('I') - m.rss('I0'):.0f} MB over numpy and soundfile "
               f"(I - I0), which is {(m.wall('I') - m.wall('I0')) / m.wall('C'):.2f} of C", ""]
