@@ -581,14 +581,12 @@ def claim_outdir(outdir: str) -> tuple[OutdirLock, list[str]]:
     return lock, notes
 
 
-def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True, started=None) -> BatchResult:
+def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True) -> BatchResult:
     """Render every prepared file, ``workers`` at a time; Ctrl-C stops cleanly.
 
     The caller holds OUTDIR (see :func:`claim_outdir`). With ``resume``, files the
     journal shows as delivered for the same job key, input and output are not
-    rendered again. ``progress`` is called with each finished FileResult;
-    ``started`` once, when the worker processes (if any) have been started, which
-    is the earliest moment the caller may start threads of its own.
+    rendered again. ``progress`` is called with each finished FileResult.
     """
     if not 1 <= workers <= MAX_WORKERS:
         raise BatchError(f"--workers {workers} is out of range; allowed: 1 to {MAX_WORKERS}")
@@ -642,8 +640,6 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
     if in_process:
         try:
-            if started:
-                started()
             for job, src in todo:
                 try:
                     r = _render_job(*args(job, src))
@@ -661,8 +657,6 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         try:
             for job, src in todo:     # inside the try: a Ctrl-C while submitting still stops the workers
                 pending[pool.submit(_render_in_worker, *args(job, src))] = job
-            if started:
-                started()          # with "fork", every worker exists once the first job is submitted
             while pending:
                 done, _ = wait(pending, return_when=FIRST_COMPLETED)
                 for fut in done:

@@ -214,22 +214,22 @@ def cmd_run(args: argparse.Namespace) -> int:
         _err(str(exc))
         return EXIT_USAGE
     try:
-        from .htmlreport import draw_pictures, draw_pictures_aside
+        from .htmlreport import draw_pictures_aside
 
         pictures: dict = {}
         progress = _Progress(len(prep.work), sys.stderr.isatty())
         try:
-            # With one worker (one core) the report's pictures are drawn after the audio. With more,
-            # they are drawn while it renders: by a thread of this process when worker processes do the
-            # rendering (this one only waits), by a forked child process when a single file renders
-            # in this process's own threads (a thread here would compete with them for the GIL).
-            draw = None
+            # The report's pictures (matplotlib) are drawn by a forked child process, so that neither
+            # matplotlib's memory nor its use of the GIL is ever the renderer's. With one worker (one
+            # core) the child runs after the audio; with more, while the audio renders: it is started
+            # before the pipeline threads or the worker processes exist.
             if workers > 1:
-                draw = draw_pictures if len(prep.work) > 1 else draw_pictures_aside
-            result = execute(prep, workers=workers, progress=progress, resume=not args.redo,
-                             started=(lambda: pictures.update(draw(recipe, prep.designs))) if draw else None)
+                pictures.update(draw_pictures_aside(recipe, prep.designs))
+            result = execute(prep, workers=workers, progress=progress, resume=not args.redo)
         finally:
             progress.close()
+        if workers == 1:
+            pictures.update(draw_pictures_aside(recipe, prep.designs))
         result.notes[:0] = notes
         result.pictures = pictures
         report_errors: list[str] = []

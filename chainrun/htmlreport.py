@@ -27,6 +27,7 @@ import re
 import shlex
 import signal
 import sys
+import tempfile
 from typing import Any, Iterable
 
 from .batch import BatchResult
@@ -518,44 +519,46 @@ def draw_pictures(recipe, designs: dict) -> dict:
 
 
 class _Aside:
-    """Response pictures drawn by a forked child process while this one renders audio.
+    """Response pictures drawn by a forked child process while this one goes on.
 
-    The child draws the SVG of every rate, sends them as one JSON object down a
-    pipe and exits; it ignores SIGINT, so a Ctrl-C stops only the parent's
-    rendering and the report still gets its pictures. If the child fails in any
-    way, each picture's ``result()`` gives None and the report draws it itself.
+    The child draws the SVG of every rate, writes them as one JSON object to an
+    unnamed temporary file (so it never waits for the parent) and exits; it
+    ignores SIGINT, so a Ctrl-C stops only the parent's rendering and the report
+    still gets its pictures. If the child fails in any way, each picture's
+    ``result()`` gives None and the report draws it itself.
     """
 
     def __init__(self, recipe, designs: dict, rates: list[int]):
-        read_end, write_end = os.pipe()
+        self._file = tempfile.TemporaryFile()
         pid = os.fork()
-        if pid == 0:                                   # the child: draw, send, exit without cleanup
+        if pid == 0:                                   # the child: draw, write, exit without cleanup
             code = 1
             try:
-                os.close(read_end)
                 signal.signal(signal.SIGINT, signal.SIG_IGN)
                 from .plot import response_svg
 
                 svgs = {str(r): response_svg(recipe, designs[r].chain, designs[r].assessment) for r in rates}
-                with os.fdopen(write_end, "wb") as fh:
-                    fh.write(json.dumps(svgs).encode("utf-8"))
+                self._file.write(json.dumps(svgs).encode("utf-8"))
+                self._file.flush()
                 code = 0
             except BaseException:                     # noqa: BLE001 - any failure: the parent draws instead
                 pass
             finally:
                 os._exit(code)
-        os.close(write_end)
-        self._pid, self._fd = pid, read_end
+        self._pid = pid
         self._svgs: dict | None = None
 
     def _collect(self) -> dict:
         try:
-            with os.fdopen(self._fd, "rb") as fh:
-                data = fh.read()
             _, status = os.waitpid(self._pid, 0)
-            return json.loads(data) if os.waitstatus_to_exitcode(status) == 0 else {}
+            if os.waitstatus_to_exitcode(status) != 0:
+                return {}
+            self._file.seek(0)
+            return json.loads(self._file.read())
         except (OSError, ValueError):
             return {}
+        finally:
+            self._file.close()
 
     def picture(self, rate: int) -> "_AsidePicture":
         return _AsidePicture(self, rate)
@@ -576,18 +579,22 @@ class _AsidePicture:
 def draw_pictures_aside(recipe, designs: dict) -> dict:
     """Start drawing the response picture of every designed rate in a forked child process.
 
-    For a process about to render in threads of its own: a child process does not
-    compete for the GIL. Call it before those threads start (a fork copies only
-    the calling thread). Returns ``{rate: picture}`` like :func:`draw_pictures`;
-    a picture's ``result()`` is None if the child failed. Where ``os.fork`` is not
-    available this is :func:`draw_pictures`.
+    A child process does not compete with this one's threads for the GIL, and
+    matplotlib's memory is never added to this process's. Call it while this
+    process has no threads of its own (a fork copies only the calling thread) and
+    before a fork-based process pool exists. Returns ``{rate: picture}`` like
+    :func:`draw_pictures`; a picture's ``result()`` is None if the child failed.
+    Where ``os.fork`` is not available this is :func:`draw_pictures`.
     """
     if not hasattr(os, "fork") or not sys.platform.startswith("linux"):
         return draw_pictures(recipe, designs)
     rates = [rate for rate, d in sorted(designs.items()) if d.chain is not None and d.assessment is not None]
     if not rates:
         return {}
-    aside = _Aside(recipe, designs, rates)
+    try:
+        aside = _Aside(recipe, designs, rates)
+    except OSError:            # no temporary file or no fork: the report draws the pictures itself
+        return {}
     return {rate: aside.picture(rate) for rate in rates}
 
 

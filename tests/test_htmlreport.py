@@ -392,7 +392,10 @@ def test_a_ctrl_c_does_not_stop_the_drawing_child(monkeypatch, tmp_path):
     assert got[48000].result() == real(recipe, d.chain, d.assessment)
 
 
-def test_one_file_with_two_workers_gets_its_picture_from_a_child(tmp_path, monkeypatch, capsys):
+@pytest.mark.parametrize("workers, files", [("1", 1), ("2", 1), ("2", 3)])
+def test_the_report_gets_its_picture_from_a_child(tmp_path, monkeypatch, capsys, workers, files):
+    # one worker: drawn after the audio; two: while it renders, in this process's threads (one file) or
+    # in worker processes (several); never in this process, so matplotlib never adds to the renderer
     from chainrun import htmlreport
 
     calls = []
@@ -403,13 +406,25 @@ def test_one_file_with_two_workers_gets_its_picture_from_a_child(tmp_path, monke
         return real(recipe, designs)
 
     monkeypatch.setattr(htmlreport, "draw_pictures_aside", spy)
+    from chainrun import plot
+
+    drawn_here, parent, draw = [], os.getpid(), plot.response_svg
+
+    def record(*args, **kwargs):
+        if os.getpid() == parent:
+            drawn_here.append(1)
+        return draw(*args, **kwargs)
+
+    monkeypatch.setattr(plot, "response_svg", record)
     src = tmp_path / "in"
     src.mkdir()
-    sf.write(src / "take.wav", sine(0.5, RATE, 0.1), RATE, subtype="PCM_24")
+    for i in range(files):
+        sf.write(src / f"take {i}.wav", sine(0.5, RATE, 0.1), RATE, subtype="PCM_24")
     recipe = tmp_path / "recipe.yaml"
     recipe.write_text(RECIPE, encoding="utf-8")
-    assert main(["run", str(recipe), str(src), "-o", str(tmp_path / "out"), "--workers", "2"]) == 0
+    assert main(["run", str(recipe), str(src), "-o", str(tmp_path / "out"), "--workers", workers]) == 0
     capsys.readouterr()
     page = (tmp_path / "out" / "chainrun-report.html").read_text(encoding="utf-8")
     assert calls == [[RATE]]
+    assert drawn_here == []                         # the child drew it; this process did not
     assert page.count("<svg") == 1
