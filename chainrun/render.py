@@ -849,7 +849,8 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
                     return y, max(float(extremes[0].max()), -float(extremes[1].min()))
 
                 def encode(item):
-                    out.put(quantise, *item)
+                    y, peak = item
+                    out.put(quantise, y, peak=peak)
                 _pipeline(store.blocks(block, gain), pass2, encode, policy.threads > 1)
             _remove_quietly(scratch)
             scratch = None

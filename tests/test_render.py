@@ -438,3 +438,24 @@ def test_scan_clip_regions_do_not_depend_on_block_size(write_audio):
         # analytic: the runs put into the file, counted at the largest codes (+32767 and -32768)
         assert r.clipped_regions == ((4090, 10), (8191, 2), (15000, 1))
         assert r.clipped_samples == 13 and r.clipped_region_count == 3
+
+
+@pytest.mark.parametrize("subtype", ["PCM_16", "PCM_24"])
+def test_scale_policy_hands_the_quantiser_its_peak_and_no_clip_mask(write_audio, tmp_path, monkeypatch, subtype):
+    # contract of Quantiser.codes/packed24: ``counted`` is a bool mask of samples already counted as clipped,
+    # ``peak`` is max |y| of the block; the scale pass has no clip mask, and its peak must not land in ``counted``
+    src = probe(str(_noise_file(write_audio, amp=0.9)))
+    seen = []
+    for name in ("codes", "packed24"):
+        real = getattr(Quantiser, name)
+
+        def spy(self, y, counted=None, peak=None, *rest, _real=real, **kw):
+            seen.append((counted, peak))
+            return _real(self, y, counted, peak, *rest, **kw)
+
+        monkeypatch.setattr(Quantiser, name, spy)
+    plus_12_db = np.array([[4.0, 0.0, 0.0, 1.0, 0.0, 0.0]])            # 0.9 * 4 must be scaled down
+    res = render_file(src, str(tmp_path / "out.wav"), plus_12_db, 4.0,
+                      Policy(on_over="scale", subtype=subtype), "take.wav")
+    assert res.status in ("ok", "clipped") and res.gain_db < 0       # the scale pass ran
+    assert seen and all(counted is None and isinstance(peak, float) for counted, peak in seen)
