@@ -512,10 +512,14 @@ def draw_pictures(recipe, designs: dict) -> dict:
         return response_svg(recipe, d.chain, d.assessment)
 
     pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="chainrun-pictures")
-    futures = {rate: pool.submit(draw, d)
-               for rate, d in sorted(designs.items()) if d.chain is not None and d.assessment is not None}
+    futures = {rate: pool.submit(draw, designs[rate]) for rate in _drawable(designs)}
     pool.shutdown(wait=False)
     return futures
+
+
+def _drawable(designs: dict) -> list[int]:
+    """The rates, in order, whose design has a chain and an assessment to draw."""
+    return [rate for rate, d in sorted(designs.items()) if d.chain is not None and d.assessment is not None]
 
 
 class _Aside:
@@ -548,6 +552,12 @@ class _Aside:
         self._pid = pid
         self._svgs: dict | None = None
 
+    def svg(self, rate: int) -> str | None:
+        """The picture of ``rate``; the first call waits for the child."""
+        if self._svgs is None:
+            self._svgs = self._collect()
+        return self._svgs.get(str(rate))
+
     def _collect(self) -> dict:
         try:
             _, status = os.waitpid(self._pid, 0)
@@ -571,9 +581,7 @@ class _AsidePicture:
         self.aside, self.rate = aside, rate
 
     def result(self) -> str | None:
-        if self.aside._svgs is None:
-            self.aside._svgs = self.aside._collect()
-        return self.aside._svgs.get(str(self.rate))
+        return self.aside.svg(self.rate)
 
 
 def draw_pictures_aside(recipe, designs: dict) -> dict:
@@ -588,7 +596,7 @@ def draw_pictures_aside(recipe, designs: dict) -> dict:
     """
     if not hasattr(os, "fork") or not sys.platform.startswith("linux"):
         return draw_pictures(recipe, designs)
-    rates = [rate for rate, d in sorted(designs.items()) if d.chain is not None and d.assessment is not None]
+    rates = _drawable(designs)
     if not rates:
         return {}
     try:

@@ -275,21 +275,32 @@ class Quantiser:
             return np.ascontiguousarray(y.T, dtype=self.dtype), 0
         v = np.empty(y.shape[::-1])            # (frames, channels), C-contiguous: the interleaved layout
         np.multiply(y.T, self.scale, out=v)
-        if self.rng is not None:
-            r = self.rng.random((v.shape[0], v.shape[1], 2))
+        r = self.rng.random((v.shape[0], v.shape[1], 2)) if self.rng is not None else None
+        clipped = self._round(v, r, None if counted is None else counted.T, self._safe(peak))
+        self.clipped += clipped
+        return v.astype(np.int32 if self.dtype == np.int32 else np.int16), clipped
+
+    def _safe(self, peak: float | None) -> bool:
+        """True when ``peak`` (max |y|, if known) shows that no code can leave the range."""
+        return peak is not None and peak * self.scale + (1.0 if self.rng is not None else 0.0) <= self.hi
+
+    def _round(self, v: np.ndarray, r: np.ndarray | None, counted: np.ndarray | None, safe: bool) -> int:
+        """Dither (``r[..., 0] - r[..., 1]``), round and hard-clip scaled samples ``v`` in place.
+
+        Returns how many samples were out of range, leaving out those ``counted``
+        marks (same shape as ``v``); with ``safe`` the search is skipped.
+        """
+        if r is not None:
             v += r[..., 0]
             v -= r[..., 1]
         np.rint(v, out=v)
-        clipped = 0
-        safe = peak is not None and peak * self.scale + (1.0 if self.rng is not None else 0.0) <= self.hi
-        if v.size and not safe and (v.max() > self.hi or v.min() < self.lo):
-            out_of_range = (v > self.hi) | (v < self.lo)
-            if counted is not None:
-                out_of_range &= ~counted.T
-            clipped = int(np.count_nonzero(out_of_range))
-            self.clipped += clipped
-            np.clip(v, self.lo, self.hi, out=v)
-        return v.astype(np.int32 if self.dtype == np.int32 else np.int16), clipped
+        if not v.size or safe or (v.max() <= self.hi and v.min() >= self.lo):
+            return 0
+        out_of_range = (v > self.hi) | (v < self.lo)
+        if counted is not None:
+            out_of_range &= ~counted
+        np.clip(v, self.lo, self.hi, out=v)
+        return int(np.count_nonzero(out_of_range))
 
     def packed24(self, y: np.ndarray, counted: np.ndarray | None = None, peak: float | None = None,
                  big_endian: bool = False, out: np.ndarray | None = None) -> np.ndarray:
@@ -310,7 +321,7 @@ class Quantiser:
         if out is None or out.size < nbytes:
             out = np.empty(nbytes, dtype=np.uint8)
         r = self.rng.random((frames, channels, 2)) if self.rng is not None else None
-        safe = peak is not None and peak * self.scale + (1.0 if r is not None else 0.0) <= self.hi
+        safe = self._safe(peak)
         v = np.empty(frames)
         code = np.empty(frames, dtype=np.int32)
         part = np.empty(frames, dtype=np.int32)
@@ -318,16 +329,7 @@ class Quantiser:
         clipped = 0
         for c in range(channels):
             np.multiply(y[c], self.scale, out=v)
-            if r is not None:
-                v += r[:, c, 0]
-                v -= r[:, c, 1]
-            np.rint(v, out=v)
-            if frames and not safe and (v.max() > self.hi or v.min() < self.lo):
-                out_of_range = (v > self.hi) | (v < self.lo)
-                if counted is not None:
-                    out_of_range &= ~counted[c]
-                clipped += int(np.count_nonzero(out_of_range))
-                np.clip(v, self.lo, self.hi, out=v)
+            clipped += self._round(v, None if r is None else r[:, c], None if counted is None else counted[c], safe)
             np.copyto(code, v, casting="unsafe")            # whole numbers in range: exact
             for k, place in enumerate(places):
                 byte = code if k == 0 else np.right_shift(code, 8 * k, out=part)
@@ -622,11 +624,6 @@ def _pipeline(items, transform, consume, overlap: bool = True, depth: int = 8) -
             if out is not None:
                 consume(out)
         return
-    _overlapped(items, transform, consume, depth)
-
-
-def _overlapped(items, transform, consume, depth: int) -> None:
-    """The threaded body of :func:`_pipeline`."""
     q_in: queue.Queue = queue.Queue(depth)
     q_out: queue.Queue = queue.Queue(depth)
     stop = threading.Event()
