@@ -7,6 +7,7 @@ is ever written outside OUTDIR, and OUTDIR may not lie inside an input folder.
 from __future__ import annotations
 
 import hashlib
+import importlib
 import json
 import multiprocessing
 import os
@@ -651,6 +652,9 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         except KeyboardInterrupt:
             interrupted = True
     else:
+        # The workers are forked: what the parent has imported they share. The guard has
+        # imported scipy.signal already; make sure, so that no worker pays its import again.
+        importlib.import_module("scipy.signal")
         pool = ProcessPoolExecutor(max_workers=min(workers, len(todo)), initializer=_worker_init,
                                    initargs=(os.getpid(),), mp_context=_POOL_CONTEXT)
         pending: dict = {}

@@ -26,7 +26,6 @@ from dataclasses import dataclass
 from typing import Any, Callable, Mapping
 
 import numpy as np
-from scipy import signal
 
 from .recipe import Recipe, RecipeError, Section
 
@@ -80,6 +79,7 @@ def _row(b: tuple[float, float, float], a: tuple[float, float, float]) -> np.nda
 def _pass(p: Mapping[str, Any], rate: float, btype: str) -> np.ndarray:
     """Butterworth of order 1..8 (scipy.signal.butter), or the cookbook biquad when q is given."""
     if "q" not in p:
+        from scipy import signal          # imported on first use: see chainrun/__init__.py
         return signal.butter(p["order"], p["freq"], btype=btype, fs=rate, output="sos")
     w0, c, s = _angular(p["freq"], rate)
     alpha = s / (2.0 * p["q"])
@@ -189,6 +189,7 @@ def _iir(p, rate):
     a0 = p["a"][0]
     b = np.asarray(p["b"], dtype=float) / a0
     a = np.asarray(p["a"], dtype=float) / a0
+    from scipy import signal              # imported on first use: see chainrun/__init__.py
     k = 0            # scipy.signal.normalize treats |b[i]| <= 1e-14 as a leading zero
     while k < len(b) - 1 and abs(b[k]) <= 1e-14:
         k += 1

@@ -27,7 +27,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, signal
 
 from .design import Chain
 from .recipe import Guard, Location, Recipe
@@ -106,6 +105,7 @@ def response_db(sos: np.ndarray, freqs: np.ndarray, rate: float) -> np.ndarray:
     response infinite there; scipy then yields inf or nan, read here as +inf dB,
     without numpy's divide/invalid warnings on stderr.
     """
+    from scipy import signal              # imported on first use: see chainrun/__init__.py
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         _, h = signal.freqz_sos(sos, worN=np.asarray(freqs, dtype=float), fs=rate)
         db = 20.0 * np.log10(np.abs(h))
@@ -146,6 +146,8 @@ def _extremes(sos: np.ndarray, rate: float, extra_hz: list[float]) -> tuple[floa
     grid = np.unique(grid)
     db = response_db(sos, grid, rate)
 
+    from scipy import optimize            # imported on first use: see chainrun/__init__.py
+
     def refine(i: int, sign: float) -> tuple[float, float]:
         lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
         best = (float(db[i]), float(grid[i]))
@@ -170,6 +172,7 @@ def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool, f
     has died away to rounding level; past IMPULSE_CAP samples the remaining tail
     is estimated as a geometric series at the largest pole radius.
     """
+    from scipy import signal              # imported on first use: see chainrun/__init__.py
     zi = np.zeros((len(sos), 2))
     impulse = np.zeros(IMPULSE_BLOCK)
     impulse[0] = 1.0

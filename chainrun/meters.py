@@ -29,7 +29,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal
 
 __all__ = ["Meter", "MeterReading", "ChannelReading"]
 
@@ -71,6 +70,7 @@ def _interpolation_branches(factor: int) -> np.ndarray:
     windowed-sinc prototype is the identity and is not returned: the samples
     themselves stand for it.
     """
+    from scipy import signal              # imported on first use: see chainrun/__init__.py
     half = _TP_TAPS // 2
     proto = signal.firwin(2 * half * factor + 1, 1.0 / factor, window=("kaiser", _TP_BETA)) * factor
     k = np.arange(_TP_TAPS)

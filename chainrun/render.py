@@ -29,7 +29,6 @@ from typing import Any
 
 import numpy as np
 import soundfile as sf
-from scipy import signal
 
 from .meters import Meter, MeterReading
 
@@ -702,6 +701,8 @@ class _Filter:
     DENORMAL_FLOOR = 1e-200
 
     def __init__(self, sos: np.ndarray, channels: int, bound: float):
+        from scipy.signal import sosfilt      # imported on first use: see chainrun/__init__.py
+        self._sosfilt = sosfilt
         self.sos = np.array(sos, dtype=np.float64)
         self.zi = np.zeros((len(self.sos), channels, 2))
         self.bound = bound
@@ -714,14 +715,14 @@ class _Filter:
         end = frame0 + n
         boundary = (frame0 // period + 1) * period        # first flush point after frame0
         if boundary >= end:                               # none inside the block (the usual case)
-            y, self.zi = signal.sosfilt(self.sos, x, axis=-1, zi=self.zi)
+            y, self.zi = self._sosfilt(self.sos, x, axis=-1, zi=self.zi)
             if boundary == end:
                 self._flush()
             return y
         y = np.empty_like(x)
         start = 0
         for stop in list(range(boundary - frame0, n, period)) + [n]:
-            y[:, start:stop], self.zi = signal.sosfilt(self.sos, x[:, start:stop], axis=-1, zi=self.zi)
+            y[:, start:stop], self.zi = self._sosfilt(self.sos, x[:, start:stop], axis=-1, zi=self.zi)
             if (frame0 + stop) % period == 0:
                 self._flush()
             start = stop

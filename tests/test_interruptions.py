@@ -317,3 +317,59 @@ def test_report_pictures_import_matplotlib_in_their_own_thread(monkeypatch):
     futures = htmlreport.draw_pictures(recipe, {48000: d})
     assert futures[48000].result().startswith("<svg")
     assert imported_in and all(t.startswith("chainrun-pictures") for t in imported_in), imported_in
+
+
+STALL_IN_SCIPY_IMPORT = r"""
+import sys, time
+marker = sys.argv.pop(1)
+
+
+class StallScipySignal:          # stands for a slow disk: the import of scipy.signal takes a minute
+    def find_spec(self, name, path=None, target=None):
+        if name == "scipy.signal":
+            open(marker, "w").close()
+            time.sleep(60)
+        return None
+
+
+sys.meta_path.insert(0, StallScipySignal())
+sys.argv[0] = "chainrun"
+from chainrun.cli import main
+sys.exit(main())
+"""
+
+
+@pytest.mark.parametrize("command", ["run", "check"])
+def test_a_ctrl_c_while_scipy_is_imported_is_one_line(command, season, tmp_path):
+    # scipy.signal is imported on first use, inside the command's own error handling, so a Ctrl-C in
+    # the first second of a run (while it imports) ends like any other: one line, exit 1, nothing made
+    d, _, hashes = season
+    marker, outdir = tmp_path / "importing", tmp_path / "out"
+    argv = ["run", d / "recipe.yaml", d / "in", "-o", outdir, "--workers", "1"] if command == "run" \
+        else ["check", d / "recipe.yaml"]
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONWARNINGS"}
+    proc = subprocess.Popen([sys.executable, "-c", STALL_IN_SCIPY_IMPORT, str(marker), *map(str, argv)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+    deadline = time.monotonic() + 60
+    while not marker.exists() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.01)
+    assert marker.exists(), proc.communicate(timeout=60)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 1, err
+    assert err.splitlines() == ["chainrun: interrupted; no partial file was left"]
+    if outdir.exists():
+        assert finals(outdir) == {} and temporaries(outdir) == []
+        assert not (outdir / LOCK_NAME).exists()
+    assert {rel: (d / "in" / rel).read_bytes() for rel in FILES} == hashes
+
+
+def test_the_command_line_starts_without_scipy_or_matplotlib():
+    # what makes --help, usage errors and a Ctrl-C at start-up answer at once: the package and its command
+    # line import numpy, soundfile and PyYAML only; scipy comes with the first design, meter or filter
+    code = ("import sys, chainrun, chainrun.cli, chainrun.batch, chainrun.report; "
+            "print(sorted({m.split('.')[0] for m in sys.modules} & {'scipy', 'matplotlib'}))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == "[]"
+

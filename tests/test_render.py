@@ -271,7 +271,7 @@ def test_filter_turning_nan_mid_file_delivers_nothing(tmp_path, write_audio, mon
             y[1, 17] = np.nan
         return y, zf
 
-    monkeypatch.setattr(render.signal, "sosfilt", nan_on_third)
+    monkeypatch.setattr(signal, "sosfilt", nan_on_third)
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
     assert res.status == "failed" and res.output is None
     assert "\n" not in res.message and "non-finite" in res.message
@@ -300,7 +300,7 @@ def test_unexpected_fault_is_a_failed_file_not_an_exception(tmp_path, write_audi
     def broken(*args, **kwargs):
         raise ValueError("simulated fault\nsecond line")
 
-    monkeypatch.setattr(render.signal, "sosfilt", broken)
+    monkeypatch.setattr(signal, "sosfilt", broken)
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
     # DESIGN.md: failed = "unreadable input, NaN samples, a fault; nothing delivered"; one line
     assert res.status == "failed" and "\n" not in res.message and "simulated fault" in res.message
