@@ -6,6 +6,7 @@ is ever written outside OUTDIR, and OUTDIR may not lie inside an input folder.
 """
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import importlib
 import json
@@ -15,6 +16,7 @@ import re
 import signal
 import stat
 import sys
+import threading
 import time
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field, replace
@@ -25,7 +27,7 @@ from .guard import Assessment, assess, check_raw_sections
 from .recipe import Recipe, RecipeError
 from .journal import Journal, LockedError, OutdirLock, clean_leftovers
 from .render import (DEFAULT_BLOCK, MAX_BLOCK, TEMP_TAG, AudioError, FileResult, Policy, Source, _sf_path, probe,
-                     render_file)
+                     allow_rendering, render_file, rendering_stopped, stop_rendering)
 
 __all__ = ["BatchError", "Job", "Plan", "RateDesign", "BatchResult", "discover", "prepare", "claim_outdir",
            "execute", "run_batch", "job_key"]
@@ -499,16 +501,10 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
 
 
 # In a worker process: Ctrl-C (SIGINT, from the terminal or forwarded by the parent) stops the file being
-# rendered (render_file removes its temporary file) and every file queued after it.
-_STOP = False
-_RENDERING = False
-
-
+# rendered at its next block (render_file removes its temporary file) and every file queued after it.
+# The handler only sets a flag: see render.stop_rendering for why it never raises.
 def _worker_sigint(signum, frame) -> None:
-    global _STOP
-    _STOP = True
-    if _RENDERING:
-        raise KeyboardInterrupt
+    stop_rendering()
 
 
 def _worker_init(parent: int | None = None) -> None:
@@ -529,19 +525,32 @@ def _worker_init(parent: int | None = None) -> None:
 
 
 def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
-    global _RENDERING
     interrupted = FileResult(job.input, job.relpath, "failed", INTERRUPTED, source=src)
-    if _STOP:
+    if rendering_stopped():
         return interrupted
-    _RENDERING = True
     try:
-        if _STOP:
-            return interrupted
         return _render_job(job, src, sos, bound, policy)     # execute gave it one thread: one core
     except KeyboardInterrupt:
         return interrupted
+
+
+@contextlib.contextmanager
+def _ctrl_c_stops_rendering():
+    """Rendering in this process: Ctrl-C stops the file at its next block, and the files after it.
+
+    Only in the main thread (where signal handlers live), and not when SIGINT is ignored (a
+    background job). The flag is cleared on the way out, so a later batch in the same process runs.
+    """
+    if threading.current_thread() is not threading.main_thread() \
+            or signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, lambda signum, frame: stop_rendering())
+    try:
+        yield
     finally:
-        _RENDERING = False
+        signal.signal(signal.SIGINT, previous)
+        allow_rendering()
 
 
 def job_key(recipe: Recipe, policy: Policy) -> str:
@@ -641,14 +650,17 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
     if in_process:
         try:
-            for job, src in todo:
-                try:
-                    r = _render_job(*args(job, src))
-                except Exception as exc:  # a fault outside render_file's own handling: this file only
-                    text = (str(exc).strip().splitlines() or [""])[0]
-                    r = FileResult(job.input, job.relpath, "failed", f"unexpected fault: {type(exc).__name__}: "
-                                   f"{text}; nothing was delivered", source=src)
-                finished(job, r)
+            with _ctrl_c_stops_rendering():
+                for job, src in todo:
+                    if rendering_stopped():
+                        raise KeyboardInterrupt
+                    try:
+                        r = _render_job(*args(job, src))
+                    except Exception as exc:  # a fault outside render_file's own handling: this file only
+                        text = (str(exc).strip().splitlines() or [""])[0]
+                        r = FileResult(job.input, job.relpath, "failed", f"unexpected fault: "
+                                       f"{type(exc).__name__}: {text}; nothing was delivered", source=src)
+                    finished(job, r)
         except KeyboardInterrupt:
             interrupted = True
     else:

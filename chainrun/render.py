@@ -517,6 +517,35 @@ def _reads_raw(src: Source) -> bool:
         return False            # libsndfile's own reading will say what is wrong
 
 
+# Ctrl-C, taken at a safe point. A SIGINT handler that raised KeyboardInterrupt could raise it
+# anywhere, even inside a finaliser (SoundFile.__del__), where Python prints the exception with a
+# traceback and drops it. The batch's handlers call stop_rendering() instead; the file being
+# rendered then raises KeyboardInterrupt as it starts its next block, in chainrun's own code, and
+# render_file removes its temporary file as for any other interruption.
+_stop_requested = False
+
+
+def stop_rendering() -> None:
+    """Ask the file being rendered to stop at its next block (safe to call from a signal handler)."""
+    global _stop_requested
+    _stop_requested = True
+
+
+def rendering_stopped() -> bool:
+    """True once :func:`stop_rendering` was called, until :func:`allow_rendering`."""
+    return _stop_requested
+
+
+def allow_rendering() -> None:
+    global _stop_requested
+    _stop_requested = False
+
+
+def _stop_point() -> None:
+    if _stop_requested:
+        raise KeyboardInterrupt
+
+
 class _Blocks:
     """Reads an input in blocks as channel-major float64 and checks it for length and NaN.
 
@@ -557,6 +586,7 @@ class _Blocks:
         return unpack24(self.bytes, n, self.src.channels, x, self.scratch) if n else x
 
     def __next__(self) -> tuple[int, np.ndarray, float]:
+        _stop_point()
         x = self._read()
         n = x.shape[1]
         if n == 0:
@@ -593,6 +623,7 @@ class _Scratch:
     def blocks(self, block: int, gain: float):
         with open(self.path, "rb") as fh:
             while True:
+                _stop_point()
                 raw = fh.read(block * self.channels * 8)
                 if not raw:
                     return

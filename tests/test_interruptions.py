@@ -373,3 +373,56 @@ def test_the_command_line_starts_without_scipy_or_matplotlib():
     assert out.returncode == 0, out.stderr
     assert out.stdout.strip() == "[]"
 
+
+class _FinaliserThatGetsCtrlC:
+    def __del__(self):
+        signal.raise_signal(signal.SIGINT)       # the Ctrl-C arrives while Python runs a finaliser
+
+
+@pytest.mark.parametrize("workers", ["1", "2"])
+def test_a_ctrl_c_inside_a_finaliser_still_stops_the_file(workers, tmp_path, write_audio, run_cli, monkeypatch):
+    # Seen once in the kill points above: a Ctrl-C landing in SoundFile.__del__. A handler that raised
+    # KeyboardInterrupt there had it printed with a traceback and dropped by Python, and the file went on.
+    # chainrun's handler only sets a flag; the file stops at its next block and nothing is delivered.
+    # (One file with --workers 2 renders in this process, with its pipeline threads.)
+    from chainrun import render
+
+    write_audio("in/long take.wav", np.random.default_rng(5).uniform(-0.3, 0.3, (40_000, 2)), 48000, "PCM_24")
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(RECIPE)
+    real, calls = render._Blocks._read, []
+
+    def read(self):
+        calls.append(1)
+        if len(calls) == 3:
+            _FinaliserThatGetsCtrlC()             # made and collected at once: its __del__ runs here
+            deadline = time.monotonic() + 10      # with threads, the main thread runs the handler soon after
+            while not render.rendering_stopped() and time.monotonic() < deadline:
+                time.sleep(0.001)
+        return real(self)
+
+    monkeypatch.setattr(render._Blocks, "_read", read)
+    before = signal.getsignal(signal.SIGINT)
+    status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", workers,
+                             "--block-size", "4000")
+    assert status == 1, err
+    assert "Exception ignored" not in err
+    assert "interrupted; 1 file(s) not rendered" in err
+    assert finals(tmp_path / "out") == {} and temporaries(tmp_path / "out") == []
+    assert len(calls) == 3                        # analytic: it stopped before reading the 4th of 10 blocks
+    assert signal.getsignal(signal.SIGINT) is before and not render.rendering_stopped()
+
+
+def test_a_worker_s_ctrl_c_handler_never_raises(tmp_path, write_audio):
+    # in a pool worker, the handler runs wherever the worker happens to be; it only asks the file to stop
+    from chainrun import batch, render
+
+    src = render.probe(str(write_audio("in/a.wav", np.zeros((1000, 1)), 48000, "PCM_16")))
+    job = batch.Job(src.path, "a.wav", str(tmp_path / "out.wav"))
+    try:
+        batch._worker_sigint(signal.SIGINT, None)           # would raise in the middle of anything if it could
+        assert render.rendering_stopped()
+        r = batch._render_in_worker(job, src, np.array([[1.0, 0, 0, 1, 0, 0]]), 1.0, render.Policy())
+        assert r.status == "failed" and r.message == batch.INTERRUPTED and not os.path.exists(job.output)
+    finally:
+        render.allow_rendering()
