@@ -373,7 +373,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="what to do when an output would pass the ceiling (default: the recipe's guard.on_over)")
     p.add_argument("--report", metavar="PATH", help="JSON report path (default OUTDIR/chainrun-report.json); "
                                                      "the CSV and HTML reports go beside it")
-    p.add_argument("--no-true-peak", action="store_true", help="skip true-peak metering (faster)")
+    p.add_argument("--no-true-peak", action="store_true",
+                   help="skip true-peak metering (faster); outputs are still metered against a recipe's "
+                        "true_peak_ceiling_dbtp")
     p.add_argument("--redo", action="store_true",
                    help="render every file again, even those an earlier run already delivered unchanged")
     p.set_defaults(func=cmd_run)

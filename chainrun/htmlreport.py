@@ -38,7 +38,7 @@ __all__ = ["render_html"]
 _STATUS_TEXT = {
     "failed": "unreadable input or a fault; nothing delivered",
     "rejected": "would pass the ceiling, or the recipe cannot be used at its rate; nothing delivered",
-    "clipped": "delivered, but chainrun hard-clipped samples",
+    "clipped": "delivered, but chainrun hard-clipped samples, or the true peak passes its ceiling",
     "ok": "delivered",
     "skipped": "not processed (not audio, or named twice)",
 }

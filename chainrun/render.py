@@ -797,6 +797,14 @@ def _over(peak: float, true_peak: float | None, policy: Policy) -> float:
     return over
 
 
+def _true_peak_over(reading: MeterReading, policy: Policy) -> float:
+    """dB by which the metered true peak passes the true-peak ceiling; -inf with no ceiling or no reading."""
+    true_peak = _max_tp(reading)
+    if policy.true_peak_ceiling_dbtp is None or true_peak is None:
+        return -math.inf
+    return _db(true_peak) - policy.true_peak_ceiling_dbtp
+
+
 def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Policy,
                 seed_key: str, relpath: str | None = None) -> FileResult:
     """Filter one file into ``dst`` atomically.
@@ -841,10 +849,13 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         filt = _Filter(sos, src.channels, bound)
         tmp = temp_path_for(dst)
 
-        meter_args = dict(true_peak=policy.true_peak, max_regions=policy.max_regions)
+        # A true-peak ceiling is always checked: without true-peak metering (--no-true-peak) the
+        # output is still metered for it, only the input is not.
+        out_true_peak = policy.true_peak or policy.true_peak_ceiling_dbtp is not None
+        meter_args = dict(true_peak=out_true_peak, max_regions=policy.max_regions)
         if policy.on_over == "scale":
             # Pass 1: filter to a float64 scratch file, metering the unscaled output.
-            pre = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=policy.true_peak, max_regions=0)
+            pre = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=out_true_peak, max_regions=0)
             scratch = tmp + ".f64"
             store = _Scratch(scratch, src.channels)
             reader = _Blocks(src, block, in_meter)
@@ -939,11 +950,20 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         _fsync_path(os.path.dirname(dst) or ".", directory=True)
         res.output = dst
         res.input_meters, res.output_meters = in_meter.result(), out_meter.result()
-        res.status = "clipped" if res.clipped_by_chainrun else "ok"
+        # Clipping holds the sample ceiling only: a true peak still over its ceiling is said, not hidden.
+        tp_left = _true_peak_over(res.output_meters, policy) if policy.on_over == "clip" else -math.inf
+        res.status = "clipped" if res.clipped_by_chainrun or tp_left > 0 else "ok"
         if res.status == "clipped":
-            res.message = f"{res.clipped_by_chainrun} sample(s) hard-clipped at the ceiling"
-            if res.over_db:
-                res.message += f" (the filtered peak passed it by {res.over_db:.2f} dB)"
+            said = []
+            if res.clipped_by_chainrun:
+                said.append(f"{res.clipped_by_chainrun} sample(s) hard-clipped at the ceiling")
+                sample_over = _db(filt.out_peak) - policy.ceiling_dbfs
+                if sample_over > 0:
+                    said[-1] += f" (the filtered peak passed it by {sample_over:.2f} dB)"
+            if tp_left > 0:
+                said.append(f"the true peak passes the true-peak ceiling by {tp_left:.2f} dB (clipping holds the "
+                            "sample ceiling only; on_over: scale or reject would hold it)")
+            res.message = "; ".join(said)
         elif res.gain_db:
             res.message = f"scaled by {res.gain_db:.2f} dB to fit the ceiling"
         return res

@@ -392,6 +392,48 @@ def test_reject_at_a_peak_one_rounding_above_the_ceiling(tmp_path, write_audio):
     assert files_in(out) == ["fs.wav"]
 
 
+@pytest.fixture
+def intersample_over(write_audio):
+    """A sine at rate/4 with phase 45 degrees, amplitude 0.9 (DOUBLE, stereo, 4800 frames).
+
+    analytic: every sample is +-0.9/sqrt(2), a sample peak of -3.93 dBFS, while the continuous
+    waveform, and so the true peak of ITU-R BS.1770-4 Annex 2, reaches 0.9: -0.92 dBTP. Against a
+    -1 dBTP ceiling it is over by 20*log10(0.9) + 1 = 0.085 dB, and the 0 dBFS ceiling is never passed.
+    """
+    n = np.arange(4800)
+    x = 0.9 * np.sin(2 * np.pi * n / 4 + np.pi / 4)
+    return probe(str(write_audio("in/over.wav", np.stack([x, x], axis=1), RATE, "DOUBLE")))
+
+
+TP_OVER_DB = 20 * np.log10(0.9) + 1.0          # analytic, see intersample_over
+
+
+@pytest.mark.parametrize("true_peak", [True, False])
+@pytest.mark.parametrize("on_over", ["reject", "scale", "clip"])
+def test_a_true_peak_ceiling_holds_under_every_policy(tmp_path, intersample_over, on_over, true_peak):
+    # The recipe's true_peak_ceiling_dbtp is checked with true-peak metering off too (--no-true-peak skips
+    # the input's true peak only). The tolerance 0.02 dB is chainrun's own for its interpolator (flat to
+    # 0.45 * rate within 0.015 dB; see tests/test_meters.py), no published source.
+    out = tmp_path / "out"
+    out.mkdir()
+    pol = Policy(on_over=on_over, ceiling_dbfs=0.0, true_peak_ceiling_dbtp=-1.0, true_peak=true_peak,
+                 dither="none")
+    res = render_file(intersample_over, str(out / "over.wav"), UNITY, 1.0, pol, "over.wav")
+    assert res.over_db == pytest.approx(TP_OVER_DB, abs=0.02)
+    if on_over == "reject":
+        assert res.status == "rejected" and files_in(out) == []
+        return
+    assert files_in(out) == ["over.wav"]
+    tp = max(c.true_peak for c in scan_file(probe(str(out / "over.wav"))).input_meters.channels)
+    if on_over == "scale":
+        assert res.status == "ok" and res.gain_db == pytest.approx(-TP_OVER_DB, abs=0.02)
+        assert 20 * np.log10(tp) <= -1.0 + 1e-9
+    else:   # clipping holds the sample ceiling only; the true peak still passes its ceiling, and is said to
+        assert res.status == "clipped" and res.clipped_by_chainrun == 0
+        assert "true peak passes the true-peak ceiling by 0.0" in res.message
+        assert 20 * np.log10(tp) == pytest.approx(-1.0 + TP_OVER_DB, abs=0.02)
+
+
 # =========================================================================== block size, render level
 
 
