@@ -369,6 +369,7 @@ class Prepared:
     designs: dict[int, RateDesign]
     work: list[tuple[Job, Source]]
     results: list[FileResult]       # already decided: skipped, unreadable, rejected at their rate
+    refused: list[Job] = field(default_factory=list)     # the jobs rejected at their rate
 
 
 def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> Prepared:
@@ -393,19 +394,20 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
             continue
         probed.append((job, src))
     designs = design_rates(recipe, {src.rate for _, src in probed})
-    work = []
+    work, refused = [], []
     for job, src in probed:
         d = designs[src.rate]
         if d.usable:
             work.append((job, src))
         else:
+            refused.append(job)
             results.append(FileResult(job.input, job.relpath, "rejected",
                                       f"the recipe cannot be used at {src.rate} Hz: {d.error}", source=src))
     if probed and not work:
         first = next(iter(designs.values()))
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "
                          f"({', '.join(map(str, designs))} Hz); no audio was touched")
-    return Prepared(recipe, policy, outdir, designs, work, results)
+    return Prepared(recipe, policy, outdir, designs, work, results, refused)
 
 
 # libsndfile's header log (sf_command SFC_GET_LOG_INFO): a chunk whose size says more than the file holds
@@ -621,6 +623,9 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
             continue
         r.extra["resumed"] = True
         results.append(r)
+    by_relpath = {r.relpath: r for r in results}
+    for job in prep.refused:
+        _note_earlier_output(job, by_relpath[job.relpath])
     if len(todo) < len(prep.work):
         notes.append(f"{len(prep.work) - len(todo)} file(s) already delivered by an earlier run with the same "
                      "recipe and inputs; kept as they are (use --redo to render them again)")
@@ -637,6 +642,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     journal_failed: list[str] = []
 
     def finished(job: Job, r: FileResult) -> None:
+        _note_earlier_output(job, r)
         if r.status in ("ok", "clipped") and not journal_failed:
             try:
                 journal.record(job.relpath, key, job.input, job.output, r.to_record())
@@ -716,6 +722,23 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     results.sort(key=lambda r: (order.get(r.input, -1), r.relpath))
     return BatchResult(prep.recipe, prep.policy, prep.outdir, prep.designs, results,
                        time.perf_counter() - t0, interrupted, notes)
+
+
+def _note_earlier_output(job: Job, r: FileResult) -> None:
+    """Say so when a file rejected or failed in this run has an earlier run's output under its name.
+
+    That file is left as it was (its recipe may no longer exist, so it could not be made again), but
+    it is not this run's result, and someone collecting OUTDIR must not take it for one.
+    """
+    if r.status not in ("rejected", "failed") or r.message == INTERRUPTED or r.output is not None:
+        return
+    try:
+        if not os.path.isfile(job.output) or os.path.samefile(job.output, job.input):
+            return
+    except OSError:
+        return
+    r.message = ((r.message or "not delivered") + "; the file under its output name is an earlier run's, "
+                 "left as it was, not this run's result")
 
 
 def _stop_workers(pool: ProcessPoolExecutor) -> None:

@@ -829,7 +829,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
     -------
     FileResult
         Status ``ok``, ``clipped``, ``rejected`` or ``failed``; on anything but ok
-        and clipped, no file exists under ``dst``.
+        and clipped, nothing is written under ``dst`` (a file already there is left as it was).
     """
     t0 = time.perf_counter()
     res = FileResult(input=src.path, relpath=relpath or seed_key, status="failed", source=src)

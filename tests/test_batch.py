@@ -433,10 +433,34 @@ def test_failed_rerun_keeps_the_older_output(tmp_path, season, write_recipe, run
     assert status == 1
     rep = by_rel(report_of(out))
     assert rep["host_stem.wav"]["status"] == "rejected" and rep["host_stem.wav"]["output"] is None
-    # what the code does: the final name is only ever replaced by a complete new file, so the output of
-    # the earlier run stays as it was (the new report says this run rejected it)
+    # contract (README, "Output and reports"): the final name is only ever replaced by a complete new file,
+    # so the earlier run's output stays as it was (its recipe may be gone); the report says it is not this run's
     assert (out / "host_stem.wav").read_bytes() == old
+    assert "is an earlier run's, left as it was, not this run's result" in rep["host_stem.wav"]["message"]
     assert temporaries(out) == []
+
+
+def test_a_file_rejected_at_its_rate_says_an_earlier_output_is_not_this_run_s(tmp_path, write_recipe,
+                                                                              write_audio, run_cli):
+    rng = np.random.default_rng(43)
+    write_audio("in/phone_line.wav", rng.uniform(-0.3, 0.3, 4000), 8000, "PCM_16")
+    write_audio("in/studio.wav", rng.uniform(-0.3, 0.3, 4000), 48000, "PCM_16")
+    out = tmp_path / "out"
+    status, _, err = run_cli("run", write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\n"),
+                             tmp_path / "in", "-o", out, "--workers", "1")
+    assert status == 0, err
+    old = (out / "phone_line.wav").read_bytes()
+    shelf = write_recipe("format: 1\nchain:\n  - {type: high_shelf, freq: 6000, gain_db: 1.5, slope: 1}\n",
+                         name="shelf.yaml")
+    status, _, err = run_cli("run", shelf, tmp_path / "in", "-o", out, "--workers", "1")
+    assert status == 1
+    rep = by_rel(report_of(out))
+    # analytic: 6000 Hz is above the 4000 Hz Nyquist frequency of an 8 kHz file
+    assert rep["phone_line.wav"]["status"] == "rejected"
+    assert "earlier run's, left as it was" in rep["phone_line.wav"]["message"]
+    assert "earlier run's" in err and "\n" not in rep["phone_line.wav"]["message"]
+    assert (out / "phone_line.wav").read_bytes() == old
+    assert rep["studio.wav"]["status"] == "ok" and "earlier" not in (rep["studio.wav"]["message"] or "")
 
 
 def test_runtime_guard_in_a_batch(tmp_path, season, write_recipe, run_cli, monkeypatch):
