@@ -460,20 +460,6 @@ def cut_short(src: Source) -> str | None:
 MAX_BLOCK_SAMPLES = MAX_BLOCK
 
 
-def _temp_name_too_long(output: str) -> str | None:
-    folder, name = os.path.split(output)
-    temp = os.fsencode(f".{name}{TEMP_TAG}00000000")
-    try:
-        limit = os.pathconf(folder or ".", "PC_NAME_MAX")
-    except (OSError, ValueError):
-        limit = 255
-    if limit and len(temp) > limit:
-        return (f"its name is too long to write: the temporary file chainrun writes beside the output needs "
-                f"{len(temp)} bytes and this file system allows {limit}; shorten the name by "
-                f"{len(temp) - limit} bytes or more")
-    return None
-
-
 def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
     folder = os.path.dirname(job.output) or "."
 
@@ -493,9 +479,6 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
             read_only = False
         return fail(f"cannot write into its output folder {folder}: "
                     f"{'read-only file system' if read_only else 'permission denied'}; nothing was delivered")
-    too_long = _temp_name_too_long(job.output)
-    if too_long:
-        return fail(too_long)
     if src.channels * policy.block_size > MAX_BLOCK_SAMPLES:
         policy = replace(policy, block_size=max(MIN_BLOCK, MAX_BLOCK_SAMPLES // src.channels))
     return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),

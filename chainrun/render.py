@@ -376,18 +376,25 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
     return out[:, :frames]
 
 
-_NAME_MAX = 255          # bytes in one file name on the usual file systems
+_NAME_MAX = 255          # bytes in one file name on the usual file systems, when the folder cannot say
 
 
-def temp_path_for(final: str) -> str:
-    """``.<name>.chainrun-part-<hex>`` beside ``final``; a long name is shortened to keep it legal."""
+def temp_path_for(final: str, suffix: str = "") -> str:
+    """``.<name>.chainrun-part-<hex><suffix>`` beside ``final``.
+
+    The temporary name is 24 bytes longer than the final one (plus ``suffix``), so a name near the
+    folder's limit (PC_NAME_MAX) is shortened here; the final name is kept. Leftovers are found by
+    the leading dot and TEMP_TAG alone, so a shortened name is cleaned up like any other.
+    """
     d, name = os.path.split(final)
-    tail = f"{TEMP_TAG}{secrets.token_hex(4)}"
+    tail = os.fsencode(f"{TEMP_TAG}{secrets.token_hex(4)}{suffix}")
+    try:
+        limit = os.pathconf(d or ".", "PC_NAME_MAX") or _NAME_MAX
+    except (OSError, ValueError):
+        limit = _NAME_MAX
     raw = os.fsencode(name)
-    room = _NAME_MAX - 1 - len(tail)
-    if len(raw) > room:
-        name = os.fsdecode(raw[:room])
-    return os.path.join(d, f".{name}{tail}")
+    room = limit - 1 - len(tail)
+    return os.path.join(d, os.fsdecode(b"." + raw[:room] + tail))
 
 
 def _fsync_path(path: str, directory: bool = False) -> None:
@@ -856,7 +863,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         if policy.on_over == "scale":
             # Pass 1: filter to a float64 scratch file, metering the unscaled output.
             pre = Meter(src.rate, src.channels, full_scale=out_fs, true_peak=out_true_peak, max_regions=0)
-            scratch = tmp + ".f64"
+            scratch = temp_path_for(dst, ".f64")
             store = _Scratch(scratch, src.channels)
             reader = _Blocks(src, block, in_meter)
             fh, write_scratch = store.writer()

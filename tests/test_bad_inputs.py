@@ -391,13 +391,6 @@ def name_with_a_terminal_escape(ctx):
 
 
 @case
-def name_too_long_for_the_temporary_file(ctx):
-    name = "saltings_" + "x" * 230 + ".wav"       # 243 bytes: a legal name, but '.NAME.chainrun-part-XXXXXXXX' is not
-    p = ctx.audio(name, noise(2000))
-    return Case(p, rel(p, ctx), ("name is too long", "shorten the name"))
-
-
-@case
 def two_inputs_with_the_same_output_name(ctx):
     other = ctx.tmp / "card_b" / "boathouse_take.wav"
     other.parent.mkdir()

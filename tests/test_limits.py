@@ -424,3 +424,27 @@ def test_a_fault_designing_at_one_rate_is_a_located_line_not_an_internal_error(t
            "range error)" in entry["message"]
     assert (tmp_path / "out" / "b48.wav").is_file()
     assert not any(TEMP_TAG in f for _, _, fs in os.walk(tmp_path / "out") for f in fs)
+
+
+@pytest.mark.parametrize("on_over", ["reject", "scale"])
+@pytest.mark.parametrize("extra", [0, 1, 5])
+def test_a_name_as_long_as_the_file_system_allows_is_delivered(tmp_path, run_cli, tree_hashes, extra, on_over):
+    # A legal name of up to NAME_MAX (255) bytes; '.NAME.chainrun-part-XXXXXXXX' would be 24 bytes longer
+    # (and the scale policy's scratch file 4 more), so the temporary names are shortened instead and the
+    # final name is kept. The limit is what pathconf(PC_NAME_MAX) says for the output folder, 255 on the
+    # usual Linux file systems (from memory).
+    limit = os.pathconf(str(tmp_path), "PC_NAME_MAX")
+    name = "saltings_" + "x" * (limit - len("saltings_") - len(".wav") - extra) + ".wav"
+    assert len(os.fsencode(name)) == limit - extra
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(RECIPE)
+    (tmp_path / "in").mkdir()
+    sf.write(str(tmp_path / "in" / name), noise(3000, 2, seed=9), 48000, subtype="PCM_24")
+    before = tree_hashes(tmp_path / "in")
+    status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", "1",
+                             "--on-over", on_over)
+    assert status == 0, err
+    assert outputs(tmp_path / "out") == [name]
+    assert not [f for f in os.listdir(tmp_path / "out") if TEMP_TAG in f]
+    assert report_of(tmp_path / "out")["files"][0]["status"] == "ok"
+    assert tree_hashes(tmp_path / "in") == before
