@@ -1,4 +1,4 @@
-"""Command line: ``chainrun check | run | scan | plot``. See DESIGN.md for the contract."""
+"""Command line: ``chainrun check | run | scan | plot``. See README.md, 'Commands', for the contract."""
 from __future__ import annotations
 
 import argparse

@@ -129,7 +129,7 @@ class Section:
 
 @dataclass(frozen=True)
 class Guard:
-    """Safety limits, see DESIGN.md "What the guard promises"."""
+    """Safety limits, see README.md "What the guard promises" (keys: README.md "Recipes")."""
 
     max_gain_db: float = 24.0
     pole_margin: float = 1e-6

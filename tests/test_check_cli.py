@@ -16,7 +16,7 @@ from chainrun.cli import main
 LOCATED = re.compile(r"^[^\n]+:\d+:\d+: error: [^\n]+$")
 UNSTABLE_LINE = re.compile(r"^(?P<path>[^\n]*unstable-hand-typed\.yaml):11:41: error: chain\[1\] iir is unstable: "
                            r"its denominator has a root at radius 1\.00499 [^\n]*$")
-DEFAULT_RATES = [44100, 48000, 96000]     # DESIGN.md: `chainrun check` default rates
+DEFAULT_RATES = [44100, 48000, 96000]     # README.md 'Commands': `chainrun check` default rates
 
 
 def run_main(argv, capsys):

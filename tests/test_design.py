@@ -38,7 +38,9 @@ def sos_of(write_recipe):
         recipe = load(write_recipe(f"format: 1\nchain:\n  - {section}\n"))
         chain = design(recipe, rate)
         assert chain.sos.shape[1] == 6
-        assert_allclose(chain.sos[:, 3], 1.0, rtol=0, atol=0)  # DESIGN.md: a0 = 1 in every row
+        # README.md 'Coefficient convention' (a[0] normalised to 1); DEVELOPERS.md 'Rules the code
+        # keeps' (SOS rows [b0, b1, b2, 1, a1, a2])
+        assert_allclose(chain.sos[:, 3], 1.0, rtol=0, atol=0)
         return chain.sos
 
     return _design
@@ -166,6 +168,11 @@ def test_order2_q_sqrt_half_equals_butterworth(sos_of, rate, btype, freq):
 @pytest.mark.parametrize("order", range(1, 9))
 @pytest.mark.parametrize("btype", ["lowpass", "highpass"])
 def test_butterworth_design_equals_scipy_butter(sos_of, order, btype):
+    # chainrun designs Butterworth sections with this same scipy.signal.butter call (README.md
+    # 'Recipes'), so this checks only that order, frequency, type and rate are passed through and
+    # the rows kept as scipy gives them; the response itself is checked independently of scipy's
+    # design in test_butterworth_minus_3db_at_cutoff_and_6n_db_per_octave and
+    # test_butterworth_matches_analytic_bilinear_magnitude (analytic magnitude)
     for rate in RATES:
         sos = sos_of(f"{{type: {btype}, freq: 440, order: {order}}}", rate)
         # scipy.signal.butter(output='sos') (reference library)
@@ -196,6 +203,27 @@ def test_butterworth_minus_3db_at_cutoff_and_6n_db_per_octave(sos_of, order, bty
     got = db(sos, f, rate)
     mask = expected_db > -250       # beyond that float64 cannot resolve the response
     assert_allclose(got[mask], expected_db[mask], atol=1e-6)
+
+
+@pytest.mark.parametrize("rate, freqs", [(44100, (31.5, 440.0, 6000.0, 17000.0)),
+                                         (96000, (20.0, 1000.0, 12000.0, 40000.0))])
+@pytest.mark.parametrize("order", range(1, 9))
+@pytest.mark.parametrize("btype", ["lowpass", "highpass"])
+def test_butterworth_matches_analytic_bilinear_magnitude(sos_of, rate, freqs, order, btype):
+    # analytic (Butterworth magnitude under the bilinear transform): with the cutoff prewarped,
+    # |H(e^jw)|^2 = 1/(1 + (tan(w/2)/tan(wc/2))^(2N)) for low-pass, the ratio inverted for
+    # high-pass; w = 2 pi f/fs. Cutoffs from the bottom to near the top of the band.
+    f = np.geomspace(1.0, rate / 2 * 0.999, 600)
+    for fc in freqs:
+        sos = sos_of(f"{{type: {btype}, freq: {fc}, order: {order}}}", rate)
+        ratio = np.tan(np.pi * f / rate) / np.tan(np.pi * fc / rate)
+        ratio = ratio if btype == "lowpass" else 1 / ratio
+        expected_db = -10 * np.log10(1 + ratio ** (2 * order))
+        got = db(sos, f, rate)                          # scipy.signal.freqz_sos (reference library)
+        mask = expected_db > -250       # beyond that float64 cannot resolve the response
+        assert_allclose(got[mask], expected_db[mask], atol=1e-6)
+        # analytic: -3.0103 dB (|H|^2 = 1/2) exactly at the cutoff, for every order and type
+        assert_allclose(db(sos, fc, rate), 10 * math.log10(0.5), atol=1e-9)
 
 
 def test_butterworth_sections_count(sos_of):

@@ -64,7 +64,9 @@ def test_first_order_feedback_assessment(run, rate, c):
     assert_allclose(a.peak_gain, 1 / (1 - abs(c)), rtol=1e-9)
     assert a.peak_gain_exact
     assert_allclose(a.max_pole_radius, abs(c), rtol=1e-12)     # analytic: the pole is at z = -c
-    # analytic: |h[n]| = |c|^n falls 60 dB after ln(1e-3)/ln|c| samples (guard resolution 64 samples)
+    # analytic: |h[n]| = |c|^n falls 60 dB after ln(1e-3)/ln|c| samples. Tolerance: the guard
+    # measures the decay in whole blocks of 64 samples (chainrun/guard.py, _CHUNK: chainrun's own
+    # resolution, no published source), plus one sample for the fractional n60
     n60 = math.log(1e-3) / math.log(abs(c))
     assert abs(a.decay_s * rate - n60) <= 64 + 1
     assert a.accepted and a.problems == ()
@@ -300,8 +302,14 @@ def test_pole_margin_rejects_low_butterworth_at_high_rate(tmp_path):
 def test_huge_pole_margin_rejects_ordinary_butterworth(run):
     # pole_margin 0.5 allows only radii <= 0.5; a 20 Hz Butterworth at 96 kHz has poles near z = 1
     _, _, a = run("format: 1\nchain:\n  - {type: highpass, freq: 20, order: 4}\nguard: {pole_margin: 0.5}\n", 96000)
+    # scipy.signal.butter(output='zpk') (reference library): the largest pole radius, about 0.9995
+    _, poles, _ = signal.butter(4, 20.0, btype="highpass", fs=96000, output="zpk")
+    r_ref = float(np.max(np.abs(poles)))
+    assert r_ref > 0.5
+    assert_allclose(a.max_pole_radius, r_ref, rtol=1e-12)
     assert not a.accepted
     assert "has a pole at radius" in a.problems[0].message
+    assert "allowed: inside 0.5 (1 - guard.pole_margin)" in a.problems[0].message   # 1 - 0.5, analytic
 
 
 def test_notch_minimum_is_deep_and_at_f0(run):
@@ -320,7 +328,19 @@ def test_assessment_to_dict_is_json_safe_and_complete(run):
         assert key in d
     assert d["rate"] == 48000 and d["accepted"] is True and d["rows"] == 1
     assert_allclose(d["min_gain_db"], -4.0, atol=1e-6)   # W3C Audio EQ Cookbook: peak gain at f0
-    assert_allclose(d["worst_case_peak_gain_db"], 20 * math.log10(d["worst_case_peak_gain"]), rtol=1e-12)
+    # W3C Audio EQ Cookbook peakingEQ coefficients, written out here, and scipy.signal.lfilter
+    # (reference library) for the impulse response: the worst-case peak gain is sum |h[n]|
+    rate, f0, q, big_a = 48000, 500.0, 2.0, 10 ** (-4.0 / 40)
+    w0 = 2 * math.pi * f0 / rate
+    alpha = math.sin(w0) / (2 * q)
+    b = [1 + alpha * big_a, -2 * math.cos(w0), 1 - alpha * big_a]
+    a_ = [1 + alpha / big_a, -2 * math.cos(w0), 1 - alpha / big_a]
+    impulse = np.zeros(1 << 16)                       # h has fallen below 1e-300 long before the end
+    impulse[0] = 1.0
+    l1 = float(np.sum(np.abs(signal.lfilter(b, a_, impulse))))
+    assert_allclose(d["worst_case_peak_gain"], l1, rtol=1e-9)
+    # analytic: the dB field is 20 log10 of the linear field (the two JSON fields agree)
+    assert_allclose(d["worst_case_peak_gain_db"], 20 * math.log10(l1), rtol=1e-9)
 
 
 def test_bundled_unstable_recipe_rejected_at_every_rate(repo_root):

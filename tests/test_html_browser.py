@@ -120,6 +120,9 @@ def test_screenshot_is_not_blank(report, tmp_path):
     assert img.shape[0] >= 1000 and img.shape[1] >= 1000
     rgb = np.round(img[..., :3] * 255).astype(np.uint8).reshape(-1, 3)
     colours, counts = np.unique(rgb, axis=0, return_counts=True)
+    # chainrun's own thresholds for "a real page", no published source: more than 50 distinct
+    # colours; "ink" = pixels more than 24 of 255 from the commonest colour in some channel, more
+    # than 3 % (not empty) and less than 90 % (not one big block) of the screenshot
     assert len(colours) > 50                          # text, status colours and the plot, not a flat page
     background = colours[np.argmax(counts)]
     ink = np.mean(np.any(np.abs(rgb.astype(int) - background.astype(int)) > 24, axis=1))

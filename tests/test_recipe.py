@@ -376,7 +376,7 @@ def test_mutations_raise_only_located_recipe_errors(mutation_dir, data):
 
 # --------------------------------------------------------------------------- valid recipes
 
-def test_defaults_follow_design_md(write_recipe):
+def test_defaults_follow_readme(write_recipe):
     recipe = load(write_recipe("""
         format: 1
         chain:
@@ -385,10 +385,12 @@ def test_defaults_follow_design_md(write_recipe):
           - {type: high_shelf, freq: 8000, gain_db: 2, q: 0.7}
     """))
     hp, ls, hs = recipe.sections
-    assert hp.params["order"] == 2                       # DESIGN.md: order 1..8 (default 2)
+    assert hp.params["order"] == 2                       # README.md 'Recipes': order 1..8 (default 2)
+    # README.md 'Recipes': shelves are order 2 with slope or q, the slope defaulting to 1
     assert ls.params["order"] == 2 and ls.params["slope"] == 1.0
     assert "slope" not in hs.params and hs.params["q"] == 0.7
-    # DESIGN.md recipe format: guard defaults 24 dB, 1e-6, 5 s, 0 dBFS, reject; output same / auto
+    # README.md 'Recipes': the defaults are the example's guard values 24 dB, 1e-6, 5 s, 0 dBFS, reject
+    # and output same / auto
     assert recipe.guard == Guard(max_gain_db=24.0, pole_margin=1e-6, max_decay_s=5.0, ceiling_dbfs=0.0,
                                  true_peak_ceiling_dbtp=None, on_over="reject")
     assert recipe.output == Output(subtype="same", dither="auto")
