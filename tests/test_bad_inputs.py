@@ -1,7 +1,7 @@
 """Bad input matrix (issue #4): every bad input gets one located line, nothing is lost or half-written.
 
 Each case puts one bad thing into a small batch beside a good recording and runs ``chainrun run`` on
-the folder. What every case must show (the contract in DESIGN.md and README.md):
+the folder. What every case must show (the contract in README.md):
 
 * exit status 1, and never a traceback (the ``run_cli`` fixture fails on one);
 * exactly one line on stderr that starts with the bad path, and it is the report's own message for
@@ -502,7 +502,7 @@ def test_bad_input_gets_one_located_line_and_the_batch_completes(name, tmp_path,
             if not p.is_symlink() and p.is_file():
                 os.chmod(p, 0o644)
 
-    assert status == 1, err                              # DESIGN.md: 1 when any file is not ok
+    assert status == 1, err                              # README.md 'Commands': 1 when any file is not ok
     report = report_of(ctx.out)
     entries = [f for f in report["files"] if f["input"] == shown(c.path)]
     assert len(entries) == 1, [f["input"] for f in report["files"]]
@@ -662,7 +662,7 @@ def test_recipe_problems_at_run_exit_2_and_nothing_is_written(tmp_path, run_cli,
     before = tree_hashes(tmp_path)
     out = tmp_path / "out"
     status, stdout, err = run_cli("run", rdir / "r.yaml", src, "-o", out, "--workers", "1")
-    assert status == 2, err                              # DESIGN.md: 2 usage or recipe rejected
+    assert status == 2, err                              # README.md 'Commands': 2 usage or recipe rejected
     lines = err.splitlines()
     assert len(lines) == 1, err
     m = re.match(r"^(?P<path>.+?):(?P<line>\d+):(?P<col>\d+): error: (?P<msg>.+)$", lines[0])

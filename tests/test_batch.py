@@ -3,7 +3,7 @@ workers, per-rate rejection, and faults inside a batch.
 
 Expected values: the W3C Audio EQ Cookbook (coefficients in the report),
 scipy.signal.sosfilt over the whole file, files read back with soundfile,
-analytic facts, and the contract in DESIGN.md and README.md.
+analytic facts, and the contract in README.md.
 """
 from __future__ import annotations
 
@@ -109,7 +109,7 @@ def test_tree_mirrored_non_audio_listed_inputs_untouched(tmp_path, season, write
     before = tree(season)
     out = tmp_path / "out"
     status, stdout, err = run_cli("run", recipe, season, "-o", out, "--workers", "1")
-    assert status == 0, err                 # DESIGN.md: 0 when every file is ok (skips do not count)
+    assert status == 0, err                 # README.md 'Commands': 0 when every file is ok (skips do not count)
     assert delivered(out) == AUDIO_IN_SEASON          # the tree mirrored, audio only
     for rel in AUDIO_IN_SEASON:
         assert sf.info(str(out / rel)).format == sf.info(str(season / rel)).format
@@ -118,7 +118,7 @@ def test_tree_mirrored_non_audio_listed_inputs_untouched(tmp_path, season, write
     assert set(skipped) == {"marsh/notes.txt", "cover.png", "boathouse/._host_stem.wav"}
     assert all("not audio" in m for m in skipped.values()), skipped
     assert all(rep[rel]["status"] == "ok" for rel in AUDIO_IN_SEASON)
-    assert tree(season) == before           # DESIGN.md: inputs are never modified (content and mtime)
+    assert tree(season) == before           # README.md 'What the guard promises': inputs are never modified (content and mtime)
     assert temporaries(out) == []
 
 

@@ -120,7 +120,7 @@ def test_read_only_output_folder_refused_with_one_line_nothing_written(tmp_path,
 
         monkeypatch.setattr(journal_mod.os, "open", ro_open)
     status, stdout, err = run_cli("run", tmp_path / "recipe.yaml", season, "-o", out, "--workers", "1")
-    assert status == 2, err                              # DESIGN.md: 2 for a usage problem, no audio touched
+    assert status == 2, err                              # README.md 'Commands': 2 for a usage problem, no audio touched
     assert err.splitlines() == [f"{out}: error: cannot use the output folder: read-only file system"], err
     assert tree_hashes(out) == before_out and tree_hashes(season) == before_in
 

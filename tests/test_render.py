@@ -302,7 +302,7 @@ def test_unexpected_fault_is_a_failed_file_not_an_exception(tmp_path, write_audi
 
     monkeypatch.setattr(signal, "sosfilt", broken)
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
-    # DESIGN.md: failed = "unreadable input, NaN samples, a fault; nothing delivered"; one line
+    # README.md 'Output and reports': failed = "unreadable input, NaN samples, a fault; nothing delivered"; one line
     assert res.status == "failed" and "\n" not in res.message and "simulated fault" in res.message
     assert files_in(out) == []
 
@@ -312,7 +312,7 @@ def test_output_onto_the_input_is_refused(write_audio):
     before = sha(path)
     res = render_file(probe(str(path)), str(path), UNITY, 1.0, Policy(), "take.wav")
     assert res.status == "failed" and "overwrite the input" in res.message
-    assert sha(path) == before                  # DESIGN.md: inputs are never modified
+    assert sha(path) == before                  # README.md 'What the guard promises': inputs are never modified
 
 
 # =========================================================================== runtime guard

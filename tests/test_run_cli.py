@@ -279,7 +279,7 @@ def test_scan_reports_the_constructed_clip_runs(tmp_path, write_audio, run_cli):
     write_audio("in/clipsf.wav", f, rate, "FLOAT")
     write_audio("in/clean.wav", np.full(9000, 0.5), rate, "PCM_24")
     status, out, err = run_cli("scan", tmp_path / "in", "--json")
-    assert status == 1                 # DESIGN.md: scan exits 1 if any file is clipped
+    assert status == 1                 # README.md 'Commands': scan exits 1 if any file is clipped
     files = {os.path.basename(f["input"]): f for f in json.loads(out)["files"]}
     # analytic: the runs written into the files, frame and length (start time = frame / 48000 s)
     c1, c2 = files["clips16.wav"]["input_meters"]["channels"]
@@ -325,7 +325,7 @@ def test_on_over_clip_reports_clipped(tmp_path, hot_case, run_cli, read_codes):
     out = tmp_path / "out"
     status, stdout, err = run_cli("run", hot_case["recipe"], hot_case["input"], "-o", out, "--on-over", "clip",
                                   "--workers", "1")
-    assert status == 1                      # DESIGN.md: 1 when any file is not ok
+    assert status == 1                      # README.md 'Commands': 1 when any file is not ok
     (f,) = report_of(out)["files"]
     ceiling = 10 ** (CEILING_DBFS / 20)
     assert f["status"] == "clipped"
@@ -399,7 +399,7 @@ def test_on_over_scale_to_a_0_dbfs_ceiling_fits_the_codes(tmp_path, write_recipe
     out = tmp_path / "out"
     status, _, err = run_cli("run", recipe, path, "-o", out, "--workers", "1")
     (f,) = report_of(out)["files"]
-    # DESIGN.md: scale delivers a file that fits the ceiling, so nothing is hard-clipped
+    # README.md 'Recipes' (on_over: scale): scale delivers a file that fits the ceiling, so nothing is hard-clipped
     assert status == 0 and f["status"] == "ok" and f["clipped_by_chainrun"] == 0, (f["message"], err)
     codes, _ = read_codes(out / "s.wav")
     bits = 16 if out_subtype == "PCM_16" else 24
