@@ -438,6 +438,7 @@ class _Output:
     """
 
     def __init__(self, path: str, src: Source, fmt: str, subtype: str):
+        self.path, self.fmt, self.subtype = path, fmt, subtype
         try:
             self.f = sf.SoundFile(_sf_path(path), "w", src.rate, src.channels, subtype, format=fmt)
         except (sf.LibsndfileError, RuntimeError) as exc:
@@ -481,12 +482,40 @@ class _Output:
             self.f.close()
         except (sf.LibsndfileError, RuntimeError) as exc:
             raise AudioError(f"cannot finish the output: {_sf_reason(None, exc)}; nothing was delivered") from None
+        if self.fmt == "RF64" and self.subtype in ("FLOAT", "DOUBLE"):
+            _clear_rf64_peak_time(self.path)
+
 
     def __enter__(self) -> "_Output":
         return self
 
     def __exit__(self, *exc) -> None:
         self.close()
+
+
+def _clear_rf64_peak_time(path: str) -> None:
+    """Zero the time stamp in a float RF64 file's PEAK chunk, so that reruns are bit-identical.
+
+    libsndfile writes RF64's header, PEAK chunk included, when the file is opened, before
+    SFC_SET_ADD_PEAK_CHUNK can turn the chunk off (it does for WAV and AIFF). The chunk is
+    "PEAK", its size, a version and then the time stamp (4 bytes each, little-endian); the
+    peaks that follow are left as they are. Chunks are walked from the header, not searched for.
+    """
+    with open(path, "r+b") as fh:
+        head = fh.read(1 << 16)
+        if head[:4] != b"RF64" or head[8:12] != b"WAVE":
+            return
+        at = 12
+        while at + 8 <= len(head):
+            cid, size = head[at:at + 4], int.from_bytes(head[at + 4:at + 8], "little")
+            if cid == b"PEAK":
+                if size >= 8:
+                    fh.seek(at + 12)
+                    fh.write(b"\0\0\0\0")
+                return
+            if cid == b"data":
+                return
+            at += 8 + size + (size & 1)
 
 
 def _sf_reason(f: sf.SoundFile | None, exc: BaseException) -> str:
