@@ -978,6 +978,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
                                f"A trim of {res.trim_db:.2f} dB (a gain section, or on_over: scale) would fit")
                 return res
 
+        at_ceiling = res.clipped_by_chainrun          # by the clip policy; the rest by the word length
         res.clipped_by_chainrun += quantise.clipped
         _check_unchanged(src)
         _fsync_path(tmp)
@@ -991,17 +992,21 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         res.status = "clipped" if res.clipped_by_chainrun or tp_left > 0 else "ok"
         if res.status == "clipped":
             said = []
-            if res.clipped_by_chainrun:
-                said.append(f"{res.clipped_by_chainrun} sample(s) hard-clipped at the ceiling")
+            if at_ceiling:
+                said.append(f"{at_ceiling} sample(s) hard-clipped at the ceiling")
                 sample_over = _db(filt.out_peak) - policy.ceiling_dbfs
                 if sample_over > 0:
                     said[-1] += f" (the filtered peak passed it by {sample_over:.2f} dB)"
+            if quantise.clipped:
+                said.append(f"{quantise.clipped} sample(s) hard-clipped at the largest {out_subtype} code "
+                            "(at full scale, where rounding or dither took them past it)")
             if tp_left > 0:
                 said.append(f"the true peak passes the true-peak ceiling by {tp_left:.2f} dB (clipping holds the "
                             "sample ceiling only; on_over: scale or reject would hold it)")
             res.message = "; ".join(said)
         elif res.gain_db:
-            res.message = f"scaled by {res.gain_db:.2f} dB to fit the ceiling"
+            res.message = (f"scaled by {res.gain_db:.2f} dB to fit the ceiling" if res.gain_db <= -0.005
+                           else "scaled by less than 0.01 dB to fit the ceiling")
         return res
     except AudioError as exc:
         res.status, res.message = "failed", str(exc)

@@ -376,6 +376,34 @@ def test_clip_policy_counts_each_clipped_sample_once(tmp_path, write_audio):
     assert back[105] == 32767 and back[202] == -32768 and back[300] == 32767 and back[400] == 32767
 
 
+def test_a_sample_at_full_scale_is_said_to_be_clipped_by_the_word_length_not_the_ceiling(tmp_path, write_audio):
+    # analytic: +1.0 (0 dBFS) is on a 0 dBFS ceiling, not past it, so the reject policy delivers the file;
+    # but a 16-bit word's largest code is 32767/32768, so that one sample is hard-clipped by the word length
+    x = np.zeros(1000)
+    x[10], x[20] = 1.0, -0.5
+    src = probe(str(write_audio("in/edge.wav", x, RATE, "DOUBLE")))
+    out = tmp_path / "out"
+    out.mkdir()
+    res = render_file(src, str(out / "edge.wav"), UNITY, 1.0,
+                      Policy(on_over="reject", subtype="PCM_16", dither="none"), "edge.wav")
+    assert res.status == "clipped" and res.clipped_by_chainrun == 1
+    assert res.message.startswith("1 sample(s) hard-clipped at the largest PCM_16 code (at full scale")
+    assert "ceiling" not in res.message
+
+
+def test_a_scale_below_a_hundredth_of_a_db_is_not_shown_as_zero(tmp_path, write_audio):
+    # analytic: a peak of 1.0001 over a 0 dBFS ceiling needs 20*log10(1.0001) = 0.00087 dB less gain;
+    # at two decimals that would read "-0.00 dB"
+    x = np.zeros(1000)
+    x[10] = 1.0001
+    src = probe(str(write_audio("in/hair.wav", x, RATE, "DOUBLE")))
+    out = tmp_path / "out"
+    out.mkdir()
+    res = render_file(src, str(out / "hair.wav"), UNITY, 1.0, Policy(on_over="scale"), "hair.wav")
+    assert res.status == "ok" and res.gain_db == pytest.approx(-20 * np.log10(1.0001), abs=1e-9)
+    assert res.message == "scaled by less than 0.01 dB to fit the ceiling"
+
+
 def test_reject_at_a_peak_one_rounding_above_the_ceiling(tmp_path, write_audio):
     # Two gain sections of -0.4 and -4.5 dB against a -4.9 dBFS ceiling: in floating point the product
     # lands one rounding step above 10^(-4.9/20), while in dB it is exactly on the ceiling (a real case
