@@ -197,7 +197,8 @@ def _why(exc: BaseException) -> str:
 def output_format(src: Source, subtype: str) -> tuple[str, str]:
     """Container and subtype of the output for ``src`` (``subtype`` may be ``same``).
 
-    WAV outputs that would pass 4 GiB become RF64.
+    WAV outputs that would pass 4 GiB become RF64; an AIFF output cannot (its size fields are
+    32-bit too, and there is no 64-bit AIFF), so it is refused before anything is written.
 
     Raises
     ------
@@ -213,6 +214,9 @@ def output_format(src: Source, subtype: str) -> tuple[str, str]:
     nbytes = src.frames * src.channels * ((bits or (32 if out_subtype == "FLOAT" else 64)) // 8)
     if fmt in _LARGE_FORMAT and nbytes > RF64_THRESHOLD:
         fmt = _LARGE_FORMAT[fmt]
+    elif fmt == "AIFF" and nbytes > RF64_THRESHOLD:
+        raise AudioError(f"as {out_subtype} its output would pass the 4 GiB an AIFF file can describe; "
+                         "choose a smaller output.subtype, or split the recording")
     if not sf.check_format(fmt, out_subtype):
         raise AudioError(f"a {fmt} file cannot hold {out_subtype}; choose another output.subtype")
     return fmt, out_subtype

@@ -37,6 +37,24 @@ def test_rf64_output_is_written_and_reads_back(tmp_path, monkeypatch):
     np.testing.assert_array_equal(back, sf.read(tmp_path / "in.wav")[0])
 
 
+def test_an_aiff_output_past_4_gib_is_refused_before_writing(tmp_path, monkeypatch):
+    # common practice, no published source (the AIFF size fields are 32-bit, from memory): an AIFF cannot
+    # describe more than 4 GiB of data and has no 64-bit form, so a wider subtype that would pass it is
+    # refused with one line, and nothing is written
+    four_gib_of_double_stereo = (1 << 32) // 16 + 1
+    aiff = Source("x.aiff", 48000, 2, four_gib_of_double_stereo, "AIFF", "PCM_16", 0, 0)
+    with pytest.raises(AudioError, match="pass the 4 GiB an AIFF file can describe"):
+        output_format(aiff, "DOUBLE")
+    assert output_format(aiff, "same") == ("AIFF", "PCM_16")          # a quarter of the bytes: fits
+    x = np.zeros((100, 2))
+    sf.write(tmp_path / "in.aiff", x, 48000, subtype="PCM_16")
+    monkeypatch.setattr(render, "RF64_THRESHOLD", 0)                   # as if the output passed 4 GiB
+    res = render_file(probe(str(tmp_path / "in.aiff")), str(tmp_path / "out.aiff"), UNITY, 1.0,
+                      Policy(), "in.aiff")
+    assert res.status == "failed" and "\n" not in res.message and "AIFF" in res.message
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["in.aiff"]
+
+
 @pytest.mark.slow
 @pytest.mark.parametrize("subtype", ["FLOAT", "DOUBLE"])
 def test_float_rf64_output_is_bit_identical_on_a_rerun(tmp_path, monkeypatch, subtype):
