@@ -988,8 +988,8 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         _fsync_path(tmp)
         os.replace(tmp, dst)
         tmp = None
+        res.output = dst          # in place from here on, even if syncing its folder fails below
         _fsync_path(os.path.dirname(dst) or ".", directory=True)
-        res.output = dst
         res.input_meters, res.output_meters = in_meter.result(), out_meter.result()
         # Clipping holds the sample ceiling only: a true peak still over its ceiling is said, not hidden.
         tp_left = _true_peak_over(res.output_meters, policy) if policy.on_over == "clip" else -math.inf

@@ -376,6 +376,26 @@ def test_clip_policy_counts_each_clipped_sample_once(tmp_path, write_audio):
     assert back[105] == 32767 and back[202] == -32768 and back[300] == 32767 and back[400] == 32767
 
 
+def test_a_folder_sync_that_fails_after_the_rename_still_names_the_output(tmp_path, write_audio, monkeypatch):
+    # The output is in place once renamed; if syncing its folder then fails (EIO), the file is failed, one
+    # line, but the result still names the output it put there, so the batch does not take it for an
+    # earlier run's file
+    src = probe(str(write_audio("in/take.wav", np.zeros(1000), RATE, "PCM_16")))
+    out = tmp_path / "out"
+    out.mkdir()
+    real = render._fsync_path
+
+    def failing(path, directory=False):
+        if directory:
+            raise OSError(errno.EIO, "Input/output error", path)
+        return real(path, directory)
+
+    monkeypatch.setattr(render, "_fsync_path", failing)
+    res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(), "take.wav")
+    assert res.status == "failed" and "\n" not in res.message and "input/output error" in res.message
+    assert res.output == str(out / "take.wav") and files_in(out) == ["take.wav"]
+
+
 def test_a_sample_at_full_scale_is_said_to_be_clipped_by_the_word_length_not_the_ceiling(tmp_path, write_audio):
     # analytic: +1.0 (0 dBFS) is on a 0 dBFS ceiling, not past it, so the reject policy delivers the file;
     # but a 16-bit word's largest code is 32767/32768, so that one sample is hard-clipped by the word length
