@@ -19,6 +19,7 @@ import sys
 import threading
 import time
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field, replace
 
 from . import __version__
@@ -635,6 +636,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         if progress:
             progress(r)
 
+    tried_again: set[str] = set()      # files a broken worker pool took down, rendered once more
     # Longest files first, so the pool does not end waiting on one long file.
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
     if in_process:
@@ -656,39 +658,78 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         # The workers are forked: what the parent has imported they share. The guard has
         # imported scipy.signal already; make sure, so that no worker pays its import again.
         importlib.import_module("scipy.signal")
-        pool = ProcessPoolExecutor(max_workers=min(workers, len(todo)), initializer=_worker_init,
-                                   initargs=(os.getpid(),), mp_context=_POOL_CONTEXT)
-        pending: dict = {}
+        # At most one file waits in the pool beyond those rendering. A worker that dies (the out-of-memory
+        # killer, say) breaks its pool, and every file the pool holds fails with it, so the pool holds few;
+        # those files are tried once more, each alone, so that only the one that kills its worker fails.
+        # The files not yet handed over go to a new pool.
+        size = min(workers, len(todo))
+        waiting = list(todo)
+        again: list[tuple[Job, Source]] = []
+        pool: ProcessPoolExecutor | None = None
+        broken = False
+        pending: dict = {}          # future -> (job, src, rendering alone)
+
+        def next_to_submit():
+            if again:
+                return None if pending else again
+            if waiting and len(pending) <= size and not any(alone for _, _, alone in pending.values()):
+                return waiting
+            return None
+
         try:
-            for job, src in todo:     # inside the try: a Ctrl-C while submitting still stops the workers
-                pending[pool.submit(_render_in_worker, *args(job, src))] = job
-            while pending:
-                done, _ = wait(pending, return_when=FIRST_COMPLETED)
-                for fut in done:
-                    job = pending.pop(fut)
+            while waiting or again or pending:
+                if pool is None:
+                    pool = ProcessPoolExecutor(max_workers=size, initializer=_worker_init,
+                                               initargs=(os.getpid(),), mp_context=_POOL_CONTEXT)
+                while not broken and (source := next_to_submit()) is not None:   # Ctrl-C here stops them too
+                    job, src = source[0]
                     try:
-                        r = fut.result()
-                    except Exception as exc:  # a worker died: the file is failed, the batch goes on
-                        text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
-                        r = FileResult(job.input, job.relpath, "failed", f"the worker rendering it stopped: {text}; "
-                                       "nothing was delivered")
-                    finished(job, r)
+                        fut = pool.submit(_render_in_worker, *args(job, src))
+                    except BrokenProcessPool:
+                        broken = True
+                        break
+                    pending[fut] = (job, src, source is again)
+                    source.pop(0)
+                if pending:
+                    done, _ = wait(pending, return_when=FIRST_COMPLETED)
+                    for fut in done:
+                        job, src, _ = pending.pop(fut)
+                        try:
+                            r = fut.result()
+                        except Exception as exc:  # a worker died: the file is failed, the batch goes on
+                            if isinstance(exc, BrokenProcessPool):
+                                broken = True
+                                if job.relpath not in tried_again:
+                                    tried_again.add(job.relpath)
+                                    again.append((job, src))
+                                    continue
+                            text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+                            r = FileResult(job.input, job.relpath, "failed", f"the worker rendering it stopped: "
+                                           f"{text}; nothing was delivered", source=src)
+                        finished(job, r)
+                if broken and not pending:         # every file the broken pool held is accounted for
+                    pool.shutdown(wait=True)
+                    pool, broken = None, False
         except KeyboardInterrupt:
             interrupted = True
             for fut in pending:
                 fut.cancel()
-            _stop_workers(pool)
+            if pool is not None:
+                _stop_workers(pool)
         finally:
-            while True:
+            while pool is not None:
                 try:
                     pool.shutdown(wait=True, cancel_futures=True)
                     break
                 except KeyboardInterrupt:      # Ctrl-C again: the workers are already stopping
                     interrupted = True
                     _stop_workers(pool)
-            for fut, job in pending.items():
+            for fut, (job, _, _) in pending.items():
                 if fut.done() and not fut.cancelled() and fut.exception() is None:
                     finished(job, fut.result())
+    if tried_again:
+        notes.append(f"a worker process stopped while rendering (killed from outside, or out of memory?); the "
+                     f"{len(tried_again)} file(s) its pool held were rendered again, each on its own")
     if journal_failed:
         notes.append(f"the resume journal cannot be written ({journal_failed[0]}); the files are delivered, "
                      "but a later run renders them again")
