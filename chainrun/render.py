@@ -145,7 +145,15 @@ class FileResult:
         return r
 
 
+# The largest magnitude the G.711 companding laws can code, as libsndfile decodes it to 16 bits
+# (u-law 8031 in 14-bit steps, A-law 4032 in 13-bit steps; ITU-T G.711, values from memory,
+# checked against libsndfile's decoding of +1.0): a sample there is at full scale.
+_COMPANDED_FULL_SCALE = {"ULAW": 32124 / 32768, "ALAW": 32256 / 32768}
+
+
 def _full_scale(subtype: str) -> float:
+    if subtype in _COMPANDED_FULL_SCALE:
+        return _COMPANDED_FULL_SCALE[subtype]
     bits = SUBTYPES.get(subtype, (None,))[0]
     return (2 ** (bits - 1) - 1) / 2 ** (bits - 1) if bits else 1.0
 

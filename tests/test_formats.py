@@ -210,3 +210,15 @@ def test_packed_path_is_only_for_containers_it_knows(tmp_path):
         out = render._Output(str(tmp_path / f"x.{fmt.lower()}"), _source(10, 1, fmt, "PCM_24"), fmt, "PCM_24")
         assert not out.packed
         out.close()
+
+
+@pytest.mark.parametrize("subtype, top", [("ULAW", 32124), ("ALAW", 32256)])
+def test_companded_inputs_at_their_largest_code_read_as_clipped(tmp_path, subtype, top):
+    # ITU-T G.711 (from memory): the largest u-law magnitude is 8031 in 14-bit steps (32124 in 16 bits), the
+    # largest A-law 4032 in 13-bit steps (32256); soundfile (reference reader) decodes +-1.0 to exactly that
+    path = tmp_path / f"{subtype}.wav"
+    sf.write(path, np.array([0.0, 1.0, -1.0, 0.5, 0.25]), 8000, subtype=subtype)
+    back, _ = sf.read(path, dtype="int16")
+    assert list(back[1:3]) == [top, -top]
+    reading = render.scan_file(probe(str(path))).input_meters.channels[0]
+    assert reading.clipped_samples == 2                 # the two samples at the largest code, and no other
