@@ -507,7 +507,9 @@ def _worker_init(parent: int | None = None) -> None:
             pass
     if parent is not None and os.getppid() != parent:       # the parent died before prctl took effect
         os._exit(1)
-    signal.signal(signal.SIGINT, _worker_sigint)
+    allow_rendering()
+    if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:   # a batch run in the background ignores it
+        signal.signal(signal.SIGINT, _worker_sigint)
 
 
 def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
@@ -525,8 +527,11 @@ def _ctrl_c_stops_rendering():
     """Rendering in this process: Ctrl-C stops the file at its next block, and the files after it.
 
     Only in the main thread (where signal handlers live), and not when SIGINT is ignored (a
-    background job). The flag is cleared on the way out, so a later batch in the same process runs.
+    background job). The flag is cleared on the way in and out, so a later batch in the same
+    process runs; a Ctrl-C that came after the last block is raised on the way out, so the batch
+    still counts as interrupted.
     """
+    allow_rendering()
     if threading.current_thread() is not threading.main_thread() \
             or signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
         yield
@@ -535,8 +540,13 @@ def _ctrl_c_stops_rendering():
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, previous)
-        allow_rendering()
+        try:
+            signal.signal(signal.SIGINT, signal.SIG_DFL if previous is None else previous)
+        finally:
+            late = rendering_stopped()
+            allow_rendering()
+        if late:
+            raise KeyboardInterrupt
 
 
 def job_key(recipe: Recipe, policy: Policy) -> str:
@@ -625,7 +635,11 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
 
     journal_failed: list[str] = []
 
+    accounted: set[str] = set()
+
     def finished(job: Job, r: FileResult) -> None:
+        if job.input in accounted:      # a Ctrl-C between this and the caller's bookkeeping: once only
+            return
         _note_earlier_output(job, r)
         if r.status in ("ok", "clipped") and not journal_failed:
             try:
@@ -633,6 +647,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
             except OSError as exc:      # the file is delivered; only a later run's resume is affected
                 journal_failed.append(f"{journal.path}: {_reason(exc)}")
         results.append(r)
+        accounted.add(job.input)
         if progress:
             progress(r)
 
@@ -658,6 +673,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         # The workers are forked: what the parent has imported they share. The guard has
         # imported scipy.signal already; make sure, so that no worker pays its import again.
         importlib.import_module("scipy.signal")
+        allow_rendering()           # the workers fork with the flag as it is here
         # At most one file waits in the pool beyond those rendering. A worker that dies (the out-of-memory
         # killer, say) breaks its pool, and every file the pool holds fails with it, so the pool holds few;
         # those files are tried once more, each alone, so that only the one that kills its worker fails.
@@ -685,15 +701,15 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
                     job, src = source[0]
                     try:
                         fut = pool.submit(_render_in_worker, *args(job, src))
-                    except BrokenProcessPool:
-                        broken = True
+                    except (BrokenProcessPool, RuntimeError):   # broken while submitting (3.11 may say
+                        broken = True                           # "cannot schedule new futures")
                         break
                     pending[fut] = (job, src, source is again)
                     source.pop(0)
                 if pending:
                     done, _ = wait(pending, return_when=FIRST_COMPLETED)
                     for fut in done:
-                        job, src, _ = pending.pop(fut)
+                        job, src, _ = pending[fut]
                         try:
                             r = fut.result()
                         except Exception as exc:  # a worker died: the file is failed, the batch goes on
@@ -702,11 +718,13 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
                                 if job.relpath not in tried_again:
                                     tried_again.add(job.relpath)
                                     again.append((job, src))
+                                    del pending[fut]
                                     continue
                             text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
                             r = FileResult(job.input, job.relpath, "failed", f"the worker rendering it stopped: "
                                            f"{text}; nothing was delivered", source=src)
                         finished(job, r)
+                        del pending[fut]            # after: a Ctrl-C in between leaves it to the finally
                 if broken and not pending:         # every file the broken pool held is accounted for
                     pool.shutdown(wait=True)
                     pool, broken = None, False
@@ -761,8 +779,9 @@ def _note_earlier_output(job: Job, r: FileResult) -> None:
             return
     except OSError:
         return
-    r.message = ((r.message or "not delivered") + "; the file under its output name is an earlier run's, "
-                 "left as it was, not this run's result")
+    note = "; the file under its output name is an earlier run's, left as it was, not this run's result"
+    if not (r.message or "").endswith(note):
+        r.message = (r.message or "not delivered") + note
 
 
 def _stop_workers(pool: ProcessPoolExecutor) -> None:

@@ -255,8 +255,11 @@ def cmd_run(args: argparse.Namespace) -> int:
         _err(line)
     if result.interrupted:
         left = sum(r.status == "failed" and r.message == INTERRUPTED for r in result.results)
-        _err(f"chainrun: interrupted; {left} file(s) not rendered (listed in the report as failed); "
-             "no partial file was left, and the next run resumes")
+        if left:
+            _err(f"chainrun: interrupted; {left} file(s) not rendered (listed in the report as failed); "
+                 "no partial file was left, and the next run resumes")
+        else:
+            _err("chainrun: interrupted after the last file was rendered; every file is in the report")
     return EXIT_OK if result.all_ok and not report_errors else EXIT_NOT_OK
 
 

@@ -400,8 +400,8 @@ def temp_path_for(final: str, suffix: str = "") -> str:
     """
     d, name = os.path.split(final)
     tail = os.fsencode(f"{TEMP_TAG}{secrets.token_hex(4)}{suffix}")
-    try:
-        limit = os.pathconf(d or ".", "PC_NAME_MAX") or _NAME_MAX
+    try:   # never above 255: FAT and exFAT say 1530 (bytes for 255 UTF-16 characters) but hold 255
+        limit = min(os.pathconf(d or ".", "PC_NAME_MAX") or _NAME_MAX, _NAME_MAX)
     except (OSError, ValueError):
         limit = _NAME_MAX
     raw = os.fsencode(name)

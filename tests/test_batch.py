@@ -517,3 +517,17 @@ def test_output_subfolder_blocked_by_a_file_fails_that_file_only(tmp_path, seaso
     rep = by_rel(report_of(out))
     assert rep["marsh/slipway.aiff"]["status"] == "failed"
     assert rep["boathouse/host_stem.wav"]["status"] == "ok"
+
+
+def test_the_note_about_an_earlier_output_is_said_once(tmp_path):
+    # execute may run twice on one Prepared (library use); the note must not pile up
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "a.wav").write_bytes(b"an earlier run's output")
+    (tmp_path / "a.wav").write_bytes(b"input")
+    job = batch.Job(str(tmp_path / "a.wav"), "a.wav", str(out / "a.wav"))
+    r = chainrun.render.FileResult(job.input, job.relpath, "rejected", "over the ceiling")
+    batch._note_earlier_output(job, r)
+    batch._note_earlier_output(job, r)
+    assert r.message == ("over the ceiling; the file under its output name is an earlier run's, left as it was, "
+                         "not this run's result")

@@ -427,3 +427,45 @@ def test_a_worker_s_ctrl_c_handler_never_raises(tmp_path, write_audio):
         assert r.status == "failed" and r.message == batch.INTERRUPTED and not os.path.exists(job.output)
     finally:
         render.allow_rendering()
+
+
+def test_a_ctrl_c_after_the_last_block_still_counts(tmp_path, write_audio, run_cli, monkeypatch):
+    # A Ctrl-C while the last file is synced (after its last block) cannot stop that file any more; it is
+    # delivered, and the run still ends as interrupted (exit 1, one line) instead of going on quietly
+    from chainrun import render
+
+    write_audio("in/take.wav", np.zeros((3000, 2)), 48000, "PCM_16")
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(RECIPE)
+    real = render._fsync_path
+
+    def sync(path, directory=False):
+        if not directory:
+            signal.raise_signal(signal.SIGINT)
+        return real(path, directory)
+
+    monkeypatch.setattr(render, "_fsync_path", sync)
+    before = signal.getsignal(signal.SIGINT)
+    status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", "1")
+    assert status == 1, err
+    assert err.splitlines()[-1] == "chainrun: interrupted after the last file was rendered; every file is in the report"
+    assert finals(tmp_path / "out") == {"take.wav": (tmp_path / "out" / "take.wav").read_bytes()}
+    assert signal.getsignal(signal.SIGINT) is before and not render.rendering_stopped()
+
+
+@pytest.mark.parametrize("workers", ["1", "2"])
+def test_a_stop_left_over_from_an_earlier_batch_does_not_stop_the_next(tmp_path, write_audio, run_cli, workers):
+    # library use: a batch in the same process after one that was interrupted renders normally
+    from chainrun import render
+
+    for k in range(3):
+        write_audio(f"in/take{k}.wav", np.zeros((3000, 2)), 48000, "PCM_16")
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(RECIPE)
+    render.stop_rendering()                  # as a Ctrl-C that landed after the last handler was gone
+    try:
+        status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", workers)
+    finally:
+        render.allow_rendering()
+    assert status == 0, err
+    assert sorted(finals(tmp_path / "out")) == ["take0.wav", "take1.wav", "take2.wav"]

@@ -448,3 +448,15 @@ def test_a_name_as_long_as_the_file_system_allows_is_delivered(tmp_path, run_cli
     assert not [f for f in os.listdir(tmp_path / "out") if TEMP_TAG in f]
     assert report_of(tmp_path / "out")["files"][0]["status"] == "ok"
     assert tree_hashes(tmp_path / "in") == before
+
+
+def test_temporary_names_stay_within_255_bytes_where_the_file_system_says_more(tmp_path, monkeypatch):
+    # vfat and exFAT report PC_NAME_MAX 1530 on Linux (bytes for 255 UTF-16 characters, from memory of
+    # the kernel's statfs) yet hold names of 255 characters; a temporary name is never longer than 255
+    from chainrun import render
+
+    monkeypatch.setattr(render.os, "pathconf", lambda path, name: 1530)
+    final = str(tmp_path / ("saltings_" + "x" * 235 + ".wav"))       # 248 bytes: legal anywhere
+    for suffix in ("", ".f64"):
+        temp = os.path.basename(render.temp_path_for(final, suffix))
+        assert len(os.fsencode(temp)) <= 255 and temp.startswith(".saltings_") and TEMP_TAG in temp
