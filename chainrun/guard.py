@@ -139,10 +139,25 @@ def check_raw_sections(recipe: Recipe) -> list[Problem]:
     return problems
 
 
+def _pole_hz(sos: np.ndarray, rate: float) -> list[float]:
+    """Frequencies of the poles' angles: where a narrow resonance peaks, whatever section made it.
+
+    A raw iir section has no ``freq`` to look at, and a resonance narrower than the grid's
+    spacing could fall between its points; its poles say where it is.
+    """
+    out = []
+    for row in sos:
+        if np.any(row[4:6]):
+            for p in np.roots(row[3:6] / row[3]):
+                if abs(p) > 0.5 and 0.0 < np.angle(p) < np.pi:
+                    out.append(float(np.angle(p)) * rate / (2.0 * np.pi))
+    return out
+
+
 def _extremes(sos: np.ndarray, rate: float, extra_hz: list[float]) -> tuple[float, float, float, float]:
     nyq = rate / 2.0
     grid = np.concatenate([[0.0], np.geomspace(min(LOWEST_HZ, nyq / 2), nyq, GRID_POINTS),
-                           [f for f in extra_hz if 0 < f < nyq]])
+                           [f for f in list(extra_hz) + _pole_hz(sos, rate) if 0 < f < nyq]])
     grid = np.unique(grid)
     db = response_db(sos, grid, rate)
 
@@ -170,7 +185,11 @@ def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool, f
 
     The response is computed block by block with carried state until the state
     has died away to rounding level; past IMPULSE_CAP samples the remaining tail
-    is estimated as a geometric series at the largest pole radius.
+    is bounded by a geometric series of block sums. Its ratio is the largest of the
+    pole radius to the block's power and the ratios of the last block sums seen:
+    repeated poles (identical sections in a cascade) decay as n**k * r**n, slower
+    than r**n alone, and their block ratios fall towards r**block from above, so
+    the last ones seen bound those to come.
     """
     from scipy import signal              # imported on first use: see chainrun/__init__.py
     zi = np.zeros((len(sos), 2))
@@ -178,12 +197,14 @@ def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool, f
     impulse[0] = 1.0
     silence = np.zeros(IMPULSE_BLOCK)
     total, peak, n = 0.0, 0.0, 0
+    sums: list[float] = []
     chunk_max: list[np.ndarray] = []
     exact = True
     while True:
         y, zi = signal.sosfilt(sos, impulse if n == 0 else silence, zi=zi)
         ay = np.abs(y)
         block_l1 = float(ay.sum())
+        sums.append(block_l1)
         total += block_l1
         peak = max(peak, float(ay.max()))
         chunk_max.append(ay.reshape(-1, _CHUNK).max(axis=1))
@@ -192,7 +213,8 @@ def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool, f
             break
         if n >= IMPULSE_CAP:
             exact = False
-            ratio = r_max ** IMPULSE_BLOCK
+            seen = [b / a for a, b in zip(sums[-4:-1], sums[-3:]) if a > 0.0]
+            ratio = max([r_max ** IMPULSE_BLOCK] + seen)
             total += block_l1 * ratio / (1.0 - ratio) if ratio < 1.0 else math.inf
             break
     env = np.concatenate(chunk_max)

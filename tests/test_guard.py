@@ -351,3 +351,47 @@ def test_bundled_unstable_recipe_rejected_at_every_rate(repo_root):
         assert not a.accepted
         assert_allclose(a.max_pole_radius, math.sqrt(1.01), rtol=1e-9)
         assert (a.problems[0].where.line, a.problems[0].where.col) == (11, 41)   # value of `a`
+
+
+def _cookbook_peak(f0: float, gain_db: float, q: float, rate: float) -> tuple[list[float], list[float]]:
+    """W3C Audio EQ Cookbook peakingEQ, written out here (not from chainrun.design)."""
+    a_lin = 10 ** (gain_db / 40)
+    w0 = 2 * math.pi * f0 / rate
+    alpha = math.sin(w0) / (2 * q)
+    b = [1 + alpha * a_lin, -2 * math.cos(w0), 1 - alpha * a_lin]
+    a = [1 + alpha / a_lin, -2 * math.cos(w0), 1 - alpha / a_lin]
+    return b, a
+
+
+def test_a_narrow_raw_resonance_between_grid_points_is_found(tmp_path):
+    # A +40 dB, Q 2000 cookbook peak at 10023.5 Hz typed as raw coefficients (no freq for the guard to
+    # look at), 5 Hz wide, falls between the log grid's points (about 25 Hz apart there); a broad +12 dB
+    # peak elsewhere reads higher on the grid. The guard must still find +40 dB and reject the chain.
+    b, a = _cookbook_peak(10023.5, 40.0, 2000.0, 48000)
+    text = ("format: 1\nchain:\n"
+            f"  - {{type: iir, b: [{b[0]!r}, {b[1]!r}, {b[2]!r}], a: [{a[0]!r}, {a[1]!r}, {a[2]!r}]}}\n"
+            "  - {type: peak, freq: 300, gain_db: 12, q: 2}\n")
+    _, chain, assessment = assess_text(tmp_path / "r.yaml", text, 48000)
+    peak, at = dense_max_abs_h(chain.sos, 48000, n=1 << 22)   # scipy.signal.freqz_sos, 4 M points
+    assert 20 * math.log10(peak) == pytest.approx(40.0, abs=0.05)             # W3C Audio EQ Cookbook: G at f0
+    assert assessment.max_gain_db == pytest.approx(20 * math.log10(peak), abs=0.01)
+    assert assessment.max_gain_hz == pytest.approx(at, abs=0.5)
+    assert not assessment.accepted
+
+
+@pytest.mark.slow
+def test_l1_bound_holds_for_repeated_poles(tmp_path):
+    # Eight identical 20 Hz, Q 1000 band-passes: a pole of multiplicity eight, whose response decays as
+    # n**7 * r**n, slower than a geometric series at r. The guard's worst-case peak gain must not be below
+    # the L1 norm of the impulse response summed by scipy.signal.sosfilt over 2**24 samples (a lower bound
+    # of the true L1: the rest of the tail only adds), and the output of the worst-case input (the sign of
+    # the time-reversed response, analytic) must stay within it.
+    text = "format: 1\nchain:\n" + "  - {type: bandpass, freq: 20, q: 1000}\n" * 8
+    _, chain, assessment = assess_text(tmp_path / "r.yaml", text, 48000)
+    x = np.zeros(1 << 24)
+    x[0] = 1.0
+    h = signal.sosfilt(chain.sos, x)
+    l1_seen = float(np.abs(h).sum())
+    assert assessment.peak_gain >= l1_seen
+    worst = signal.sosfilt(chain.sos, np.sign(h[::-1]))
+    assert float(np.abs(worst).max()) <= assessment.peak_gain
