@@ -39,6 +39,9 @@ MAX_NESTING = 32                  # YAML collections inside collections (aliases
 MAX_IIR_COEFF = 1e9               # |b[i] / a[0]| and |a[i] / a[0]| of a raw iir section
 MIN_FREQ_HZ = 1e-3                # lowest section frequency; below it the designs underflow to nonsense
 
+_STR_TAG, _INT_TAG, _FLOAT_TAG = ("tag:yaml.org,2002:str", "tag:yaml.org,2002:int", "tag:yaml.org,2002:float")
+_RESOLVER = yaml.resolver.Resolver()         # YAML 1.1's implicit tags, to tell an explicit !!str apart
+_NOT_DECIMAL = re.compile(r"^[-+]?(0[0-9_]+|0[xXbBoO]|[^:]*:)")   # octal, hex, binary, base 60
 _FLOAT_RE = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
 _CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
 
@@ -290,9 +293,16 @@ def _convert(node, path: str, constructor, budget: list, depth: int = 0) -> _Nod
         return _Node(out, where)
     if isinstance(node, yaml.SequenceNode):
         return _Node([_convert(v, path, constructor, budget, depth + 1) for v in node.value], where)
-    # Scalar. Plain scalars like 1e-6 are strings under YAML 1.1; read them as numbers.
-    if node.tag == "tag:yaml.org,2002:str" and node.style is None and _FLOAT_RE.match(node.value):
+    # Scalar. Plain scalars like 1e-6 are strings under YAML 1.1; read them as numbers, unless the
+    # recipe tagged them as text itself (!!str -1 stays text, as "-1" does).
+    if node.tag == _STR_TAG and node.style is None and _FLOAT_RE.match(node.value) \
+            and _RESOLVER.resolve(yaml.ScalarNode, node.value, (True, False)) == _STR_TAG:
         return _Node(float(node.value), where, node.value)
+    # YAML 1.1 reads 050 as octal (40), 1:30 as base 60 (90), 0x32 as hex: a hum notch typed 050
+    # would cut 40 Hz. Numbers in a recipe are written in decimal.
+    if node.style is None and node.tag in (_INT_TAG, _FLOAT_TAG) and _NOT_DECIMAL.match(node.value):
+        raise RecipeError.at(where, f"'{node.value}' is not a decimal number (YAML would read it in another "
+                                    "base); write it in decimal, without leading zeros or colons")
     try:
         value = constructor.construct_object(node, deep=True)
     except (yaml.YAMLError, ValueError, OverflowError) as exc:

@@ -50,6 +50,16 @@ MALFORMED = [
      3, '"3"', "chain[0].gain_db must be a number; found text '3'"),
     ("bool for number", {"r.yaml": "format: 1\nchain:\n  - {type: gain, gain_db: yes}\n"}, "r.yaml", "r.yaml",
      3, "yes", "chain[0].gain_db must be a number; found 'true'"),
+    # YAML 1.1 (yaml.org spec, from memory) reads 050 as octal 40, 1:30 as base 60 (90) and 0x32 as hex 50;
+    # a hum notch typed 050 would cut 40 Hz, so only decimal numbers are taken
+    ("leading zero", {"r.yaml": "format: 1\nchain:\n  - {type: notch, freq: 050, q: 25}\n"}, "r.yaml", "r.yaml",
+     3, "050", "'050' is not a decimal number (YAML would read it in another base); write it in decimal"),
+    ("base 60", {"r.yaml": "format: 1\nchain:\n  - {type: notch, freq: 1:30, q: 25}\n"}, "r.yaml", "r.yaml",
+     3, "1:30", "'1:30' is not a decimal number"),
+    ("hex", {"r.yaml": "format: 1\nchain:\n  - {type: notch, freq: 0x32, q: 25}\n"}, "r.yaml", "r.yaml",
+     3, "0x32", "'0x32' is not a decimal number"),
+    ("tagged as text", {"r.yaml": "format: 1\nchain:\n  - {type: gain, gain_db: !!str -1}\n"}, "r.yaml", "r.yaml",
+     3, "!!str", "chain[0].gain_db must be a number; found text '-1'"),
     ("chain is a mapping", {"r.yaml": "format: 1\nchain: {type: gain, gain_db: 1}\n"}, "r.yaml", "r.yaml",
      2, "{", "chain must be a list of sections; found a mapping"),
     ("section is text", {"r.yaml": "format: 1\nchain:\n  - peak\n"}, "r.yaml", "r.yaml", 3, "peak",
