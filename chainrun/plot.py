@@ -221,7 +221,10 @@ def _y_range(chain_db: np.ndarray, parts, recipe: Recipe, assessment: Assessment
         if math.isfinite(mark) and mark <= top + 18.0:
             top = max(top, mark)
     top = 3.0 * math.ceil((top + 2.5) / 3.0)
-    bottom = max(DEEPEST_DB, 6.0 * math.floor((min(data_bottom, -6.0) - 2.0) / 6.0))
+    # Deep dips (a notch's centre) run off the bottom, but never the chain as a whole: the axis
+    # reaches at least 30 dB below the chain's highest point (a chain that only attenuates a lot).
+    lowest = min(DEEPEST_DB, 6.0 * math.floor((data_top - 30.0) / 6.0))
+    bottom = max(lowest, 6.0 * math.floor((min(data_bottom, -6.0) - 2.0) / 6.0))
     return min(bottom, top - 12.0), top
 
 
@@ -344,7 +347,8 @@ def response_figure(recipe: Recipe, chain: Chain, assessment: Assessment) -> Fig
                 color="#333333", fontsize=8, ha="left", va="bottom", zorder=6, transform=ax.get_yaxis_transform())
     else:
         note = ("worst-case peak gain: unbounded (the chain is unstable)" if not math.isfinite(l1)
-                else f"worst-case peak gain {_signed(l1)} dB (above the top of this axis)")
+                else f"worst-case peak gain {_signed(l1)} dB "
+                     f"({'above the top' if l1 >= top else 'below the bottom'} of this axis)")
         ax.text(0.01, 0.97, note, transform=ax.transAxes, color="#333333", fontsize=8, ha="left", va="top",
                 zorder=6, bbox=dict(boxstyle="round,pad=0.25", fc="white", ec="none", alpha=0.9))
     mg, mf = assessment.max_gain_db, assessment.max_gain_hz
@@ -354,8 +358,10 @@ def response_figure(recipe: Recipe, chain: Chain, assessment: Assessment) -> Fig
         at = "DC (0 Hz)" if mf <= 0 else _hz(mf)
         ax.plot([fx], [fy], marker="D", ms=7, mfc="white", mec=_CHAIN_COLOUR, mew=1.8, zorder=7, ls="none", clip_on=False)
         right = np.log(fx) > 0.5 * (np.log(freqs[0]) + np.log(freqs[-1]))
-        ax.annotate(f"max gain {_signed(mg)} dB\nat {at}", xy=(fx, fy), xytext=(-16 if right else 16, -30),
-                    textcoords="offset points", ha="right" if right else "left", va="top", fontsize=8.5,
+        room_below = fy > bottom + 0.35 * (top - bottom)      # else the label goes above the marker
+        ax.annotate(f"max gain {_signed(mg)} dB\nat {at}", xy=(fx, fy),
+                    xytext=(-16 if right else 16, -30 if room_below else 30), textcoords="offset points",
+                    ha="right" if right else "left", va="top" if room_below else "bottom", fontsize=8.5,
                     arrowprops=dict(arrowstyle="-", color=_CHAIN_COLOUR, lw=0.8), zorder=8,
                     bbox=dict(boxstyle="round,pad=0.3", fc="white", ec="#9e9e9e", lw=0.6))
     if not assessment.accepted:

@@ -497,9 +497,12 @@ def _rule_shelf(params, entries, name, where) -> None:
         excess = 1.0 - 2.0 / (a + 1.0 / a)
         s_max = 1.0 / excess if excess > 0 else math.inf
         if params["slope"] > s_max:
+            # said rounded down, so that the value offered is one that is accepted
+            digits = 3 - math.floor(math.log10(s_max))
+            offered = math.floor(s_max * 10.0 ** digits) / 10.0 ** digits
             raise RecipeError.at(where.get("slope", where["type"]),
                                  f"{name}.slope {_fmt(params['slope'])} is too steep for "
-                                 f"{_fmt(params['gain_db'])} dB; allowed: up to {s_max:.4g} at this gain")
+                                 f"{_fmt(params['gain_db'])} dB; allowed: up to {offered:.4g} at this gain")
 
 
 def _rule_band(params, entries, name, where) -> None:

@@ -235,3 +235,19 @@ def test_unstable_chain_has_no_finite_worst_case_line(repo_root):
     assert not math.isfinite(a.peak_gain_db)
     svg = response_svg(recipe, chain, a)
     assert "worst-case peak gain: unbounded" in svg
+
+
+def test_a_chain_far_below_0_db_is_on_the_axis(tmp_path):
+    # a plain -60 dB gain (analytic: flat at -60 dB) lies below the usual -48 dB floor of the axis; the
+    # axis must reach it, and the worst-case peak line is drawn there, not described as off the axis
+    path = tmp_path / "quiet.yaml"
+    path.write_text("format: 1\nname: quiet\nchain:\n  - {type: gain, gain_db: -60}\n")
+    recipe = load(path)
+    chain = design(recipe, 48000)
+    fig = response_figure(recipe, chain, assess(chain, recipe.guard, recipe))
+    ax = fig.axes[0]
+    bottom, top = ax.get_ylim()
+    assert bottom < -60.0 < top
+    texts = [t.get_text() for t in ax.texts]
+    assert any(t.startswith("worst-case peak gain -60.00 dB (L1 norm") for t in texts), texts
+    assert not any("of this axis" in t for t in texts), texts

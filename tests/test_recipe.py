@@ -98,9 +98,10 @@ MALFORMED = [
      "r.yaml", "r.yaml", 3, "1}", "chain[0] gives both slope and q; give one of them"),
     ("slope too steep", {"r.yaml": "format: 1\nchain:\n  - {type: high_shelf, freq: 8000, gain_db: 12, slope: 6}\n"},
      "r.yaml", "r.yaml", 3, "6}",
-     # W3C Audio EQ Cookbook: (A + 1/A)(1/S - 1) + 2 >= 0  =>  S <= 1/(1 - 2/(A + 1/A)), A = 10^(12/40)
+     # W3C Audio EQ Cookbook: (A + 1/A)(1/S - 1) + 2 >= 0  =>  S <= 1/(1 - 2/(A + 1/A)), A = 10^(12/40),
+     # = 5.0286...; offered rounded down to four digits, so that the value offered is accepted
      "chain[0].slope 6 is too steep for 12 dB; allowed: up to "
-     f"{1 / (1 - 2 / (10 ** 0.3 + 10 ** -0.3)):.4g} at this gain"),
+     f"{math.floor(1000 / (1 - 2 / (10 ** 0.3 + 10 ** -0.3))) / 1000:.4g} at this gain"),
     ("slope on first-order shelf",
      {"r.yaml": "format: 1\nchain:\n  - {type: low_shelf, freq: 100, gain_db: 2, order: 1, slope: 1}\n"},
      "r.yaml", "r.yaml", 3, "1}", "chain[0].slope is not used by a first-order shelf"),
@@ -539,3 +540,19 @@ def test_bundled_recipes_load(repo_root, name):
     recipe = load(repo_root / "recipes" / name)
     assert recipe.sections and all(math.isfinite(v) for s in recipe.sections for v in
                                    (x for x in s.params.values() if isinstance(x, float)))
+
+
+@pytest.mark.parametrize("gain_db", [24.0, 12.0, 3.0, -24.0])
+def test_the_steepest_slope_offered_is_accepted(write_recipe, gain_db):
+    # W3C Audio EQ Cookbook: the shelf's alpha is real for S <= 1/(1 - 2/(A + 1/A)), A = 10^(gain/40);
+    # the error offers that limit rounded down (24 dB: 1.89595... is offered as 1.895), and typing the
+    # value offered must load
+    path = write_recipe(f"format: 1\nchain:\n  - {{type: low_shelf, freq: 100, gain_db: {gain_db}, slope: 1000}}\n")
+    with pytest.raises(RecipeError) as err:
+        load(path)
+    offered = float(str(err.value).split("allowed: up to ")[1].split(" ")[0])
+    a = 10 ** (gain_db / 40)
+    assert offered <= 1 / (1 - 2 / (a + 1 / a)) < offered * 1.001
+    ok = write_recipe(f"format: 1\nchain:\n  - {{type: low_shelf, freq: 100, gain_db: {gain_db}, slope: {offered}}}\n",
+                      name="ok.yaml")
+    assert load(ok).sections[0].params["slope"] == offered
