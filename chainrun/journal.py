@@ -139,9 +139,14 @@ def _read_owner(fd: int) -> dict | None:
 
 
 def clean_leftovers(outdir: str) -> list[str]:
-    """Remove temporary outputs of earlier, interrupted runs under ``outdir``; returns what was removed."""
+    """Remove temporary outputs of earlier, interrupted runs under ``outdir``; returns what was removed.
+
+    A subfolder that holds a lock of its own is another run's OUTDIR, perhaps one rendering right now:
+    it is not entered (a run into it cleans it).
+    """
     removed = []
     for root, dirs, files in os.walk(outdir):
+        dirs[:] = [d for d in dirs if not os.path.lexists(os.path.join(root, d, LOCK_NAME))]
         for name in files:
             if name.startswith(".") and TEMP_TAG in name:
                 path = os.path.join(root, name)

@@ -509,3 +509,20 @@ def test_a_file_that_kills_every_worker_fails_alone(tmp_path, season, run_cli, m
     assert audio_outputs(out) == rest and len(rest) == 2
     for rel in rest:
         assert (out / rel).read_bytes() == (ref / rel).read_bytes()
+
+
+def test_leftover_clean_up_does_not_enter_another_run_s_outdir(tmp_path):
+    # A run into out/ must not remove the temporary file of a run rendering into out/sub/ right now (seen:
+    # that run's delivery failed). A subfolder with a lock of its own is another OUTDIR; its run cleans it.
+    from chainrun.journal import LOCK_NAME, clean_leftovers
+    from chainrun.render import TEMP_TAG
+
+    (tmp_path / "out" / "sub").mkdir(parents=True)
+    (tmp_path / "out" / "old").mkdir()
+    (tmp_path / "out" / "sub" / LOCK_NAME).write_text("{}")
+    busy = tmp_path / "out" / "sub" / f".long.wav{TEMP_TAG}e30a6920"
+    stale = tmp_path / "out" / "old" / f".take.wav{TEMP_TAG}0badf00d"
+    busy.write_bytes(b"being written")
+    stale.write_bytes(b"left by a killed run")
+    assert clean_leftovers(str(tmp_path / "out")) == [str(stale)]
+    assert busy.exists() and not stale.exists()
