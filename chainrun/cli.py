@@ -375,7 +375,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--on-over", choices=("reject", "clip", "scale"),
                    help="what to do when an output would pass the ceiling (default: the recipe's guard.on_over)")
     p.add_argument("--report", metavar="PATH", help="JSON report path (default OUTDIR/chainrun-report.json); "
-                                                     "the CSV and HTML reports go beside it")
+                                                     "the CSV and HTML reports go beside it. A name without "
+                                                     ".json is the base of all three; a folder holds them")
     p.add_argument("--no-true-peak", action="store_true",
                    help="skip true-peak metering (faster); outputs are still metered against a recipe's "
                         "true_peak_ceiling_dbtp")

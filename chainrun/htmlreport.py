@@ -365,7 +365,9 @@ def _files_table(ordered: list[dict]) -> list[str]:
 
 
 def _has_regions(f: dict) -> bool:
-    return any(c.get("clipped_regions") or c.get("clipped_samples") for c in _channels(f.get("output_meters")))
+    """A delivered output with samples at full scale (a rejected file's meters describe no file)."""
+    return f.get("status") in ("ok", "clipped") and any(
+        c.get("clipped_regions") or c.get("clipped_samples") for c in _channels(f.get("output_meters")))
 
 
 def _regions(ordered: list[dict]) -> list[str]:

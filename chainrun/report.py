@@ -131,6 +131,7 @@ def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
             "audio_seconds_delivered": round(audio_s, 3), "wall_seconds": round(b.seconds, 3),
             "interrupted": b.interrupted,
         },
+        "notes": list(b.notes),
         "files": [file_dict(r) for r in b.results],
     }
 
@@ -148,7 +149,19 @@ def _atomic_write(path: str, text: str) -> None:
 
 
 def report_paths(b: BatchResult, json_path: str | None = None) -> dict[str, str]:
-    base = os.path.splitext(json_path)[0] if json_path else os.path.join(b.outdir, "chainrun-report")
+    """The three report paths: OUTDIR/chainrun-report.*, or beside ``--report``.
+
+    ``--report`` may name the JSON file (``night.json``), a base name (``night.2024.06.01``: only a
+    ``.json`` suffix is taken off, never another dot-part) or a folder (``rep/``: the default names
+    inside it).
+    """
+    if not json_path:
+        base = os.path.join(b.outdir, "chainrun-report")
+    elif json_path.endswith(("/", os.sep)) or os.path.isdir(json_path):
+        base = os.path.join(json_path, "chainrun-report")
+    else:
+        stem, ext = os.path.splitext(json_path)
+        base = stem if ext.lower() == ".json" else json_path
     return {"json": base + ".json", "csv": base + ".csv", "html": base + ".html"}
 
 

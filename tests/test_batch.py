@@ -531,3 +531,26 @@ def test_the_note_about_an_earlier_output_is_said_once(tmp_path):
     batch._note_earlier_output(job, r)
     assert r.message == ("over the ceiling; the file under its output name is an earlier run's, left as it was, "
                          "not this run's result")
+
+
+@pytest.mark.parametrize("given, base", [
+    ("rep/night.json", "rep/night"), ("rep/night.JSON", "rep/night"),
+    ("rep/night.2024.06.01", "rep/night.2024.06.01"), ("rep/night", "rep/night"),
+    ("rep/", "rep/chainrun-report")])
+def test_report_option_keeps_every_dot_part_but_json(given, base):
+    # two nights named night.2024.06.01 and night.2024.06.02 must not share (and overwrite) one report
+    from chainrun.report import report_paths
+
+    paths = report_paths(None, given)
+    assert paths == {"json": base + ".json", "csv": base + ".csv", "html": base + ".html"}
+
+
+def test_the_json_report_keeps_the_run_s_notes(tmp_path, write_recipe, write_audio, run_cli):
+    write_audio("in/a.wav", np.zeros(2000), 48000, "PCM_16")
+    recipe = write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\n")
+    out = tmp_path / "out"
+    assert run_cli("run", recipe, tmp_path / "in", "-o", out, "--workers", "1")[0] == 0
+    status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", out, "--workers", "1")
+    assert status == 0, err
+    notes = report_of(out)["notes"]
+    assert any("already delivered by an earlier run" in n for n in notes), notes

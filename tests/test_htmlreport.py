@@ -428,3 +428,14 @@ def test_the_report_gets_its_picture_from_a_child(tmp_path, monkeypatch, capsys,
     assert calls == [[RATE]]
     assert drawn_here == []                         # the child drew it; this process did not
     assert page.count("<svg") == 1
+
+
+def test_a_rejected_file_is_not_listed_among_clipped_outputs():
+    # a rejected file delivered nothing: its output meters describe no file, so it has no clipped regions
+    from chainrun.htmlreport import _has_regions
+
+    meters = {"channels": [{"clipped_samples": 13, "clipped_regions": [[100, 113]]}]}
+    assert _has_regions({"status": "clipped", "output_meters": meters})
+    assert _has_regions({"status": "ok", "output_meters": meters})
+    assert not _has_regions({"status": "rejected", "output_meters": meters})
+    assert not _has_regions({"status": "failed", "output_meters": meters})
