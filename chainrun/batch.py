@@ -28,7 +28,7 @@ from .guard import Assessment, assess, check_raw_sections
 from .recipe import Recipe, RecipeError
 from .journal import Journal, LockedError, OutdirLock, clean_leftovers
 from .render import (DEFAULT_BLOCK, MAX_BLOCK, TEMP_TAG, AudioError, FileResult, Policy, Source, _sf_path, probe,
-                     allow_rendering, render_file, rendering_stopped, stop_rendering)
+                     _stop_point, allow_rendering, render_file, rendering_stopped, stop_rendering)
 
 __all__ = ["BatchError", "Job", "Plan", "RateDesign", "BatchResult", "discover", "prepare", "claim_outdir",
            "execute", "run_batch", "job_key"]
@@ -370,7 +370,7 @@ class Prepared:
     designs: dict[int, RateDesign]
     work: list[tuple[Job, Source]]
     results: list[FileResult]       # already decided: skipped, unreadable, rejected at their rate
-    refused: list[Job] = field(default_factory=list)     # the jobs rejected at their rate
+    refused: list[tuple[Job, FileResult]] = field(default_factory=list)   # those rejected at their rate
 
 
 def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> Prepared:
@@ -401,9 +401,10 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
         if d.usable:
             work.append((job, src))
         else:
-            refused.append(job)
-            results.append(FileResult(job.input, job.relpath, "rejected",
-                                      f"the recipe cannot be used at {src.rate} Hz: {d.error}", source=src))
+            r = FileResult(job.input, job.relpath, "rejected", f"the recipe cannot be used at {src.rate} Hz: "
+                           f"{d.error}", source=src)
+            refused.append((job, r))
+            results.append(r)
     if probed and not work:
         first = next(iter(designs.values()))
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "
@@ -488,8 +489,9 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
 
 # In a worker process: Ctrl-C (SIGINT, from the terminal or forwarded by the parent) stops the file being
 # rendered at its next block (render_file removes its temporary file) and every file queued after it.
-# The handler only sets a flag: see render.stop_rendering for why it never raises.
-def _worker_sigint(signum, frame) -> None:
+# The handler only sets a flag: see render.stop_rendering for why it never raises. The calling process
+# uses it too while it renders (_ctrl_c_stops_rendering).
+def _sigint_stops_rendering(signum, frame) -> None:
     stop_rendering()
 
 
@@ -509,7 +511,7 @@ def _worker_init(parent: int | None = None) -> None:
         os._exit(1)
     allow_rendering()
     if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:   # a batch run in the background ignores it
-        signal.signal(signal.SIGINT, _worker_sigint)
+        signal.signal(signal.SIGINT, _sigint_stops_rendering)
 
 
 def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
@@ -536,7 +538,7 @@ def _ctrl_c_stops_rendering():
             or signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
         yield
         return
-    previous = signal.signal(signal.SIGINT, lambda signum, frame: stop_rendering())
+    previous = signal.signal(signal.SIGINT, _sigint_stops_rendering)
     try:
         yield
     finally:
@@ -617,9 +619,8 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
             continue
         r.extra["resumed"] = True
         results.append(r)
-    by_relpath = {r.relpath: r for r in results}
-    for job in prep.refused:
-        _note_earlier_output(job, by_relpath[job.relpath])
+    for job, r in prep.refused:
+        _note_earlier_output(job, r)
     if len(todo) < len(prep.work):
         notes.append(f"{len(prep.work) - len(todo)} file(s) already delivered by an earlier run with the same "
                      "recipe and inputs; kept as they are (use --redo to render them again)")
@@ -658,8 +659,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         try:
             with _ctrl_c_stops_rendering():
                 for job, src in todo:
-                    if rendering_stopped():
-                        raise KeyboardInterrupt
+                    _stop_point()
                     try:
                         r = _render_job(*args(job, src))
                     except Exception as exc:  # a fault outside render_file's own handling: this file only

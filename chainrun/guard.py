@@ -112,13 +112,14 @@ def response_db(sos: np.ndarray, freqs: np.ndarray, rate: float) -> np.ndarray:
     return np.maximum(np.where(np.isnan(db), np.inf, db), FLOOR_DB)
 
 
+def _row_poles(row: np.ndarray) -> np.ndarray:
+    """Poles of one SOS row (none for a row without feedback)."""
+    return np.roots(row[3:6] / row[3]) if np.any(row[4:6]) else np.zeros(0)
+
+
 def pole_radii(sos: np.ndarray) -> np.ndarray:
     """Largest pole radius of each row (0 for a row without feedback)."""
-    out = np.zeros(len(sos))
-    for i, row in enumerate(sos):
-        roots = np.roots(row[3:6] / row[3]) if np.any(row[4:6]) else np.zeros(0)
-        out[i] = np.max(np.abs(roots)) if roots.size else 0.0
-    return out
+    return np.array([float(np.max(np.abs(p))) if p.size else 0.0 for p in map(_row_poles, sos)])
 
 
 def check_raw_sections(recipe: Recipe) -> list[Problem]:
@@ -145,13 +146,8 @@ def _pole_hz(sos: np.ndarray, rate: float) -> list[float]:
     A raw iir section has no ``freq`` to look at, and a resonance narrower than the grid's
     spacing could fall between its points; its poles say where it is.
     """
-    out = []
-    for row in sos:
-        if np.any(row[4:6]):
-            for p in np.roots(row[3:6] / row[3]):
-                if abs(p) > 0.5 and 0.0 < np.angle(p) < np.pi:
-                    out.append(float(np.angle(p)) * rate / (2.0 * np.pi))
-    return out
+    return [float(np.angle(p)) * rate / (2.0 * np.pi)
+            for row in sos for p in _row_poles(row) if abs(p) > 0.5 and 0.0 < np.angle(p) < np.pi]
 
 
 def _extremes(sos: np.ndarray, rate: float, extra_hz: list[float]) -> tuple[float, float, float, float]:

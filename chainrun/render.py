@@ -497,7 +497,6 @@ class _Output:
         if self.fmt == "RF64" and self.subtype in ("FLOAT", "DOUBLE"):
             _clear_rf64_peak_time(self.path)
 
-
     def __enter__(self) -> "_Output":
         return self
 
@@ -839,15 +838,11 @@ def _db(x: float) -> float:
 
 def _over(peak: float, true_peak: float | None, policy: Policy) -> float:
     """dB by which the output passes the ceiling(s); <= 0 when it fits."""
-    over = _db(peak) - policy.ceiling_dbfs
-    if policy.true_peak_ceiling_dbtp is not None and true_peak is not None:
-        over = max(over, _db(true_peak) - policy.true_peak_ceiling_dbtp)
-    return over
+    return max(_db(peak) - policy.ceiling_dbfs, _true_peak_over(true_peak, policy))
 
 
-def _true_peak_over(reading: MeterReading, policy: Policy) -> float:
-    """dB by which the metered true peak passes the true-peak ceiling; -inf with no ceiling or no reading."""
-    true_peak = _max_tp(reading)
+def _true_peak_over(true_peak: float | None, policy: Policy) -> float:
+    """dB by which ``true_peak`` passes the true-peak ceiling; -inf with no ceiling or no reading."""
     if policy.true_peak_ceiling_dbtp is None or true_peak is None:
         return -math.inf
     return _db(true_peak) - policy.true_peak_ceiling_dbtp
@@ -1000,7 +995,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         _fsync_path(os.path.dirname(dst) or ".", directory=True)
         res.input_meters, res.output_meters = in_meter.result(), out_meter.result()
         # Clipping holds the sample ceiling only: a true peak still over its ceiling is said, not hidden.
-        tp_left = _true_peak_over(res.output_meters, policy) if policy.on_over == "clip" else -math.inf
+        tp_left = _true_peak_over(_max_tp(res.output_meters), policy) if policy.on_over == "clip" else -math.inf
         res.status = "clipped" if res.clipped_by_chainrun or tp_left > 0 else "ok"
         if res.status == "clipped":
             said = []
