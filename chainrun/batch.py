@@ -6,7 +6,6 @@ is ever written outside OUTDIR, and OUTDIR may not lie inside an input folder.
 """
 from __future__ import annotations
 
-import contextlib
 import hashlib
 import importlib
 import json
@@ -16,7 +15,6 @@ import re
 import signal
 import stat
 import sys
-import threading
 import time
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
@@ -27,8 +25,13 @@ from .design import Chain, design
 from .guard import Assessment, assess, check_raw_sections
 from .recipe import Recipe, RecipeError
 from .journal import Journal, LockedError, OutdirLock, clean_leftovers
-from .render import (DEFAULT_BLOCK, MAX_BLOCK, TEMP_TAG, AudioError, FileResult, Policy, Source, _sf_path, probe,
-                     _stop_point, allow_rendering, render_file, rendering_stopped, stop_rendering)
+from .audio.source import Source
+from .errors import AudioError, BatchError
+from .fsutil import TEMP_TAG
+from .interrupt import allow_rendering, ctrl_c_stops_rendering, on_sigint, rendering_stopped, stop_point as _stop_point
+from .render import DEFAULT_BLOCK, MAX_BLOCK, Policy, _sf_path, probe, render_file
+from .results import FAILED, INTERRUPTED, MAC_METADATA, NOT_AUDIO, QUIET_SKIPS, FileResult  # noqa: F401 (re-exported)
+from .text import fault, first_line, reason as _reason
 
 __all__ = ["BatchError", "Job", "Plan", "RateDesign", "BatchResult", "discover", "prepare", "claim_outdir",
            "execute", "run_batch", "job_key"]
@@ -46,10 +49,6 @@ AUDIO_EXTENSIONS = frozenset({
 })
 # First bytes of containers libsndfile reads, for files without a known extension.
 _MAGIC = (b"RIFF", b"RIFX", b"RF64", b"BW64", b"FORM", b"fLaC", b"OggS", b"caff", b".snd", b"riff")
-
-
-class BatchError(Exception):
-    """A problem with the whole batch (usage, recipe rejected): exit status 2."""
 
 
 @dataclass(frozen=True)
@@ -118,10 +117,6 @@ def _looks_like_audio(path: str) -> bool:
     return head in _MAGIC
 
 
-NOT_AUDIO = "not audio (by name and by content)"
-MAC_METADATA = "a macOS metadata file, not audio"
-QUIET_SKIPS = frozenset({NOT_AUDIO, MAC_METADATA})     # skips not worth a line on stderr
-INTERRUPTED = "not rendered: the batch was interrupted"
 BROKEN_LINK = "a link to nothing (broken symbolic link); there is nothing to read"
 
 
@@ -132,10 +127,6 @@ def _skip(path: str, rel: str, why: str) -> FileResult:
 def _fail(path: str, rel: str, why: str) -> FileResult:
     """An input found (or named) that cannot be rendered: failed, so the batch does not end 'all ok'."""
     return FileResult(input=path, relpath=rel, status="failed", message=why)
-
-
-def _reason(exc: OSError) -> str:
-    return (exc.strerror or str(exc)).lower()
 
 
 def discover(inputs: list[str], outdir: str | None) -> Plan:
@@ -286,8 +277,7 @@ def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
     """
     from .design import design_section
 
-    text = (str(exc).strip().splitlines() or [""])[0]
-    why = f"{type(exc).__name__}{': ' + text if text else ''}"
+    why = fault(exc)
     for section in recipe.sections:
         try:
             design_section(section, rate)
@@ -487,14 +477,6 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
                        relpath=job.relpath)
 
 
-# In a worker process: Ctrl-C (SIGINT, from the terminal or forwarded by the parent) stops the file being
-# rendered at its next block (render_file removes its temporary file) and every file queued after it.
-# The handler only sets a flag: see render.stop_rendering for why it never raises. The calling process
-# uses it too while it renders (_ctrl_c_stops_rendering).
-def _sigint_stops_rendering(signum, frame) -> None:
-    stop_rendering()
-
-
 def _worker_init(parent: int | None = None) -> None:
     if sys.platform.startswith("linux"):
         # A worker must not outlive its batch: if the parent is killed (SIGKILL, a crash), the kernel kills
@@ -511,7 +493,7 @@ def _worker_init(parent: int | None = None) -> None:
         os._exit(1)
     allow_rendering()
     if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:   # a batch run in the background ignores it
-        signal.signal(signal.SIGINT, _sigint_stops_rendering)
+        signal.signal(signal.SIGINT, on_sigint)
 
 
 def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
@@ -522,33 +504,6 @@ def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) 
         return _render_job(job, src, sos, bound, policy)     # execute gave it one thread: one core
     except KeyboardInterrupt:
         return interrupted
-
-
-@contextlib.contextmanager
-def _ctrl_c_stops_rendering():
-    """Rendering in this process: Ctrl-C stops the file at its next block, and the files after it.
-
-    Only in the main thread (where signal handlers live), and not when SIGINT is ignored (a
-    background job). The flag is cleared on the way in and out, so a later batch in the same
-    process runs; a Ctrl-C that came after the last block is raised on the way out, so the batch
-    still counts as interrupted.
-    """
-    allow_rendering()
-    if threading.current_thread() is not threading.main_thread() \
-            or signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
-        yield
-        return
-    previous = signal.signal(signal.SIGINT, _sigint_stops_rendering)
-    try:
-        yield
-    finally:
-        try:
-            signal.signal(signal.SIGINT, signal.SIG_DFL if previous is None else previous)
-        finally:
-            late = rendering_stopped()
-            allow_rendering()
-        if late:
-            raise KeyboardInterrupt
 
 
 def job_key(recipe: Recipe, policy: Policy) -> str:
@@ -657,15 +612,14 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
     if in_process:
         try:
-            with _ctrl_c_stops_rendering():
+            with ctrl_c_stops_rendering():
                 for job, src in todo:
                     _stop_point()
                     try:
                         r = _render_job(*args(job, src))
                     except Exception as exc:  # a fault outside render_file's own handling: this file only
-                        text = (str(exc).strip().splitlines() or [""])[0]
-                        r = FileResult(job.input, job.relpath, "failed", f"unexpected fault: "
-                                       f"{type(exc).__name__}: {text}; nothing was delivered", source=src)
+                        r = FileResult(job.input, job.relpath, FAILED, f"unexpected fault: {type(exc).__name__}: "
+                                       f"{first_line(exc)}; nothing was delivered", source=src)
                     finished(job, r)
         except KeyboardInterrupt:
             interrupted = True
@@ -720,7 +674,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
                                     again.append((job, src))
                                     del pending[fut]
                                     continue
-                            text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+                            text = first_line(exc, type(exc).__name__)
                             r = FileResult(job.input, job.relpath, "failed", f"the worker rendering it stopped: "
                                            f"{text}; nothing was delivered", source=src)
                         finished(job, r)

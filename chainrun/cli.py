@@ -10,7 +10,9 @@ import traceback
 
 from . import __version__
 from .recipe import RecipeError, load
-from .report import fmt_db, loudest, shown
+from .interrupt import from_ctrl_c as _from_ctrl_c
+from .report import loudest
+from .text import fmt_db, shown
 
 DEFAULT_RATES = (44100, 48000, 96000)
 _ASSESSMENT_KEYS = ("rate", "accepted", "rows", "max_pole_radius", "decay_60db_s", "decay_exact", "max_gain_db",
@@ -399,22 +401,6 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("-o", "--output", required=True, metavar="FILE", help="picture to write, .png or .svg")
     p.set_defaults(func=cmd_plot)
     return parser
-
-
-def _from_ctrl_c(exc: BaseException) -> bool:
-    """True when ``exc`` wraps a KeyboardInterrupt.
-
-    Python turns a Ctrl-C that lands in some places (a descriptor's __set_name__
-    while a module defines its classes, e.g. during matplotlib's import) into a
-    RuntimeError whose cause is the KeyboardInterrupt; it is still a Ctrl-C.
-    """
-    seen = set()
-    while exc is not None and id(exc) not in seen:
-        if isinstance(exc, KeyboardInterrupt):
-            return True
-        seen.add(id(exc))
-        exc = exc.__cause__ or exc.__context__
-    return False
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -31,17 +31,10 @@ import tempfile
 from typing import Any, Iterable
 
 from .batch import BatchResult
+from .results import STATUS_ORDER, STATUSES
 
 __all__ = ["render_html"]
 
-# Status -> what it means, in "needs attention first" order (the order of report.STATUS_ORDER).
-_STATUS_TEXT = {
-    "failed": "unreadable input or a fault; nothing delivered",
-    "rejected": "would pass the ceiling, or the recipe cannot be used at its rate; nothing delivered",
-    "clipped": "delivered, but chainrun hard-clipped samples, or the true peak passes its ceiling",
-    "ok": "delivered",
-    "skipped": "not processed (not audio, or named twice)",
-}
 _MAX_OPEN_REGIONS = 20          # files whose clipped regions are shown unfolded; the rest fold away
 
 _CSS = """
@@ -173,7 +166,6 @@ def _seconds(x: float | None) -> str:
 # --------------------------------------------------------------------------- order
 
 def _file_key(f: dict):
-    from .report import STATUS_ORDER
 
     peaks = [c.get("peak") or 0.0 for c in _channels(f.get("output_meters"))]
     return (STATUS_ORDER.get(f.get("status"), 9), -(max(peaks) if peaks else 0.0), f.get("relpath") or "")
@@ -194,7 +186,7 @@ def _ordered(data: dict, batch: BatchResult | None) -> list[dict]:
 
 def _status(status: Any) -> str:
     s = _text(status)
-    cls = s if s in _STATUS_TEXT else "skipped"
+    cls = s if s in STATUSES else "skipped"
     return f'<span class="status st-{cls}">{_e(s)}</span>'
 
 
@@ -226,7 +218,6 @@ def _header(data: dict, batch: BatchResult | None) -> list[str]:
 
 
 def _summary(data: dict, ordered: list[dict], batch: BatchResult | None = None) -> list[str]:
-    from .report import STATUS_ORDER
 
     summary = data.get("summary") or {}
     total = summary.get("files", len(ordered))
@@ -247,7 +238,7 @@ def _summary(data: dict, ordered: list[dict], batch: BatchResult | None = None) 
     for s in STATUS_ORDER:
         n = counts[s]
         inner = (f'<span class="n">{n}</span><span class="status st-{s}">{s}</span> '
-                 f'<span class="what">{_e(_STATUS_TEXT[s])}</span>')
+                 f'<span class="what">{_e(STATUSES[s].meaning)}</span>')
         if n:
             out.append(f'<li><a href="#first-{s}" class="b-{s}">{inner}</a></li>')
         else:

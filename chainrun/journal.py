@@ -21,7 +21,7 @@ import socket
 import time
 from dataclasses import dataclass
 
-from .render import TEMP_TAG
+from .fsutil import TEMP_TAG
 
 __all__ = ["LockedError", "OutdirLock", "clean_leftovers", "fingerprint", "Journal", "LOCK_NAME", "JOURNAL_NAME"]
 

@@ -30,6 +30,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .text import db as _db
+
 __all__ = ["Meter", "MeterReading", "ChannelReading"]
 
 # --- true-peak interpolator -------------------------------------------------
@@ -104,11 +106,6 @@ def _weights(factor: int) -> tuple[np.ndarray, float]:
     w.setflags(write=False)
     l1 = float(np.abs(w.astype(np.float64)).sum(axis=0).max()) * (1.0 + 1e-4)
     return w, l1
-
-
-def _db(value: float) -> float:
-    """20*log10(value); -inf for 0."""
-    return 20.0 * math.log10(value) if value > 0.0 else -math.inf
 
 
 def _json_float(value: float | None) -> float | None:

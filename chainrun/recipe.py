@@ -24,6 +24,9 @@ from typing import Any, Mapping
 
 import yaml
 
+from .errors import Location, RecipeError
+from .text import one_line  # noqa: F401 (re-exported)
+
 __all__ = ["Location", "RecipeError", "Section", "Guard", "Output", "Recipe", "load"]
 
 # Resource bounds. A recipe is a small hand-written file; anything far beyond
@@ -43,51 +46,6 @@ _STR_TAG, _INT_TAG, _FLOAT_TAG = ("tag:yaml.org,2002:str", "tag:yaml.org,2002:in
 _RESOLVER = yaml.resolver.Resolver()         # YAML 1.1's implicit tags, to tell an explicit !!str apart
 _NOT_DECIMAL = re.compile(r"^[-+]?(0[0-9_]+|0[xXbBoO]|[^:]*:)")   # octal, hex, binary, base 60
 _FLOAT_RE = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
-_CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
-
-
-def one_line(text: str) -> str:
-    """``text`` with control characters (a newline, a terminal escape) shown escaped, e.g. ``\\n``."""
-    return _CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], text)
-
-
-@dataclass(frozen=True)
-class Location:
-    """A place in a recipe file: path, 1-based line and 1-based column."""
-
-    path: str
-    line: int
-    col: int
-
-    def __str__(self) -> str:
-        return f"{self.path}:{self.line}:{self.col}"
-
-
-class RecipeError(ValueError):
-    """A recipe problem, located: ``path:line:col: error: what; what is allowed``.
-
-    Parameters
-    ----------
-    path, line, col
-        Where the problem is (1-based line and column).
-    message
-        What is wrong and what is allowed, in one line.
-    """
-
-    def __init__(self, path: str, line: int, col: int, message: str):
-        # One error, one line: control characters (a newline in a quoted key, a
-        # YAML library message) are shown escaped, never as a line break.
-        message = one_line(str(message))
-        self.path, self.line, self.col, self.message = str(path), int(line), int(col), message
-        super().__init__(f"{self.path}:{self.line}:{self.col}: error: {message}")
-
-    @classmethod
-    def at(cls, where: Location, message: str) -> "RecipeError":
-        return cls(where.path, where.line, where.col, message)
-
-    @property
-    def where(self) -> Location:
-        return Location(self.path, self.line, self.col)
 
 
 @dataclass(frozen=True)

@@ -19,25 +19,29 @@ import errno
 import hashlib
 import math
 import os
-import secrets
 import queue
 import sys
 import threading
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import soundfile as sf
 
+from .errors import AudioError
+from .audio.source import Source
+from .fsutil import TEMP_TAG, fsync_path as _fsync_path, remove_quietly as _remove_quietly, temp_path_for  # noqa: F401
+from .interrupt import allow_rendering, rendering_stopped, stop_point as _stop_point, stop_rendering  # noqa: F401
 from .meters import Meter, MeterReading
+from .results import FileResult
+from .text import db as _db
 
 __all__ = ["Policy", "Source", "FileResult", "AudioError", "probe", "render_file", "scan_file", "output_format"]
 
 DEFAULT_BLOCK = 65536
 MAX_BLOCK = 1 << 22
 RF64_THRESHOLD = 0xFFFFFFFF - (1 << 20)   # bytes; a RIFF size field cannot say more than 4 GiB
-TEMP_TAG = ".chainrun-part-"              # temporary outputs: .<name>.chainrun-part-<random>
 _SFC_SET_ADD_PEAK_CHUNK = 0x1050          # libsndfile sf_command: the PEAK chunk holds a time stamp
 
 # Output subtype -> (bits or None for float, numpy dtype handed to libsndfile, left shift into it).
@@ -53,10 +57,6 @@ SUBTYPES: dict[str, tuple[int | None, Any, int]] = {
 }
 # Formats whose size field is 32 bits and which have a 64-bit sibling.
 _LARGE_FORMAT = {"WAV": "RF64", "WAVEX": "RF64"}
-
-
-class AudioError(Exception):
-    """A problem with one audio file: one line, naming the file."""
 
 
 @dataclass(frozen=True)
@@ -83,66 +83,6 @@ class Policy:
     @property
     def ceiling(self) -> float:
         return 10.0 ** (self.ceiling_dbfs / 20.0)
-
-
-@dataclass(frozen=True)
-class Source:
-    """What an input file holds, from its header."""
-
-    path: str
-    rate: int
-    channels: int
-    frames: int
-    format: str
-    subtype: str
-    size: int
-    mtime_ns: int
-
-    @property
-    def duration_s(self) -> float:
-        return self.frames / self.rate if self.rate else 0.0
-
-
-@dataclass
-class FileResult:
-    """The outcome for one input file; ``status`` is ok, clipped, rejected, failed or skipped."""
-
-    input: str
-    relpath: str
-    status: str
-    message: str = ""
-    output: str | None = None
-    source: Source | None = None
-    out_format: str | None = None
-    out_subtype: str | None = None
-    dither: bool = False
-    input_meters: MeterReading | None = None
-    output_meters: MeterReading | None = None
-    over_db: float | None = None         # how far the filtered peak passed the ceiling
-    trim_db: float | None = None         # a gain that would fit under the ceiling
-    gain_db: float = 0.0                 # gain applied by the scale policy
-    clipped_by_chainrun: int = 0         # samples hard-clipped by policy or quantiser
-    seconds: float = 0.0
-    extra: dict = field(default_factory=dict)
-
-    _RECORDED = ("status", "message", "out_format", "out_subtype", "dither", "over_db", "trim_db", "gain_db",
-                 "clipped_by_chainrun", "seconds")
-
-    def to_record(self) -> dict:
-        """What a journal keeps of a delivered file, to report it again without rendering it."""
-        d = {k: getattr(self, k) for k in self._RECORDED}
-        d["input_meters"] = self.input_meters.to_dict() if self.input_meters else None
-        d["output_meters"] = self.output_meters.to_dict() if self.output_meters else None
-        return d
-
-    @classmethod
-    def from_record(cls, d: dict, input: str, relpath: str, output: str, source: Source | None) -> "FileResult":
-        """Inverse of :meth:`to_record`."""
-        r = cls(input=input, relpath=relpath, output=output, source=source,
-                **{k: d[k] for k in cls._RECORDED if k in d})
-        r.input_meters = MeterReading.from_dict(d["input_meters"]) if d.get("input_meters") else None
-        r.output_meters = MeterReading.from_dict(d["output_meters"]) if d.get("output_meters") else None
-        return r
 
 
 # The largest magnitude the G.711 companding laws can code, as libsndfile decodes it to 16 bits
@@ -388,43 +328,6 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
     return out[:, :frames]
 
 
-_NAME_MAX = 255          # bytes in one file name on the usual file systems, when the folder cannot say
-
-
-def temp_path_for(final: str, suffix: str = "") -> str:
-    """``.<name>.chainrun-part-<hex><suffix>`` beside ``final``.
-
-    The temporary name is 24 bytes longer than the final one (plus ``suffix``), so a name near the
-    folder's limit (PC_NAME_MAX) is shortened here; the final name is kept. Leftovers are found by
-    the leading dot and TEMP_TAG alone, so a shortened name is cleaned up like any other.
-    """
-    d, name = os.path.split(final)
-    tail = os.fsencode(f"{TEMP_TAG}{secrets.token_hex(4)}{suffix}")
-    try:   # never above 255: FAT and exFAT say 1530 (bytes for 255 UTF-16 characters) but hold 255
-        limit = min(os.pathconf(d or ".", "PC_NAME_MAX") or _NAME_MAX, _NAME_MAX)
-    except (OSError, ValueError):
-        limit = _NAME_MAX
-    raw = os.fsencode(name)
-    room = limit - 1 - len(tail)
-    return os.path.join(d, os.fsdecode(b"." + raw[:room] + tail))
-
-
-def _fsync_path(path: str, directory: bool = False) -> None:
-    fd = os.open(path, os.O_RDONLY | (os.O_DIRECTORY if directory else 0))
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
-
-
-def _remove_quietly(path: str | None) -> None:
-    if path:
-        try:
-            os.unlink(path)
-        except OSError:        # gone already, or its folder went read-only: nothing more can be done
-            pass
-
-
 # Containers whose PCM_24 samples chainrun packs itself and hands to libsndfile as raw bytes
 # (sf_write_raw; libsndfile still writes and finishes the header): format -> big-endian?
 _PACKED_24 = {
@@ -562,35 +465,6 @@ def _reads_raw(src: Source) -> bool:
             return fh.read(4) == magic
     except OSError:
         return False            # libsndfile's own reading will say what is wrong
-
-
-# Ctrl-C, taken at a safe point. A SIGINT handler that raised KeyboardInterrupt could raise it
-# anywhere, even inside a finaliser (SoundFile.__del__), where Python prints the exception with a
-# traceback and drops it. The batch's handlers call stop_rendering() instead; the file being
-# rendered then raises KeyboardInterrupt as it starts its next block, in chainrun's own code, and
-# render_file removes its temporary file as for any other interruption.
-_stop_requested = False
-
-
-def stop_rendering() -> None:
-    """Ask the file being rendered to stop at its next block (safe to call from a signal handler)."""
-    global _stop_requested
-    _stop_requested = True
-
-
-def rendering_stopped() -> bool:
-    """True once :func:`stop_rendering` was called, until :func:`allow_rendering`."""
-    return _stop_requested
-
-
-def allow_rendering() -> None:
-    global _stop_requested
-    _stop_requested = False
-
-
-def _stop_point() -> None:
-    if _stop_requested:
-        raise KeyboardInterrupt
 
 
 class _Blocks:
@@ -830,10 +704,6 @@ class _Filter:
             self.block_peak = peak
             self.out_peak = max(self.out_peak, peak)
         return y
-
-
-def _db(x: float) -> float:
-    return 20.0 * math.log10(x) if x > 0 else -math.inf
 
 
 def _over(peak: float, true_peak: float | None, policy: Policy) -> float:

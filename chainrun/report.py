@@ -18,14 +18,14 @@ from typing import Any
 
 from . import __version__
 from .batch import BatchResult
-from .recipe import one_line
-from .render import FileResult, temp_path_for
+from .fsutil import atomic_write_text, remove_quietly
+from .results import INTERRUPTED, QUIET_SKIPS, SKIPPED, STATUS_ORDER, STATUSES, FileResult
+from .text import fmt_db, shown
 
 __all__ = ["STATUS_ORDER", "file_dict", "batch_dict", "write_reports", "console_summary", "worst_first",
            "error_lines", "report_paths", "shown", "fmt_db", "loudest"]
 
 # Status -> rank in "needs attention first" order.
-STATUS_ORDER = {"failed": 0, "rejected": 1, "clipped": 2, "ok": 3, "skipped": 4}
 CSV_FIELDS = (
     "input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
     "out_format", "out_subtype", "dither", "in_peak_dbfs", "in_true_peak_dbtp", "in_clipped_samples",
@@ -46,15 +46,6 @@ def loudest(reading, attr: str) -> float | None:
         return None
     vals = [getattr(c, attr) for c in reading.channels if getattr(c, attr) is not None]
     return max(vals) if vals else None
-
-
-def shown(path: str | None) -> str | None:
-    """A path (or any text) on one line: bytes that are not UTF-8 shown as \\xNN, control characters
-    (a newline in a file name, a terminal escape) as \\n, \\x1b and so on."""
-    if path is None:
-        return None
-    text = path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
-    return one_line(text)
 
 
 def file_dict(r: FileResult) -> dict:
@@ -136,18 +127,6 @@ def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
     }
 
 
-def _atomic_write(path: str, text: str) -> None:
-    tmp = temp_path_for(path)
-    try:
-        with open(tmp, "x", encoding="utf-8", newline="") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    finally:
-        _remove_quietly(tmp)
-
-
 def report_paths(b: BatchResult, json_path: str | None = None) -> dict[str, str]:
     """The three report paths: OUTDIR/chainrun-report.*, or beside ``--report``.
 
@@ -201,7 +180,7 @@ def write_reports(b: BatchResult, json_path: str | None = None, command: list[st
     data = batch_dict(b, command)
     text = json.dumps(data, indent=2, allow_nan=False) + "\n"
     try:
-        _atomic_write(paths["json"], text)
+        atomic_write_text(paths["json"], text)
         written["json"] = paths["json"]
     except OSError as exc:
         line = _why_not(exc, paths["json"])
@@ -214,7 +193,7 @@ def write_reports(b: BatchResult, json_path: str | None = None, command: list[st
             line += f"; it was written to {fallback} instead"
         except OSError:
             if fallback:
-                _remove_quietly(fallback)
+                remove_quietly(fallback)
         problems.append(line)
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=CSV_FIELDS, lineterminator="\n")
@@ -222,14 +201,14 @@ def write_reports(b: BatchResult, json_path: str | None = None, command: list[st
     for r in worst_first(b.results):
         w.writerow(_csv_row(r))
     try:
-        _atomic_write(paths["csv"], buf.getvalue())
+        atomic_write_text(paths["csv"], buf.getvalue())
         written["csv"] = paths["csv"]
     except OSError as exc:
         problems.append(_why_not(exc, paths["csv"]))
     from .htmlreport import render_html      # matplotlib is imported only when a report is written
 
     try:
-        _atomic_write(paths["html"], render_html(data, b))
+        atomic_write_text(paths["html"], render_html(data, b))
         written["html"] = paths["html"]
     except OSError as exc:
         problems.append(_why_not(exc, paths["html"]))
@@ -238,28 +217,12 @@ def write_reports(b: BatchResult, json_path: str | None = None, command: list[st
     return paths
 
 
-def _remove_quietly(path: str) -> None:
-    try:
-        os.unlink(path)
-    except OSError:
-        pass
-
-
 def worst_first(results: list[FileResult]) -> list[FileResult]:
     """Files needing attention first: failed, rejected, clipped, then by output peak, loudest first."""
     def key(r: FileResult):
         peak = loudest(r.output_meters, "peak") or 0.0
         return (STATUS_ORDER.get(r.status, 9), -peak, r.relpath)
     return sorted(results, key=key)
-
-
-def fmt_db(x: float | None, unit: str = "dB") -> str:
-    """A dB figure for a console table: ``+1.23 dBFS``, ``-inf dBFS`` for silence, ``-`` for none."""
-    if x is None or math.isnan(x):
-        return "-"
-    if math.isinf(x):
-        return f"{'+' if x > 0 else '-'}inf {unit}"
-    return f"{x:+.2f} {unit}"
 
 
 def console_summary(b: BatchResult, paths: dict[str, str] | None = None, limit: int = 40) -> str:
@@ -282,7 +245,6 @@ def console_summary(b: BatchResult, paths: dict[str, str] | None = None, limit: 
     return "\n".join(lines)
 
 
-_ERROR_WORD = {"failed": "error", "rejected": "rejected", "clipped": "clipped"}
 
 
 def error_lines(b: BatchResult) -> list[str]:
@@ -292,12 +254,12 @@ def error_lines(b: BatchResult) -> list[str]:
     link loop); not for files that are plainly not audio. After Ctrl-C, the files
     not rendered because of it are left to the report and the closing line.
     """
-    from .batch import INTERRUPTED, QUIET_SKIPS
 
     lines = []
     for r in worst_first(b.results):
-        if r.status in _ERROR_WORD and not (b.interrupted and r.message == INTERRUPTED):
-            lines.append(f"{shown(r.input)}: {_ERROR_WORD[r.status]}: {shown(r.message)}")
-        elif r.status == "skipped" and r.message not in QUIET_SKIPS:
+        word = STATUSES[r.status].error_word if r.status in STATUSES else ""
+        if word and not (b.interrupted and r.message == INTERRUPTED):
+            lines.append(f"{shown(r.input)}: {word}: {shown(r.message)}")
+        elif r.status == SKIPPED and r.message not in QUIET_SKIPS:
             lines.append(f"{shown(r.input)}: note: skipped: {shown(r.message)}")
     return lines

@@ -416,12 +416,12 @@ def test_a_ctrl_c_inside_a_finaliser_still_stops_the_file(workers, tmp_path, wri
 
 def test_a_worker_s_ctrl_c_handler_never_raises(tmp_path, write_audio):
     # in a pool worker, the handler runs wherever the worker happens to be; it only asks the file to stop
-    from chainrun import batch, render
+    from chainrun import batch, interrupt, render
 
     src = render.probe(str(write_audio("in/a.wav", np.zeros((1000, 1)), 48000, "PCM_16")))
     job = batch.Job(src.path, "a.wav", str(tmp_path / "out.wav"))
     try:
-        batch._sigint_stops_rendering(signal.SIGINT, None)           # would raise in the middle of anything if it could
+        interrupt.on_sigint(signal.SIGINT, None)           # would raise in the middle of anything if it could
         assert render.rendering_stopped()
         r = batch._render_in_worker(job, src, np.array([[1.0, 0, 0, 1, 0, 0]]), 1.0, render.Policy())
         assert r.status == "failed" and r.message == batch.INTERRUPTED and not os.path.exists(job.output)

@@ -1,0 +1,1 @@
+"""Everything that knows a container, a subtype or libsndfile."""

@@ -1,0 +1,65 @@
+"""Files on disk: temporary names, atomic writes, fsync.
+
+Every file chainrun delivers (audio, reports, pictures) is written to a temporary name
+``.<name>.chainrun-part-<random>`` in its destination folder, flushed and fsynced, and only
+then renamed over its final name, so a final name never holds an incomplete file. The leftover
+clean-up of an interrupted run knows that one pattern (:data:`TEMP_TAG`).
+"""
+from __future__ import annotations
+
+import os
+import secrets
+
+__all__ = ["TEMP_TAG", "temp_path_for", "fsync_path", "remove_quietly", "atomic_write_text"]
+
+TEMP_TAG = ".chainrun-part-"              # temporary outputs: .<name>.chainrun-part-<random>
+_NAME_MAX = 255          # bytes in one file name on the usual file systems, when the folder cannot say
+
+
+def temp_path_for(final: str, suffix: str = "") -> str:
+    """``.<name>.chainrun-part-<hex><suffix>`` beside ``final``.
+
+    The temporary name is 24 bytes longer than the final one (plus ``suffix``), so a name near the
+    folder's limit (PC_NAME_MAX) is shortened here; the final name is kept. Leftovers are found by
+    the leading dot and TEMP_TAG alone, so a shortened name is cleaned up like any other.
+    """
+    d, name = os.path.split(final)
+    tail = os.fsencode(f"{TEMP_TAG}{secrets.token_hex(4)}{suffix}")
+    try:   # never above 255: FAT and exFAT say 1530 (bytes for 255 UTF-16 characters) but hold 255
+        limit = min(os.pathconf(d or ".", "PC_NAME_MAX") or _NAME_MAX, _NAME_MAX)
+    except (OSError, ValueError):
+        limit = _NAME_MAX
+    raw = os.fsencode(name)
+    room = limit - 1 - len(tail)
+    return os.path.join(d, os.fsdecode(b"." + raw[:room] + tail))
+
+
+def fsync_path(path: str, directory: bool = False) -> None:
+    """fsync a file, or with ``directory`` a folder (so that a rename in it is on disk)."""
+    fd = os.open(path, os.O_RDONLY | (os.O_DIRECTORY if directory else 0))
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def remove_quietly(path: str | None) -> None:
+    """Remove ``path`` if it is there; never raises."""
+    if path:
+        try:
+            os.unlink(path)
+        except OSError:        # gone already, or its folder went read-only: nothing more can be done
+            pass
+
+
+def atomic_write_text(path: str, text: str) -> None:
+    """Write ``text`` (UTF-8) to ``path`` through a temporary name, fsynced, then renamed into place."""
+    tmp = temp_path_for(path)
+    try:
+        with open(tmp, "x", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    finally:
+        remove_quietly(tmp)
