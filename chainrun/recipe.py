@@ -4,9 +4,11 @@ A recipe (``format: 1``) names an ordered chain of filter sections, an optional
 ``include:`` whose chain comes first, the ``guard:`` limits and the ``output:``
 format. Along an include chain the strictest guard limit any file writes applies
 (a file that writes a looser one gets a located warning), and an ``output:`` key
-written differently by an included file and its parent is an error. Every value keeps the file, line and column it came from, so that any
-later stage (design at a sample rate, the guard, the runner) can point at the
-exact place in the file that caused a problem.
+written differently by an included file and its parent is an error.
+
+Every value keeps the file, line and column it came from, so that any later
+stage (design at a sample rate, the guard, the runner) can point at the exact
+place in the file that caused a problem.
 
 Only safe YAML is read: the document is *composed* into nodes with PyYAML's
 safe loader and converted here; no tag ever constructs a Python object.
@@ -607,10 +609,10 @@ def _output(node: _Node | None) -> _Layer:
     entries = _mapping(node, "output")
     _check_keys(entries, ("subtype", "dither"), "output")
     values = {}
-    if "subtype" in entries:
-        values["subtype"] = (_text(entries["subtype"][1], "output.subtype", OUTPUT_SUBTYPES), entries["subtype"][1].where)
-    if "dither" in entries:
-        values["dither"] = (_text(entries["dither"][1], "output.dither", DITHER), entries["dither"][1].where)
+    for key, choices in (("subtype", OUTPUT_SUBTYPES), ("dither", DITHER)):
+        if key in entries:
+            vnode = entries[key][1]
+            values[key] = (_text(vnode, f"output.{key}", choices), vnode.where)
     return values
 
 
