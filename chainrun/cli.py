@@ -70,6 +70,7 @@ def check_recipe(path: str, rates: tuple[int, ...]) -> dict:
         entry["errors"].append(str(exc))
         return entry
     entry.update(name=recipe.name, digest=recipe.digest, sections=len(recipe.sections))
+    entry["warnings"].extend(recipe.warnings)          # e.g. a file loosening a limit it includes
     accepted = True
     from .batch import design_and_assess
 
@@ -194,6 +195,8 @@ def cmd_run(args: argparse.Namespace) -> int:
     except RecipeError as exc:
         _err(f"{exc}; no audio was touched")
         return EXIT_USAGE
+    for line in recipe.warnings:
+        _err(line)
     if args.report:
         folder = os.path.dirname(os.path.abspath(args.report))
         probe_dir = folder

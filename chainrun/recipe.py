@@ -2,9 +2,13 @@
 
 A recipe (``format: 1``) names an ordered chain of filter sections, an optional
 ``include:`` whose chain comes first, the ``guard:`` limits and the ``output:``
-format. Every value keeps the file, line and column it came from, so that any
-later stage (design at a sample rate, the guard, the runner) can point at the
-exact place in the file that caused a problem.
+format. Along an include chain the strictest guard limit any file writes applies
+(a file that writes a looser one gets a located warning), and an ``output:`` key
+written differently by an included file and its parent is an error.
+
+Every value keeps the file, line and column it came from, so that any later
+stage (design at a sample rate, the guard, the runner) can point at the exact
+place in the file that caused a problem.
 
 Only safe YAML is read: the document is *composed* into nodes with PyYAML's
 safe loader and converted here; no tag ever constructs a Python object.
@@ -20,7 +24,7 @@ import re
 import stat
 from dataclasses import dataclass, field, replace
 from types import MappingProxyType
-from typing import Any, Mapping
+from typing import Any, Mapping, NamedTuple
 
 import yaml
 
@@ -90,7 +94,11 @@ class Section:
 
 @dataclass(frozen=True)
 class Guard:
-    """Safety limits, see README.md "What the guard promises" (keys: README.md "Recipes")."""
+    """Safety limits, see README.md "What the guard promises" (keys: README.md "Recipes").
+
+    ``where`` holds the location of each value some file of the include chain wrote (the
+    strictest one); a key missing from it has its default.
+    """
 
     max_gain_db: float = 24.0
     pole_margin: float = 1e-6
@@ -102,6 +110,10 @@ class Guard:
 
     def to_dict(self) -> dict:
         return {k: getattr(self, k) for k in _GUARD_KEYS}
+
+    def sources(self) -> dict:
+        """Where each value came from: key -> ``path:line:col``, or ``default``."""
+        return {k: str(self.where[k]) if k in self.where else "default" for k in _GUARD_KEYS}
 
 
 @dataclass(frozen=True)
@@ -118,7 +130,11 @@ class Output:
 
 @dataclass(frozen=True)
 class Recipe:
-    """A loaded recipe: the resolved chain (includes first), guard and output."""
+    """A loaded recipe: the resolved chain (includes first), guard and output.
+
+    ``warnings`` are located one-line warnings (``path:line:col: warning: ...``) found
+    while loading, e.g. a file that writes a looser guard limit than a file it includes.
+    """
 
     path: str
     name: str
@@ -126,9 +142,10 @@ class Recipe:
     guard: Guard
     output: Output
     includes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
-        """The recipe as resolved, as plain JSON-safe data."""
+        """The recipe as resolved, as plain JSON-safe data (``guard_from``: where each guard value was set)."""
         return {
             "format": 1,
             "name": self.name,
@@ -136,12 +153,14 @@ class Recipe:
             "includes": list(self.includes),
             "chain": [s.to_dict() for s in self.sections],
             "guard": self.guard.to_dict(),
+            "guard_from": self.guard.sources(),
             "output": self.output.to_dict(),
+            "warnings": list(self.warnings),
         }
 
     @property
     def digest(self) -> str:
-        """SHA-256 of the resolved recipe (chain, guard, output), location-free.
+        """SHA-256 of the resolved recipe (chain, guard values, output), location-free.
 
         Two recipes that filter audio identically share a digest even if they are
         laid out differently or include each other from other folders.
@@ -503,9 +522,25 @@ _SECTION_RULES = {
 
 # --------------------------------------------------------------------------- recipe
 
-def _guard(node: _Node | None) -> Guard:
+# A layer: the keys one file (with its includes merged) writes -> (value, where it was written).
+_Layer = dict
+
+# Guard key -> is value ``new`` stricter than ``old``? Along an include chain the strictest wins.
+_ON_OVER_STRICTNESS = {"clip": 0, "scale": 1, "reject": 2}      # reject delivers nothing over the ceiling
+_STRICTER = {
+    "max_gain_db": lambda new, old: new < old,
+    "pole_margin": lambda new, old: new > old,
+    "max_decay_s": lambda new, old: new < old,
+    "ceiling_dbfs": lambda new, old: new < old,
+    "true_peak_ceiling_dbtp": lambda new, old: new < old,
+    "on_over": lambda new, old: _ON_OVER_STRICTNESS[new] > _ON_OVER_STRICTNESS[old],
+}
+
+
+def _guard(node: _Node | None) -> _Layer:
+    """The guard keys a file writes, validated (a null true_peak_ceiling_dbtp is not a value)."""
     if node is None:
-        return Guard()
+        return {}
     entries = _mapping(node, "guard")
     _check_keys(entries, _GUARD_KEYS, "guard")
     values: dict[str, Any] = {}
@@ -521,21 +556,57 @@ def _guard(node: _Node | None) -> Guard:
     for key, (_, vnode) in entries.items():
         if key == "true_peak_ceiling_dbtp" and vnode.value is None:
             continue
-        values[key] = readers[key](vnode)
-    return Guard(**values, where=MappingProxyType({k: v[1].where for k, v in entries.items()}))
+        values[key] = (readers[key](vnode), vnode.where)
+    return values
 
 
-def _output(node: _Node | None) -> Output:
+def _output(node: _Node | None) -> _Layer:
+    """The output keys a file writes, validated."""
     if node is None:
-        return Output()
+        return {}
     entries = _mapping(node, "output")
     _check_keys(entries, ("subtype", "dither"), "output")
     values = {}
-    if "subtype" in entries:
-        values["subtype"] = _text(entries["subtype"][1], "output.subtype", OUTPUT_SUBTYPES)
-    if "dither" in entries:
-        values["dither"] = _text(entries["dither"][1], "output.dither", DITHER)
-    return Output(**values, where=MappingProxyType({k: v[1].where for k, v in entries.items()}))
+    for key, choices in (("subtype", OUTPUT_SUBTYPES), ("dither", DITHER)):
+        if key in entries:
+            vnode = entries[key][1]
+            values[key] = (_text(vnode, f"output.{key}", choices), vnode.where)
+    return values
+
+
+def _merge_guard(base: _Layer, own: _Layer, warnings: list[str] | None) -> _Layer:
+    """``own`` over ``base``, keeping the stricter value of each key (on a tie, ``base``'s).
+
+    ``warnings`` collects a located warning for each value of ``own`` looser than ``base``'s,
+    i.e. a file that tries to loosen a limit of a file it includes; ``None`` merges silently
+    (two files included side by side, neither of which includes the other).
+    """
+    out = dict(base)
+    for key, (value, where) in own.items():
+        if key not in out or _STRICTER[key](value, out[key][0]):
+            out[key] = (value, where)
+        elif value != out[key][0] and warnings is not None:
+            warnings.append(f"{where}: warning: guard.{key} {_fmt(value)} is looser than {_fmt(out[key][0])} "
+                            f"set in {out[key][1]}; the stricter value applies")
+    return out
+
+
+def _merge_output(base: _Layer, own: _Layer) -> _Layer:
+    """``own`` over ``base``; a key written with two different values is an error at ``own``'s value."""
+    out = dict(base)
+    for key, (value, where) in own.items():
+        if key in out and out[key][0] != value:
+            raise RecipeError.at(where, f"output.{key} {value} conflicts with {out[key][0]} set in {out[key][1]}; "
+                                        "an included recipe and its parent must agree: write the same value "
+                                        "or leave it out of one file")
+        out.setdefault(key, (value, where))
+    return out
+
+
+def _build(cls, layer: _Layer):
+    """A :class:`Guard` or :class:`Output` from a merged layer; defaults for keys nobody wrote."""
+    return cls(**{k: v for k, (v, _) in layer.items()},
+               where=MappingProxyType({k: where for k, (_, where) in layer.items()}))
 
 
 def _read_text(path: str, where: Location | None) -> str:
@@ -569,8 +640,19 @@ def _read_text(path: str, where: Location | None) -> str:
                                            "save the recipe as UTF-8 text") from None
 
 
-def _load_file(path: str, stack: tuple[str, ...], where: Location | None) -> tuple[dict, list[Section], list[str]]:
-    """Read one file; returns its top-level entries, its resolved chain and included paths."""
+class _Loaded(NamedTuple):
+    """One file read, its includes resolved."""
+
+    entries: dict                 # its top-level entries
+    sections: list[Section]       # the resolved chain, includes first
+    included: list[str]           # paths of every file included, directly or not
+    guard: _Layer                 # the strictest guard value of each key written along the chain
+    output: _Layer                # the output keys written along the chain
+    warnings: list[str]           # located warnings, includes first
+
+
+def _load_file(path: str, stack: tuple[str, ...], where: Location | None) -> _Loaded:
+    """Read one file and, recursively, the files it includes."""
     real = os.path.realpath(path)
     if real in stack:
         chain = " -> ".join(os.path.basename(p) for p in stack + (real,))
@@ -592,6 +674,9 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None) -> tup
 
     sections: list[Section] = []
     included: list[str] = []
+    inc_guard: _Layer = {}
+    inc_output: _Layer = {}
+    warnings: list[str] = []
     if "include" in entries:
         inode = entries["include"][1]
         items = inode.value if isinstance(inode.value, list) else [inode]
@@ -604,9 +689,12 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None) -> tup
             if not os.path.exists(target):
                 raise RecipeError.at(item.where, f"included recipe '{rel}' does not exist "
                                                  f"(looked for {target}); paths are relative to this recipe's folder")
-            _, inc_sections, inc_paths = _load_file(target, stack + (real,), item.where)
-            sections.extend(sec if sec.origin else replace(sec, origin=rel) for sec in inc_sections)
-            included.extend([target] + inc_paths)
+            inc = _load_file(target, stack + (real,), item.where)
+            sections.extend(sec if sec.origin else replace(sec, origin=rel) for sec in inc.sections)
+            included.extend([target] + inc.included)
+            warnings.extend(inc.warnings)
+            inc_guard = _merge_guard(inc_guard, inc.guard, None)
+            inc_output = _merge_output(inc_output, inc.output)
             if len(sections) > MAX_SECTIONS:
                 raise RecipeError.at(item.where, f"the chain has more than {MAX_SECTIONS} sections "
                                                  f"(includes counted); split the recipe")
@@ -626,10 +714,10 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None) -> tup
         at = entries["chain"][1].where if "chain" in entries else root.where
         raise RecipeError.at(at, "the chain is empty; give at least one section "
                                  f"(types: {', '.join(SECTION_TYPES)})")
-    # Every file's guard and output are validated, though only the top recipe's apply.
-    _guard(entries["guard"][1] if "guard" in entries else None)
-    _output(entries["output"][1] if "output" in entries else None)
-    return entries, sections, included
+    # The strictest limit of the include chain applies: a file cannot loosen a limit it includes.
+    guard = _merge_guard(inc_guard, _guard(entries["guard"][1] if "guard" in entries else None), warnings)
+    output = _merge_output(inc_output, _output(entries["output"][1] if "output" in entries else None))
+    return _Loaded(entries, sections, included, guard, output, list(dict.fromkeys(warnings)))
 
 
 def load(path: str | os.PathLike) -> Recipe:
@@ -659,10 +747,10 @@ def load(path: str | os.PathLike) -> Recipe:
     ['highpass', 'notch', 'notch', 'notch', 'notch']
     """
     path = os.fspath(path)
-    entries, sections, included = _load_file(path, (), None)
+    top = _load_file(path, (), None)
+    entries = top.entries
     name = _text(entries["name"][1], "name") if "name" in entries else os.path.splitext(os.path.basename(path))[0]
     if "notes" in entries:
         _text(entries["notes"][1], "notes")
-    guard = _guard(entries["guard"][1] if "guard" in entries else None)
-    output = _output(entries["output"][1] if "output" in entries else None)
-    return Recipe(path, name, tuple(sections), guard, output, tuple(included))
+    return Recipe(path, name, tuple(top.sections), _build(Guard, top.guard), _build(Output, top.output),
+                  tuple(top.included), tuple(top.warnings))

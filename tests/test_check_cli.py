@@ -246,3 +246,81 @@ def test_subprocess_usage_errors(repo_root, tmp_path):
                               capture_output=True, text=True, timeout=60)
         assert proc.returncode == 2, proc.stderr
         assert needle in proc.stderr and "Traceback" not in proc.stderr
+
+
+# --------------------------------------------------------------------------- limits kept in an included file
+
+def _marsh_house(repo_root, write_recipe, top_text: str):
+    """The bundled marsh clean-up as a team's house file, and a recipe that includes it."""
+    marsh = (repo_root / "recipes" / "marsh-cleanup.yaml").read_text(encoding="utf-8")
+    house = write_recipe(marsh, "house/marsh.yaml")
+    top = write_recipe(top_text, "boosted.yaml")
+    row = next(n for n, line in enumerate(marsh.split("\n"), 1) if "max_gain_db:" in line)
+    col = marsh.split("\n")[row - 1].index("max_gain_db:") + len("max_gain_db: ") + 1
+    return top, f"{house}:{row}:{col}", house
+
+
+BOOSTED = """
+    format: 1
+    include: house/marsh.yaml
+    chain:
+      - {type: peak, freq: 1000, gain_db: 12, q: 1, label: presence}
+    guard:
+      max_gain_db: 24
+"""
+
+
+def test_included_max_gain_rejects_a_boost(repo_root, write_recipe, capsys):
+    # the marsh case: the house file says max_gain_db 1 ("a cleanup pass must never boost"); a recipe
+    # that includes it, adds a +12 dB peak and writes max_gain_db 24 is rejected all the same
+    top, house_at, _ = _marsh_house(repo_root, write_recipe, BOOSTED)
+    status, out, err = run_main(["check", "--rate", "48000", top], capsys)
+    assert status == 1
+    assert "checked at 48000 Hz: 0 accepted, 1 rejected" in out
+    error, warning = err_lines(err)
+    # analytic: the cookbook peaking EQ has gain_db at f0, +12 dB > 1 dB; the 45 Hz high-pass and the
+    # Q 30 notches at 50..200 Hz move it by far less than 0.01 dB at 1 kHz
+    assert error == (f"{top}:4:5: error: at 48000 Hz the chain's gain reaches +12.00 dB at 1000.0 Hz, above "
+                     "guard.max_gain_db 1 dB; chain[0] peak 1000 Hz (presence) contributes +12.0 dB there")
+    assert warning == (f"{top}:6:16: warning: guard.max_gain_db 24 is looser than 1 set in {house_at}; "
+                       "the stricter value applies")
+    # without the include the same boost is within the recipe's own 24 dB
+    alone = write_recipe(BOOSTED.replace("    include: house/marsh.yaml\n", ""), "alone.yaml")
+    status, _, err = run_main(["check", "--rate", "48000", alone], capsys)
+    assert status == 0 and err == ""
+
+
+def test_json_lists_the_loosening_warning(repo_root, write_recipe, capsys):
+    top, house_at, _ = _marsh_house(repo_root, write_recipe, BOOSTED.replace("gain_db: 12", "gain_db: -12"))
+    status, out, err = run_main(["check", "--json", "--rate", "48000", top], capsys)
+    assert status == 0                                # a cut stays below the house file's 1 dB
+    (entry,) = json.loads(out)["recipes"]
+    assert entry["errors"] == [] and entry["warnings"] == [
+        f"{top}:6:16: warning: guard.max_gain_db 24 is looser than 1 set in {house_at}; the stricter value applies"]
+    assert err_lines(err) == entry["warnings"]
+
+
+def test_output_conflict_with_an_include_is_rejected_by_check(repo_root, write_recipe, capsys):
+    top, _, house = _marsh_house(repo_root, write_recipe, "format: 1\ninclude: house/marsh.yaml\n"
+                                                          "output: {subtype: PCM_16}\n")
+    status, out, err = run_main(["check", top], capsys)
+    assert status == 1
+    (line,) = err_lines(err)
+    assert LOCATED.match(line)
+    # recipes/marsh-cleanup.yaml writes "subtype: same"
+    rows = house.read_text(encoding="utf-8").split("\n")
+    row = next(n for n, text in enumerate(rows, 1) if "subtype:" in text)
+    col = rows[row - 1].index("subtype:") + len("subtype: ") + 1
+    assert line.startswith(f"{top}:3:19: error: output.subtype PCM_16 conflicts with same set in "
+                           f"{house}:{row}:{col}; ")
+
+
+def test_run_says_a_loosening_warning_once(repo_root, write_recipe, write_audio, tmp_path, capsys):
+    import numpy as np
+
+    top, house_at, _ = _marsh_house(repo_root, write_recipe, BOOSTED.replace("gain_db: 12", "gain_db: -12"))
+    write_audio("in/take.wav", 0.1 * np.sin(2 * np.pi * 1000 / 48000 * np.arange(4800)), 48000)
+    status, _, err = run_main(["run", top, tmp_path / "in", "-o", tmp_path / "out", "--workers", "1"], capsys)
+    assert status == 0 and (tmp_path / "out" / "take.wav").is_file()
+    warning = f"{top}:6:16: warning: guard.max_gain_db 24 is looser than 1 set in {house_at}; the stricter value applies"
+    assert err_lines(err).count(warning) == 1

@@ -10,12 +10,15 @@ import math
 import os
 import re
 import time
+from pathlib import Path
 
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from chainrun.recipe import Guard, Output, RecipeError, load
+
+REPO = Path(__file__).resolve().parents[1]
 
 # One error, one line: `path:line:col: error: what is wrong; what is allowed` (CONVENTIONS.md)
 ERROR_RE = re.compile(r"^(?P<path>[^\n]+):(?P<line>\d+):(?P<col>\d+): error: (?P<msg>[^\n]+; [^\n]+)$")
@@ -497,11 +500,170 @@ def test_nested_includes_order_and_folders(write_recipe, tmp_path, monkeypatch):
         os.path.join("lib", "room.yaml"), os.path.join("lib", "shared", "base.yaml")]
 
 
-def test_included_guard_and_output_do_not_apply(write_recipe):
-    write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: 1}\nguard: {max_gain_db: 3}\n"
-                 "output: {subtype: PCM_16}\n", "house.yaml")
-    recipe = load(write_recipe("format: 1\ninclude: house.yaml\nguard: {max_gain_db: 9}\n"))
-    assert recipe.guard.max_gain_db == 9.0 and recipe.output.subtype == "same"
+# ----------------------------------------------- guard and output along an include chain
+# README.md "Recipes": the strictest limit of the include chain applies (lowest max_gain_db, largest
+# pole_margin, shortest max_decay_s, lowest ceilings, on_over reject > scale > clip); a file that writes
+# a looser value gets a warning naming both places; output keys written differently are an error.
+
+def _at(path, text: str, key: str) -> str:
+    """``path:line:col`` of the value of the first ``key: value`` in ``text`` (worked out here, not by the loader)."""
+    for n, row in enumerate(text.split("\n"), 1):
+        if f"{key}: " in row:
+            return f"{path}:{n}:{row.index(f'{key}: ') + len(key) + 3}"
+    raise AssertionError(key)
+
+
+def _house_and_top(write_recipe, house_guard: str, top_guard: str, top_extra: str = ""):
+    house = "# house limits\nformat: 1\nchain:\n  - {type: gain, gain_db: -1}\nguard:\n" + house_guard
+    top = "format: 1\ninclude: house/limits.yaml\nchain:\n  - {type: gain, gain_db: -2}\n" + top_extra
+    top += "guard:\n" + top_guard if top_guard else ""
+    hpath = write_recipe(house, "house/limits.yaml")
+    tpath = write_recipe(top, "top.yaml")
+    # the loader names an included file by the path it was reached through: top's folder + the include text
+    return os.path.join(os.path.dirname(str(tpath)), "house", "limits.yaml"), house, str(tpath), top
+
+
+# (key, house value, top value, the value that applies, the file it comes from, values as a warning says them)
+LOOSER_TOP = [
+    ("max_gain_db", "1", "24", 1.0, ("24", "1")),
+    ("pole_margin", "1.0e-3", "1.0e-6", 1e-3, ("1e-06", "0.001")),
+    ("max_decay_s", "0.5", "5", 0.5, ("5", "0.5")),
+    ("ceiling_dbfs", "-1", "0", -1.0, ("0", "-1")),
+    ("true_peak_ceiling_dbtp", "-2", "-1", -2.0, ("-1", "-2")),
+    ("on_over", "reject", "clip", "reject", ("clip", "reject")),
+    ("on_over", "reject", "scale", "reject", ("scale", "reject")),
+    ("on_over", "scale", "clip", "scale", ("clip", "scale")),
+]
+STRICTER_TOP = [
+    ("max_gain_db", "6", "3", 3.0),
+    ("pole_margin", "1.0e-6", "1.0e-4", 1e-4),
+    ("max_decay_s", "5", "1", 1.0),
+    ("ceiling_dbfs", "-0.5", "-3", -3.0),
+    ("true_peak_ceiling_dbtp", "-1", "-1.5", -1.5),
+    ("on_over", "clip", "scale", "scale"),
+    ("on_over", "clip", "reject", "reject"),
+    ("on_over", "scale", "reject", "reject"),
+]
+
+
+@pytest.mark.parametrize("key, house_value, top_value, applies, said", LOOSER_TOP,
+                         ids=[f"{c[0]}-{c[2]}" for c in LOOSER_TOP])
+def test_included_limit_cannot_be_loosened(write_recipe, key, house_value, top_value, applies, said):
+    hpath, house, tpath, top = _house_and_top(write_recipe, f"  {key}: {house_value}   # house rule\n",
+                                              f"  {key}: {top_value}\n")
+    recipe = load(tpath)
+    assert getattr(recipe.guard, key) == applies
+    assert str(recipe.guard.where[key]) == _at(hpath, house, key)
+    assert recipe.warnings == (f"{_at(tpath, top, key)}: warning: guard.{key} {said[0]} is looser than {said[1]} "
+                               f"set in {_at(hpath, house, key)}; the stricter value applies",)
+
+
+@pytest.mark.parametrize("key, house_value, top_value, applies", STRICTER_TOP,
+                         ids=[f"{c[0]}-{c[2]}" for c in STRICTER_TOP])
+def test_a_stricter_parent_value_applies_without_warning(write_recipe, key, house_value, top_value, applies):
+    hpath, house, tpath, top = _house_and_top(write_recipe, f"  {key}: {house_value}\n", f"  {key}: {top_value}\n")
+    recipe = load(tpath)
+    assert getattr(recipe.guard, key) == applies
+    assert str(recipe.guard.where[key]) == _at(tpath, top, key)
+    assert recipe.warnings == ()
+
+
+def test_the_marsh_case_included_max_gain_applies(write_recipe):
+    # the issue: a house file keeps "max_gain_db: 1  # a cleanup pass must never boost"; a recipe that
+    # includes it, adds a +12 dB peak and writes max_gain_db 24 is still held to 1 dB
+    marsh = (REPO / "recipes" / "marsh-cleanup.yaml").read_text(encoding="utf-8")
+    write_recipe(marsh, "house/marsh.yaml")
+    top = write_recipe("format: 1\ninclude: house/marsh.yaml\nchain:\n  - {type: peak, freq: 1000, gain_db: 12, q: 1}\n"
+                       "guard:\n  max_gain_db: 24\n")
+    recipe = load(top)
+    assert recipe.guard.max_gain_db == 1.0 and recipe.guard.on_over == "reject"
+    house = os.path.join(os.path.dirname(str(top)), "house", "marsh.yaml")
+    assert recipe.warnings == (f"{top}:6:16: warning: guard.max_gain_db 24 is looser than 1 set in "
+                               f"{_at(house, marsh, 'max_gain_db')}; the stricter value applies",)
+
+
+def test_an_include_chain_counts_written_values_not_defaults(write_recipe):
+    hpath, house, tpath, top = _house_and_top(
+        write_recipe, "  max_gain_db: 3\n  true_peak_ceiling_dbtp: null\n",
+        "  max_decay_s: 30\n  true_peak_ceiling_dbtp: -1\n  on_over: clip\n")
+    recipe = load(tpath)
+    # max_decay_s 30 and on_over clip are looser than the defaults (5 s, reject), but nobody else wrote them
+    assert (recipe.guard.max_gain_db, recipe.guard.max_decay_s, recipe.guard.on_over) == (3.0, 30.0, "clip")
+    assert recipe.guard.true_peak_ceiling_dbtp == -1.0       # null is "not set", not a looser ceiling
+    assert recipe.warnings == ()
+    assert recipe.to_dict()["guard_from"] == {
+        "max_gain_db": _at(hpath, house, "max_gain_db"), "pole_margin": "default",
+        "max_decay_s": _at(tpath, top, "max_decay_s"), "ceiling_dbfs": "default",
+        "true_peak_ceiling_dbtp": _at(tpath, top, "true_peak_ceiling_dbtp"), "on_over": _at(tpath, top, "on_over")}
+
+
+def test_a_limit_deep_in_the_include_chain_applies(write_recipe, tmp_path):
+    write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\nguard: {ceiling_dbfs: -2}\n", "lib/shared/base.yaml")
+    write_recipe("format: 1\ninclude: shared/base.yaml\nchain:\n  - {type: gain, gain_db: -1}\n", "lib/room.yaml")
+    top = write_recipe("format: 1\ninclude: lib/room.yaml\nchain:\n  - {type: gain, gain_db: -1}\n"
+                       "guard: {ceiling_dbfs: -0.5}\n", "top.yaml")
+    recipe = load(top)
+    base = os.path.join(str(tmp_path), "lib", "shared", "base.yaml")
+    assert recipe.guard.ceiling_dbfs == -2.0
+    assert recipe.to_dict()["guard_from"]["ceiling_dbfs"] == f"{base}:4:23"
+    assert recipe.warnings == (f"{top}:5:23: warning: guard.ceiling_dbfs -0.5 is looser than -2 set in "
+                               f"{base}:4:23; the stricter value applies",)
+
+
+def test_side_by_side_includes_merge_strictest_without_warning(write_recipe):
+    a = write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\nguard: {max_gain_db: 6}\n", "a.yaml")
+    b = write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\nguard: {max_gain_db: 3}\n", "b.yaml")
+    recipe = load(write_recipe("format: 1\ninclude: [a.yaml, b.yaml]\n", "top.yaml"))
+    assert recipe.guard.max_gain_db == 3.0 and str(recipe.guard.where["max_gain_db"]) == f"{b}:4:22"
+    assert recipe.warnings == () and a
+
+
+def test_included_output_applies_unless_the_parent_agrees_or_conflicts(write_recipe):
+    house = write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\noutput:\n  subtype: PCM_24\n"
+                         "  dither: tpdf\n", "house.yaml")
+    recipe = load(write_recipe("format: 1\ninclude: house.yaml\n", "plain.yaml"))
+    assert (recipe.output.subtype, recipe.output.dither) == ("PCM_24", "tpdf")
+    assert str(recipe.output.where["subtype"]) == f"{house}:5:12"
+    same = load(write_recipe("format: 1\ninclude: house.yaml\noutput: {subtype: PCM_24}\n", "same.yaml"))
+    assert (same.output.subtype, same.output.dither) == ("PCM_24", "tpdf")
+
+
+@pytest.mark.parametrize("key, value, col", [("subtype", "PCM_16", 19), ("dither", "none", 18)])
+def test_output_conflict_with_an_include_is_a_located_error(write_recipe, key, value, col):
+    house = write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\noutput:\n  subtype: PCM_24\n"
+                         "  dither: tpdf\n", "house.yaml")
+    top = write_recipe(f"format: 1\ninclude: house.yaml\noutput: {{{key}: {value}}}\n", "top.yaml")
+    with pytest.raises(RecipeError) as err:
+        load(top)
+    assert ERROR_RE.match(str(err.value)), str(err.value)
+    assert (err.value.path, err.value.line, err.value.col) == (str(top), 3, col)
+    theirs = {"subtype": ("PCM_24", 5), "dither": ("tpdf", 6)}[key]
+    assert err.value.message.startswith(f"output.{key} {value} conflicts with {theirs[0]} set in "
+                                        f"{house}:{theirs[1]}:")
+
+
+def test_to_dict_says_where_each_guard_value_came_from(repo_root, monkeypatch):
+    monkeypatch.chdir(repo_root)
+    d = load(os.path.join("recipes", "boathouse-stems.yaml")).to_dict()
+    # recipes/boathouse-stems.yaml writes max_gain_db 6 (as its house file does, which wins the tie),
+    # ceiling_dbfs -1.0 and on_over reject; pole_margin, max_decay_s and the true-peak ceiling are defaults
+    house = os.path.join("recipes", "house", "boathouse-house-eq.yaml")
+    stems = os.path.join("recipes", "boathouse-stems.yaml")
+    assert d["guard_from"] == {"max_gain_db": f"{house}:11:16", "pole_margin": "default", "max_decay_s": "default",
+                               "ceiling_dbfs": f"{stems}:12:17", "true_peak_ceiling_dbtp": "default",
+                               "on_over": f"{stems}:13:12"}
+    assert d["guard"]["ceiling_dbfs"] == -1.0 and d["warnings"] == []
+
+
+def test_digest_of_bundled_recipes_is_unchanged_and_location_free(repo_root):
+    # Digests computed by chainrun at commit 30a0ae5 (before guard values were merged along includes), so
+    # outputs delivered then stay resumable: the digest covers the guard's values, never guard_from.
+    old = {"marsh-cleanup.yaml": "bfd7e25dce0efe11159d75116047e995349ac40e8852732181e658fdb7d6cf98",
+           "boathouse-stems.yaml": "f99d6b7902d0804a17db2f5ced47703014a7848b336f847fd3ef882f70dcd0ef"}
+    for name, digest in old.items():
+        recipe = load(repo_root / "recipes" / name)
+        assert "guard_from" in recipe.to_dict()
+        assert recipe.digest == digest, name
 
 
 def test_digest_ignores_layout_and_includes(write_recipe):
