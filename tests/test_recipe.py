@@ -517,7 +517,7 @@ def _house_and_top(write_recipe, house_guard: str, top_guard: str, top_extra: st
     house = "# house limits\nformat: 1\nchain:\n  - {type: gain, gain_db: -1}\nguard:\n" + house_guard
     top = "format: 1\ninclude: house/limits.yaml\nchain:\n  - {type: gain, gain_db: -2}\n" + top_extra
     top += "guard:\n" + top_guard if top_guard else ""
-    hpath = write_recipe(house, "house/limits.yaml")
+    write_recipe(house, "house/limits.yaml")
     tpath = write_recipe(top, "top.yaml")
     # the loader names an included file by the path it was reached through: top's folder + the include text
     return os.path.join(os.path.dirname(str(tpath)), "house", "limits.yaml"), house, str(tpath), top
