@@ -403,9 +403,9 @@ class LoudnessMeter:
         else:
             from scipy import signal              # imported on first use: see chainrun/__init__.py
             y, self._zi = signal.sosfilt(self._sos, x, axis=1, zi=self._zi)
-            if self._carry.shape[1]:
-                y = np.concatenate([self._carry, y], axis=1)
             sq = np.square(y, out=y)
+            if self._carry.shape[1]:                      # the carry holds squares already
+                sq = np.concatenate([self._carry, sq], axis=1)
         self._subblocks(sq)
 
     def _subblocks(self, sq: np.ndarray) -> None:
@@ -435,9 +435,12 @@ class LoudnessMeter:
             s0 = max(k0 - span + 1, 0)                              # first new window's start
             if k1 - span < s0:
                 continue
-            view = np.lib.stride_tricks.sliding_window_view(e[s0 - first:], span)
             starts = np.arange(s0, k1 - span + 1, dtype=np.int64)
-            z = view.sum(axis=1) / (self._edge(starts + span) - self._edge(starts))
+            # a C-contiguous copy, one row per window: numpy then sums each row on its own (pairwise),
+            # the same way whatever the number of rows; a strided sliding view may be summed
+            # column by column instead, which made the result depend on the block split
+            rows = e[(starts - first)[:, np.newaxis] + np.arange(span)]
+            z = rows.sum(axis=1) / (self._edge(starts + span) - self._edge(starts))
             setattr(self, attr, max(getattr(self, attr), float(z.max())))
             hist.add(z[starts % _STEP == 0])
         self._tail = e[-(_SHORT - 1):].copy()
