@@ -253,6 +253,8 @@ def test_integrated_against_pyloudnorm(seed):
     ref = pyln.Meter(48000).integrated_loudness(x.T)              # pyloudnorm (reference library)
     # pyloudnorm's default "K-weighting" filter is designed from its own analog parameters (not the
     # table) and its gating is the same BS.1770-4 scheme, so they agree within ~0.05 LU at 48 kHz.
+    # Measured with pyloudnorm 0.2.0: chainrun reads 0.043 LU higher on both seeds, a steady offset
+    # whose cause (filter design or block bookkeeping in pyloudnorm) is not isolated yet.
     assert abs(meter(x).integrated_lufs - ref) < 0.05
 
 
