@@ -1,0 +1,325 @@
+"""Tests of chainrun.loudness: K-weighting, EBU Tech 3341/3342 cases, pyloudnorm, block-split exactness.
+
+Each expected value names its source beside the check.  The Tech 3341 / 3342 signals are
+synthesised here from their published descriptions as remembered (the documents themselves could
+not be read from this machine): every such case says "from memory; verify".  Where the
+expected value also follows analytically from BS.1770-4's definitions, the comment says so.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from numpy.testing import assert_allclose
+from scipy import signal
+
+from chainrun.loudness import LoudnessMeter, LoudnessReading, k_weighting_sos
+from chainrun.meters import Meter          # the true-peak meter (its import path may move)
+
+# ITU-R BS.1770-4 Annex 1, Table 1 (stage 1) and Table 2 (stage 2), 48 kHz, [b0, b1, b2, 1, a1, a2]
+# (value from memory of ITU-R BS.1770-4 Tables 1/2; verify)
+BS1770_TABLE = np.array([
+    [1.53512485958697, -2.69169618940638, 1.19839281085285, 1.0, -1.69065929318241, 0.73248077421585],
+    [1.0, -2.0, 1.0, 1.0, -1.99004745483398, 0.99007225036621],
+])
+TOL_MSI = 0.1     # EBU Tech 3341 (2016) sec. 4: +-0.1 LU for M, S, I (from memory; verify)
+TOL_LRA = 1.0     # EBU Tech 3342 (2016): +-1 LU (from memory; verify)
+
+
+def meter(x: np.ndarray, rate: int = 48000, block: int = 65536, mask=None) -> LoudnessReading:
+    x = np.atleast_2d(np.asarray(x, dtype=np.float64))
+    m = LoudnessMeter(rate, x.shape[0], channel_mask=mask)
+    for i in range(0, x.shape[1], block):
+        m.update(x[:, i:i + block])
+    return m.reading()
+
+
+def tone(level_dbfs: float, seconds: float, rate: int = 48000, freq: float = 1000.0,
+         start: int = 0) -> np.ndarray:
+    """A sine of peak amplitude ``level_dbfs`` (0 dBFS = 1.0), phase running from sample ``start``."""
+    n = np.arange(start, start + int(round(seconds * rate)))
+    return 10.0 ** (level_dbfs / 20.0) * np.sin(2.0 * np.pi * freq * n / rate)
+
+
+def stereo_steps(steps, rate: int = 48000) -> np.ndarray:
+    """Stereo 1 kHz tone made of (dBFS, seconds) steps, phase continuous."""
+    parts, pos = [], 0
+    for level, secs in steps:
+        p = tone(level, secs, rate, start=pos) if level is not None else np.zeros(int(round(secs * rate)))
+        parts.append(p)
+        pos += p.shape[0]
+    x = np.concatenate(parts)
+    return np.vstack([x, x])
+
+
+# --- K-weighting ------------------------------------------------------------------------------
+
+def test_k_weighting_reproduces_the_48k_table():
+    # ITU-R BS.1770-4 Annex 1 Tables 1 and 2
+    assert_allclose(k_weighting_sos(48000), BS1770_TABLE, rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("rate", [44100, 96000])
+@pytest.mark.parametrize("freq", [100.0, 1000.0, 10000.0])
+def test_k_weighting_response_at_other_rates(rate, freq):
+    # analytic: the prewarped bilinear transform keeps the analog prototype's response exactly at
+    # the two prewarp frequencies and warps frequency by under 1 % below 10 kHz at 44.1 kHz, where the
+    # shelf is flat to 0.01 dB over that span; so within 0.01 dB of the 48 kHz table's response.
+    ref = signal.sosfreqz(BS1770_TABLE, worN=[freq], fs=48000)[1]     # scipy.signal (reference library)
+    got = signal.sosfreqz(k_weighting_sos(rate), worN=[freq], fs=rate)[1]
+    assert abs(20 * np.log10(abs(got[0]) / abs(ref[0]))) < 0.01
+
+
+def test_k_weighting_at_1k_is_cancelled_by_the_offset():
+    # ITU-R BS.1770-4 Annex 1: the -0.691 offset compensates the K-weighting gain at 1 kHz; the table's
+    # filter gives +0.698 dB there (scipy.signal), so a 1 kHz tone reads 0.007 LU above its level
+    h = signal.sosfreqz(BS1770_TABLE, worN=[1000.0], fs=48000)[1]
+    assert abs(20 * np.log10(abs(h[0])) - 0.691) < 0.01
+
+
+# --- EBU Tech 3341 (2016) minimum requirements ----------------------------------------------
+
+@pytest.mark.parametrize("case, steps, expect", [
+    # (case, [(dBFS, s)...], expected I), stereo 1 kHz sine; EBU Tech 3341 (2016) Table 1, from memory; verify
+    (1, [(-23, 20)], -23.0),
+    (2, [(-33, 20)], -33.0),
+    (3, [(-36, 10), (-23, 60), (-36, 10)], -23.0),
+    (4, [(-72, 10), (-36, 10), (-23, 60), (-36, 10), (-72, 10)], -23.0),
+    (5, [(-26, 20), (-20, 20.1), (-26, 20)], -23.0),
+])
+def test_tech3341_integrated(case, steps, expect):
+    r = meter(stereo_steps(steps))
+    assert abs(r.integrated_lufs - expect) <= TOL_MSI        # EBU Tech 3341 case `case`
+    if case in (1, 2):
+        # analytic: a steady tone's M and S equal its I
+        assert abs(r.max_momentary_lufs - expect) <= TOL_MSI
+        assert abs(r.max_short_term_lufs - expect) <= TOL_MSI
+
+
+@pytest.mark.parametrize("rate", [44100, 96000])
+def test_tech3341_case1_at_other_rates(rate):
+    r = meter(stereo_steps([(-23, 20)], rate), rate)
+    for v in (r.integrated_lufs, r.max_momentary_lufs, r.max_short_term_lufs):
+        assert abs(v + 23.0) <= TOL_MSI                      # EBU Tech 3341 case 1, at another rate
+
+
+@pytest.mark.parametrize("mask", [None, 0x3F])
+def test_tech3341_case6_five_channels(mask):
+    # EBU Tech 3341 case 6 (from memory; verify): 5.0, 1 kHz, L/R -28 dBFS, C -24 dBFS, Ls/Rs -30 dBFS,
+    # 20 s -> I = -23.0.  (analytic check of the memory: 2*10^-3.1 + 10^-2.7 + 2*1.41*10^-3.3 -> -23.02)
+    t = {lv: tone(lv, 20) for lv in (-28, -24, -30)}
+    chans = [t[-28], t[-28], t[-24], t[-30], t[-30]]
+    if mask == 0x3F:                                         # the 6-channel WAVE_FORMAT_EXTENSIBLE file
+        chans.insert(3, np.zeros_like(t[-28]))
+    r = meter(np.vstack(chans), mask=mask)
+    assert abs(r.integrated_lufs + 23.0) <= TOL_MSI
+
+
+def test_tech3341_case9_short_term_constant():
+    # EBU Tech 3341 case 9 (from memory; verify): 1.34 s at -20 dBFS, 1.66 s at -30 dBFS, repeated;
+    # S = -23.0 once 3 s are in.  analytic: every 3 s window holds one period: 10log10((1.34*0.01+1.66*0.001)/3)
+    r = meter(stereo_steps([(-20, 1.34), (-30, 1.66)] * 5))
+    assert abs(r.max_short_term_lufs + 23.0) <= TOL_MSI
+
+
+def test_tech3341_case12_momentary_constant():
+    # EBU Tech 3341 case 12 (from memory; verify): 0.18 s at -20 dBFS, 0.22 s at -30 dBFS, repeated;
+    # M = -23.0.  analytic: 10log10((0.18*0.01 + 0.22*0.001)/0.4) = -22.97
+    r = meter(stereo_steps([(-20, 0.18), (-30, 0.22)] * 25))
+    assert abs(r.max_momentary_lufs + 23.0) <= TOL_MSI
+
+
+@pytest.mark.parametrize("case, seconds, attr", [(10, 3.0, "max_short_term_lufs"),
+                                                 (13, 0.4, "max_momentary_lufs")])
+@pytest.mark.parametrize("offset", [0, 37, 241, 480, 1111, 2399, 4799])
+def test_tech3341_cases10_13_burst_anywhere(case, seconds, attr, offset):
+    # EBU Tech 3341 cases 10 / 13 (from memory; verify): one 3 s / 0.4 s burst at -23 dBFS in silence,
+    # at many positions; max S / max M = -23.0.  With a 10 ms hop the best window misses at most 5 ms of
+    # a 0.4 s burst: analytic bound 10log10(0.395/0.4) = -0.055 LU, inside +-0.1.
+    silence = offset + 48000
+    x = stereo_steps([(None, silence / 48000), (-23, seconds), (None, 1.0)])
+    r = meter(x)
+    assert abs(getattr(r, attr) + 23.0) <= TOL_MSI
+
+
+@pytest.mark.parametrize("case, seconds, attr", [(11, 3.0, "max_short_term_lufs"),
+                                                 (14, 0.4, "max_momentary_lufs")])
+def test_tech3341_cases11_14_rising_bursts(case, seconds, attr):
+    # EBU Tech 3341 cases 11 / 14 (description from memory; verify): bursts of rising level separated by
+    # silence; the maximum is the loudest burst's level (analytic: a window covering a burst reads its level).
+    steps = []
+    for level in range(-38, -18, 2):
+        steps += [(level, seconds), (None, 1.0)]
+    r = meter(stereo_steps(steps))
+    assert abs(getattr(r, attr) + 20.0) <= TOL_MSI
+
+
+@pytest.mark.parametrize("case, period, phase_deg, amp_db, expect", [
+    # EBU Tech 3341 (2016) true-peak cases, 48 kHz (descriptions from memory; verify):
+    (15, 4, 0.0, -6.0, -6.0),      # fs/4, 0 deg
+    (16, 4, 45.0, -6.0, -6.0),     # fs/4, 45 deg: samples at -9.01 dBFS
+    (17, 6, 60.0, -6.0, -6.0),     # fs/6, 60 deg
+    (18, 8, 67.5, -6.0, -6.0),     # fs/8, 67.5 deg
+    (19, 4, 45.0, 3.0, 3.0),       # fs/4, 45 deg, samples at 0 dBFS: true peak +3 dBTP
+])
+def test_tech3341_true_peak(case, period, phase_deg, amp_db, expect):
+    n = np.arange(48000)
+    x = 10 ** (amp_db / 20) * np.sin(2 * np.pi * n / period + math.radians(phase_deg))
+    m = Meter(48000, 2)
+    m.update(np.vstack([x, x]))
+    tp = m.result().channels[0].true_peak_dbtp
+    assert -0.4 <= tp - expect <= 0.2                      # EBU Tech 3341: +0.2 / -0.4 dB
+
+
+# --- EBU Tech 3342 (2016) -------------------------------------------------------------------
+
+@pytest.mark.parametrize("case, steps, expect", [
+    # stereo 1 kHz sine, EBU Tech 3342 Table 1 (from memory; verify)
+    (1, [(-20, 20), (-30, 20)], 10.0),
+    (2, [(-20, 20), (-15, 20)], 5.0),
+    (3, [(-40, 20), (-20, 20)], 20.0),
+    (4, [(-50, 20), (-35, 20), (-20, 20), (-35, 20), (-50, 20)], 15.0),
+])
+def test_tech3342_loudness_range(case, steps, expect):
+    r = meter(stereo_steps(steps))
+    assert abs(r.loudness_range_lu - expect) <= TOL_LRA      # EBU Tech 3342 case `case`
+
+
+# --- reference library and exact computation --------------------------------------------------
+
+def programme(seconds: float, rate: int, seed: int, channels: int = 2) -> np.ndarray:
+    """Programme-like material: band-limited noise in steps of 0.5..4 s at -45..-12 dBFS, a few gaps."""
+    rng = np.random.default_rng(seed)
+    n = int(seconds * rate)
+    x = rng.standard_normal((channels, n))
+    x = signal.sosfilt(signal.butter(2, [80, 8000], "bandpass", fs=rate, output="sos"), x, axis=1)
+    x /= np.sqrt(np.mean(x ** 2))
+    pos = 0
+    while pos < n:
+        length = int(rng.uniform(0.5, 4.0) * rate)
+        level = 0.0 if rng.random() < 0.1 else 10 ** (rng.uniform(-45, -12) / 20)
+        x[:, pos:pos + length] *= level
+        pos += length
+    return x
+
+
+def exact_list(x: np.ndarray, rate: int = 48000):
+    """BS.1770-4 integrated loudness and Tech 3342 range from an explicit list of every block."""
+    y = signal.sosfilt(BS1770_TABLE, x, axis=1)      # 48 kHz table coefficients, scipy.signal
+    ms = (y ** 2).sum(axis=0)
+    cs = np.concatenate([[0.0], np.cumsum(ms)])
+    hop = rate // 10
+
+    def blocks(length):
+        starts = np.arange(0, x.shape[1] - length + 1, hop)
+        return (cs[starts + length] - cs[starts]) / length
+
+    def lufs(z):
+        with np.errstate(divide="ignore"):                       # silent blocks: -inf, gated out
+            return -0.691 + 10 * np.log10(z)
+
+    z = blocks(int(0.4 * rate))
+    z = z[lufs(z) > -70]                                          # BS.1770-4 absolute gate
+    z = z[lufs(z) > lufs(z.mean()) - 10]                          # BS.1770-4 relative gate
+    integrated = lufs(z.mean())
+    s = blocks(3 * rate)
+    s = s[lufs(s) > -70]                                          # Tech 3342 absolute gate
+    s = np.sort(lufs(s[lufs(s) > lufs(s.mean()) - 20]))           # Tech 3342 relative gate
+    n = s.size
+    lra = s[int(math.floor((n - 1) * 0.95 + 0.5))] - s[int(math.floor((n - 1) * 0.10 + 0.5))]
+    return integrated, lra
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_histogram_matches_exact_list(seed):
+    # analytic bound of the module notes, checked against an explicit list of all blocks: < 0.01 LU
+    x = programme(240, 48000, seed)
+    r = meter(x)
+    integrated, lra = exact_list(x)
+    assert abs(r.integrated_lufs - integrated) < 0.01
+    assert abs(r.loudness_range_lu - lra) < 0.01
+
+
+@pytest.mark.parametrize("seed", [4, 5])
+def test_integrated_against_pyloudnorm(seed):
+    pyln = pytest.importorskip("pyloudnorm")
+    x = programme(120, 48000, seed)
+    ref = pyln.Meter(48000).integrated_loudness(x.T)              # pyloudnorm (reference library)
+    # pyloudnorm's default "K-weighting" filter is designed from its own analog parameters (not the
+    # table) and its gating is the same BS.1770-4 scheme, so they agree within ~0.05 LU at 48 kHz.
+    # Measured with pyloudnorm 0.2.0: chainrun reads 0.043 LU higher on both seeds, a steady offset
+    # whose cause (filter design or block bookkeeping in pyloudnorm) is not isolated yet.
+    assert abs(meter(x).integrated_lufs - ref) < 0.05
+
+
+# --- properties ---------------------------------------------------------------------------------
+
+SPLIT_SIGNALS = {rate: programme(6.5, rate, 7) for rate in (48000, 22050)}
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(rate=st.sampled_from([48000, 22050]),
+       cuts=st.lists(st.integers(min_value=0, max_value=6 * 22050), max_size=12))
+def test_block_split_is_bit_identical(rate, cuts):
+    # common practice, no published source: a streaming meter must not depend on the block split;
+    # 22050 Hz has 220.5 samples per 10 ms, so sub-block edges fall at fractional positions.
+    x = SPLIT_SIGNALS[rate]
+    whole = meter(x, rate, block=x.shape[1])
+    m = LoudnessMeter(rate, 2)
+    edges = [0, *sorted(set(cuts)), x.shape[1]]
+    for a, b in zip(edges[:-1], edges[1:]):
+        m.update(x[:, a:b])
+    assert m.reading() == whole                               # exact equality of every float
+
+
+def test_lfe_is_left_out_and_surrounds_weigh_141():
+    t = tone(-23, 5)
+    quiet = np.zeros_like(t)
+    base = [quiet, quiet, quiet, quiet, t, quiet]            # L R C LFE Ls Rs: tone in Ls only
+    loud_lfe = [quiet, quiet, quiet, 0.5 * np.random.default_rng(0).standard_normal(t.size), t, quiet]
+    a = meter(np.vstack(base))
+    b = meter(np.vstack(loud_lfe))
+    c = meter(np.vstack(loud_lfe), mask=0x60F)                # 5.1 with side surrounds in the mask
+    assert a.integrated_lufs == b.integrated_lufs == c.integrated_lufs   # BS.1770-4: LFE not measured
+    assert a.channel_weights == (1.0, 1.0, 1.0, 0.0, 1.41, 1.41)
+    # ITU-R BS.1770-4 Table 3, G = 1.41 for Ls: -23 dBFS sine in one channel -> -23 - 3.01 + 10log10(1.41)
+    assert abs(a.integrated_lufs - (-23 - 10 * math.log10(2) + 10 * math.log10(1.41))) < 0.02
+
+
+def test_silence_and_short_streams_read_none():
+    # BS.1770-4: no block above the -70 LUFS gate -> no integrated loudness (None here, never a number)
+    r = meter(np.zeros((2, 48000 * 5)))
+    assert (r.integrated_lufs, r.loudness_range_lu, r.max_momentary_lufs, r.max_short_term_lufs) == (None,) * 4
+    short = meter(stereo_steps([(-23, 0.39)]))                # shorter than one 400 ms block
+    assert short.integrated_lufs is None and short.max_momentary_lufs is None
+    two = meter(stereo_steps([(-23, 2.0)]))                   # shorter than one 3 s window
+    assert abs(two.integrated_lufs + 23) <= TOL_MSI and two.max_short_term_lufs is None
+    assert two.loudness_range_lu is None
+    assert meter(np.zeros((2, 0))).integrated_lufs is None
+
+
+def test_nonfinite_samples_count_and_read_as_zero():
+    x = stereo_steps([(-23, 10)])
+    y = x.copy()
+    y[0, 1000:1010] = np.nan
+    y[1, 5000] = np.inf
+    z = x.copy()
+    z[0, 1000:1010] = 0.0
+    z[1, 5000] = 0.0
+    ry, rz = meter(y), meter(z)
+    assert ry.nonfinite_samples == 11                         # analytic: 10 NaN + 1 Inf
+    assert ry.integrated_lufs == rz.integrated_lufs           # metered as 0.0, documented behaviour
+    assert abs(ry.integrated_lufs + 23) <= TOL_MSI
+
+
+def test_reading_round_trips_through_json():
+    r = meter(stereo_steps([(-23, 4)]))
+    d = json.loads(json.dumps(r.to_dict()))
+    assert {"integrated_lufs", "loudness_range_lu", "max_momentary_lufs", "max_short_term_lufs"} <= set(d)
+    assert LoudnessReading.from_dict(d) == r
