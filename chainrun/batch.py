@@ -24,7 +24,7 @@ from . import __version__
 from .design import Chain, design
 from .guard import Assessment, assess, check_raw_sections
 from .recipe import Recipe, RecipeError
-from .journal import Journal, LockedError, OutdirLock, clean_leftovers
+from .journal import ForeignFileError, Journal, LockedError, OutdirLock, check_journal, clean_leftovers
 from .audio.source import Source
 from .errors import AudioError, BatchError
 from .fsutil import TEMP_TAG
@@ -520,17 +520,19 @@ def claim_outdir(outdir: str) -> tuple[OutdirLock, list[str]]:
     Raises
     ------
     BatchError
-        If another live run holds the folder, or it cannot be created.
+        If another live run holds the folder, it cannot be created, or the lock's or the journal's name
+        holds something chainrun did not make (a hard link, a FIFO, a device, another user's file).
     """
     try:
         os.makedirs(outdir, exist_ok=True)
         lock = OutdirLock(outdir).acquire()
-    except LockedError as exc:
+    except (LockedError, ForeignFileError) as exc:
         raise BatchError(str(exc)) from None
     except OSError as exc:
         raise BatchError(f"{outdir}: error: cannot use the output folder: "
                          f"{(exc.strerror or str(exc)).lower()}") from None
     try:
+        check_journal(outdir)
         notes = []
         if lock.took_over:
             notes.append(f"took over the lock left by pid {lock.took_over.get('pid')} on host "
@@ -538,6 +540,9 @@ def claim_outdir(outdir: str) -> tuple[OutdirLock, list[str]]:
         removed = clean_leftovers(outdir)
         if removed:
             notes.append(f"removed {len(removed)} unfinished temporary file(s) left by an interrupted run")
+    except ForeignFileError as exc:     # refused before any audio is read
+        lock.release()
+        raise BatchError(str(exc)) from None
     except BaseException:        # Ctrl-C here: the caller never gets the lock, so release it now
         lock.release()
         raise

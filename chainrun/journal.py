@@ -18,12 +18,14 @@ import hashlib
 import json
 import os
 import socket
+import stat
 import time
 from dataclasses import dataclass
 
 from .fsutil import TEMP_TAG
 
-__all__ = ["LockedError", "OutdirLock", "clean_leftovers", "fingerprint", "Journal", "LOCK_NAME", "JOURNAL_NAME"]
+__all__ = ["LockedError", "ForeignFileError", "OutdirLock", "check_journal", "clean_leftovers", "fingerprint",
+           "Journal", "LOCK_NAME", "JOURNAL_NAME"]
 
 LOCK_NAME = ".chainrun.lock"
 JOURNAL_NAME = ".chainrun-journal.jsonl"
@@ -32,6 +34,16 @@ _SAMPLE = 1 << 16          # bytes hashed at the head and at the tail of a file 
 
 class LockedError(Exception):
     """Another live run holds the output folder."""
+
+
+class ForeignFileError(OSError):
+    """One of chainrun's own names in OUTDIR holds something chainrun did not make; it is left untouched.
+
+    ``str()`` is the whole one-line refusal; ``strerror`` is the reason alone.
+    """
+
+    def __str__(self) -> str:
+        return f"{self.filename}: error: {self.strerror}; remove it or choose another OUTDIR"
 
 
 class OutdirLock:
@@ -44,8 +56,8 @@ class OutdirLock:
 
     def acquire(self) -> "OutdirLock":
         while True:
-            # O_NOFOLLOW: a symbolic link planted at the lock's name is refused, never followed (the lock
-            # file is truncated below, and that must never reach a file elsewhere).
+            # The lock file is truncated below: a link planted at its name (symbolic or hard, to a recording
+            # say), a FIFO or a device is refused by _open_own_file, never written through.
             fd = _open_own_file(self.path, os.O_RDWR | os.O_CREAT)
             try:
                 fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
@@ -83,8 +95,14 @@ class OutdirLock:
         if self.fd is None:
             return
         try:
-            os.ftruncate(self.fd, 0)
-            os.unlink(self.path)
+            # Only the file verified when it was taken is truncated, and only while no other name shares its
+            # data; the name is removed only if it still holds that file.
+            st = os.fstat(self.fd)
+            if st.st_nlink <= 1:
+                os.ftruncate(self.fd, 0)
+            now = os.stat(self.path, follow_symlinks=False)
+            if (now.st_dev, now.st_ino) == (st.st_dev, st.st_ino):
+                os.unlink(self.path)
         except OSError:
             pass
         finally:
@@ -99,15 +117,103 @@ class OutdirLock:
         self.release()
 
 
+_WHAT = {LOCK_NAME: "lock file", JOURNAL_NAME: "resume journal"}
+_KINDS = {stat.S_IFIFO: "a named pipe (FIFO)", stat.S_IFCHR: "a character device", stat.S_IFBLK: "a block device",
+          stat.S_IFSOCK: "a socket"}
+
+
+def _foreign(path: str, st: os.stat_result, created: bool = False) -> ForeignFileError | None:
+    """Why the file ``st`` at ``path`` is not one chainrun made (None if it may be), as the error to raise.
+
+    No link at all (``st_nlink`` 0) is a file unlinked since it was opened: the lock retries, a journal
+    entry appended to it is lost, nothing else is touched. A file this call ``created`` is not asked for
+    its owner (a file system may give new files another, as NFS does to root's).
+    """
+    kind = stat.S_IFMT(st.st_mode)
+    if kind == stat.S_IFDIR:
+        return None                       # opened for writing it fails with EISDIR; read, it says so
+    if kind != stat.S_IFREG:
+        reason = f"it is {_KINDS.get(kind, 'not a regular file')}, not a regular file"
+    elif st.st_nlink > 1:
+        reason = f"it has {st.st_nlink} links: another name points at the same data, perhaps a recording"
+    elif st.st_uid != os.geteuid() and not created:
+        reason = f"it belongs to uid {st.st_uid}, not to this user (uid {os.geteuid()})"
+    else:
+        return None
+    what = _WHAT.get(os.path.basename(path), "file")
+    return ForeignFileError(errno.EEXIST, f"not chainrun's own {what} ({reason})", path)
+
+
 def _open_own_file(path: str, flags: int) -> int:
-    """Open one of chainrun's own files in OUTDIR; a symbolic link at its name is refused."""
+    """Open one of chainrun's own files in OUTDIR, refusing anything at its name that chainrun did not make.
+
+    Its data is truncated or appended to, so it must be a regular file with no other name (a hard link
+    to a recording would be written into) owned by this user. A symbolic link is refused by
+    ``O_NOFOLLOW``; ``O_NONBLOCK`` keeps the open of a FIFO from waiting for ever; the file is checked
+    with ``fstat`` after opening (what is checked is what is written), and by ``lstat`` before, so that a
+    device is not even opened.
+
+    Raises
+    ------
+    ForeignFileError
+        If the name holds a hard link, a FIFO, a device or another user's file; nothing was written.
+    OSError
+        If it cannot be opened (a symbolic link: ELOOP with a message saying so).
+    """
     try:
-        return os.open(path, flags | os.O_NOFOLLOW | os.O_CLOEXEC, 0o644)
+        before = os.lstat(path)
+    except OSError:
+        before = None                    # nothing there yet (created below), or the open gives the reason
+    if before is not None and not stat.S_ISLNK(before.st_mode):
+        problem = _foreign(path, before)
+        if problem is not None:
+            raise problem
+    flags |= os.O_NOFOLLOW | os.O_CLOEXEC | os.O_NONBLOCK | os.O_NOCTTY
+    created = False
+    try:
+        try:
+            fd = os.open(path, flags | os.O_EXCL, 0o644) if flags & os.O_CREAT else None
+            created = fd is not None
+        except FileExistsError:
+            fd = None
+        if fd is None:
+            fd = os.open(path, flags, 0o644)
     except OSError as exc:
         if exc.errno == errno.ELOOP:
             raise OSError(errno.ELOOP, f"{os.path.basename(path)} is a symbolic link; chainrun does not follow "
                                        "links for its own files (remove it)", path) from None
         raise
+    try:
+        problem = _foreign(path, os.fstat(fd), created)
+        if problem is None:
+            fcntl.fcntl(fd, fcntl.F_SETFL, fcntl.fcntl(fd, fcntl.F_GETFL) & ~os.O_NONBLOCK)
+    except BaseException:
+        os.close(fd)
+        raise
+    if problem is not None:
+        os.close(fd)
+        raise problem
+    return fd
+
+
+def check_journal(outdir: str) -> None:
+    """Refuse OUTDIR if its journal's name holds something chainrun must not append to.
+
+    Called once the lock is held, before any audio: the run is refused rather than the journal
+    skipped, so that a hard link to a recording there is noticed. What cannot be opened at all (a
+    symbolic link, a folder) is left to :class:`Journal`, which turns resuming off with a note.
+
+    Raises
+    ------
+    ForeignFileError
+        If the journal's name holds a hard link, a FIFO, a device or another user's file.
+    """
+    try:
+        os.close(_open_own_file(os.path.join(outdir, JOURNAL_NAME), os.O_RDONLY))
+    except ForeignFileError:
+        raise
+    except OSError:
+        pass
 
 
 def _alive(pid) -> bool:
