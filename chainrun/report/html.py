@@ -279,6 +279,10 @@ def _recipe(data: dict) -> list[str]:
             note = ""
             if k in policy and k != "dither" and policy[k] != v and not (k == "subtype" and v == "same"):
                 note = f' <span class="sub">(this run used <code>{esc(policy[k])}</code>, from the command line)</span>'
+            source = (recipe.get("guard_from") or {}).get(k) if key == "guard" else None
+            if source:
+                note += (' <span class="sub">(default)</span>' if source == "default" else
+                         f' <span class="sub">(set at <code>{esc(source)}</code>)</span>')
             out.append(f"<dt>{esc(k)}</dt><dd><code>{esc('null' if v is None else v)}</code>{note}</dd>")
         out.append("</dl>")
     try:
