@@ -219,7 +219,7 @@ def cmd_run(args: argparse.Namespace) -> int:
         _err(str(exc))
         return EXIT_USAGE
     try:
-        from .htmlreport import draw_pictures_aside
+        from .report.pictures import draw_pictures_aside
 
         pictures: dict = {}
         progress = _Progress(len(prep.work), sys.stderr.isatty())
@@ -326,7 +326,7 @@ def cmd_plot(args: argparse.Namespace) -> int:
     except RecipeError as exc:
         _err(str(exc))
         return EXIT_USAGE
-    from .plot import save_response
+    from .report.plot import save_response
 
     for p in assessment.problems:
         _err(str(p))

@@ -320,7 +320,7 @@ def _designed(rates):
 
 def _only_in_a_child(monkeypatch, action):
     """Patch plot.response_svg so that ``action()`` runs first in any process but this one."""
-    from chainrun import plot
+    from chainrun.report import plot
 
     parent, real = os.getpid(), plot.response_svg
 
@@ -336,12 +336,12 @@ def _only_in_a_child(monkeypatch, action):
 def test_pictures_drawn_aside_are_those_drawn_here():
     from types import SimpleNamespace
 
-    from chainrun import htmlreport
-    from chainrun.plot import response_svg
+    from chainrun.report import pictures
+    from chainrun.report.plot import response_svg
 
     recipe, designs = _designed([44100, 48000])
     designs[8000] = SimpleNamespace(chain=None, assessment=None)           # a rate without a chain: no picture
-    got = htmlreport.draw_pictures_aside(recipe, designs)
+    got = pictures.draw_pictures_aside(recipe, designs)
     assert set(got) == {44100, 48000}
     for rate in (44100, 48000):
         d = designs[rate]
@@ -353,18 +353,18 @@ def test_pictures_drawn_aside_are_those_drawn_here():
 def test_a_failed_child_leaves_the_drawing_to_the_report(monkeypatch):
     from types import SimpleNamespace
 
-    from chainrun import htmlreport
+    from chainrun.report import pictures
 
     def fail():
         raise RuntimeError("the drawing child fails")
 
     real = _only_in_a_child(monkeypatch, fail)
     recipe, designs = _designed([48000])
-    got = htmlreport.draw_pictures_aside(recipe, designs)
+    got = pictures.draw_pictures_aside(recipe, designs)
     assert got[48000].result() is None
     batch = SimpleNamespace(pictures=got, recipe=recipe)
     d = designs[48000]
-    assert htmlreport._picture(batch, 48000, d) == real(recipe, d.chain, d.assessment)
+    assert pictures.picture_of(batch, 48000, d) == real(recipe, d.chain, d.assessment)
 
 
 def test_a_ctrl_c_does_not_stop_the_drawing_child(monkeypatch, tmp_path):
@@ -372,7 +372,7 @@ def test_a_ctrl_c_does_not_stop_the_drawing_child(monkeypatch, tmp_path):
     import signal
     import time
 
-    from chainrun import htmlreport
+    from chainrun.report import pictures
 
     marker = tmp_path / "drawing"
 
@@ -382,7 +382,7 @@ def test_a_ctrl_c_does_not_stop_the_drawing_child(monkeypatch, tmp_path):
 
     real = _only_in_a_child(monkeypatch, slow)
     recipe, designs = _designed([48000])
-    got = htmlreport.draw_pictures_aside(recipe, designs)
+    got = pictures.draw_pictures_aside(recipe, designs)
     deadline = time.monotonic() + 60
     while not marker.exists() and time.monotonic() < deadline:
         time.sleep(0.01)
@@ -396,17 +396,17 @@ def test_a_ctrl_c_does_not_stop_the_drawing_child(monkeypatch, tmp_path):
 def test_the_report_gets_its_picture_from_a_child(tmp_path, monkeypatch, capsys, workers, files):
     # one worker: drawn after the audio; two: while it renders, in this process's threads (one file) or
     # in worker processes (several); never in this process, so matplotlib never adds to the renderer
-    from chainrun import htmlreport
+    from chainrun.report import pictures
 
     calls = []
-    real = htmlreport.draw_pictures_aside
+    real = pictures.draw_pictures_aside
 
     def spy(recipe, designs):
         calls.append(sorted(designs))
         return real(recipe, designs)
 
-    monkeypatch.setattr(htmlreport, "draw_pictures_aside", spy)
-    from chainrun import plot
+    monkeypatch.setattr(pictures, "draw_pictures_aside", spy)
+    from chainrun.report import plot
 
     drawn_here, parent, draw = [], os.getpid(), plot.response_svg
 
@@ -432,7 +432,7 @@ def test_the_report_gets_its_picture_from_a_child(tmp_path, monkeypatch, capsys,
 
 def test_a_rejected_file_is_not_listed_among_clipped_outputs():
     # a rejected file delivered nothing: its output meters describe no file, so it has no clipped regions
-    from chainrun.htmlreport import _has_regions
+    from chainrun.report.html import _has_regions
 
     meters = {"channels": [{"clipped_samples": 13, "clipped_regions": [[100, 113]]}]}
     assert _has_regions({"status": "clipped", "output_meters": meters})

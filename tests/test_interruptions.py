@@ -300,14 +300,14 @@ def test_report_pictures_import_matplotlib_in_their_own_thread(monkeypatch):
     import builtins
     import threading
 
-    import chainrun.htmlreport as htmlreport
+    from chainrun.report import pictures
     from chainrun import assess, design, load
 
     imported_in = []
     real_import = builtins.__import__
 
     def spy(name, globals=None, locals=None, fromlist=(), level=0):
-        if name in ("plot", "chainrun.plot"):
+        if name in ("plot", "chainrun.report.plot"):
             imported_in.append(threading.current_thread().name)
         return real_import(name, globals, locals, fromlist, level)
 
@@ -315,7 +315,7 @@ def test_report_pictures_import_matplotlib_in_their_own_thread(monkeypatch):
     recipe = load(os.path.join(os.path.dirname(os.path.dirname(__file__)), "recipes", "marsh-cleanup.yaml"))
     chain = design(recipe, 48000)
     d = type("D", (), {"chain": chain, "assessment": assess(chain, recipe.guard, recipe)})()
-    futures = htmlreport.draw_pictures(recipe, {48000: d})
+    futures = pictures.draw_pictures(recipe, {48000: d})
     assert futures[48000].result().startswith("<svg")
     assert imported_in and all(t.startswith("chainrun-pictures") for t in imported_in), imported_in
 

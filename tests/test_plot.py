@@ -15,7 +15,7 @@ from matplotlib.figure import Figure
 
 from chainrun import assess, design, load
 from chainrun.cli import main
-from chainrun.plot import response_figure, response_svg, save_response
+from chainrun.report.plot import response_figure, response_svg, save_response
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"      # PNG specification (ISO/IEC 15948), section 5.2
 
@@ -221,7 +221,7 @@ def test_save_response_refuses_other_extensions(repo_root, tmp_path):
 
 
 def test_plot_module_never_touches_pyplot(repo_root):
-    code = ("import sys, chainrun, chainrun.plot as p\n"
+    code = ("import sys, chainrun, chainrun.report.plot as p\n"
             "r = chainrun.load(sys.argv[1]); c = chainrun.design(r, 48000); a = chainrun.assess(c, r.guard, r)\n"
             "fig = p.response_figure(r, c, a); p.response_svg(r, c, a)\n"
             "print('matplotlib.pyplot' in sys.modules, type(fig.canvas).__name__)")

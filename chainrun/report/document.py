@@ -1,0 +1,153 @@
+"""The report document: everything a batch's reports say, as JSON-safe data.
+
+This is the only module of :mod:`chainrun.report` that reads the live
+:class:`~chainrun.batch.BatchResult`; the console summary, the CSV and the HTML
+page are drawn from the document alone, so a report can be drawn again from its
+JSON. Field names are plain English and trade terms (dBFS, dBTP). dB values of
+silence, which are minus infinity, are written as null.
+"""
+from __future__ import annotations
+
+import math
+import platform
+import time
+from typing import TYPE_CHECKING, Any
+
+from .. import __version__
+from .. import meters as meters_module
+from ..results import DELIVERED, STATUS_ORDER, FileResult
+from ..text import shown
+
+if TYPE_CHECKING:
+    from ..batch import BatchResult
+
+__all__ = ["batch_dict", "files_document", "file_dict", "headline_fields", "with_pictures", "loudest", "VIEW_ONLY"]
+
+# The meter figures every report shows, as (key, label, unit), used until chainrun.meters declares them.
+_FALLBACK_HEADLINE = (
+    ("peak_dbfs", "peak", "dBFS"),
+    ("true_peak_dbtp", "true peak", "dBTP"),
+    ("rms_dbfs", "RMS", "dBFS"),
+    ("clipped_samples", "clipped", "samples"),
+)
+
+# Keys the HTML page needs that are not written to the JSON report (they hold the live batch's pictures).
+VIEW_ONLY = ("outdir", "responses")
+
+
+def _num(x: Any) -> Any:
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    return x
+
+
+def loudest(reading, attr: str) -> float | None:
+    """The largest of one meter figure (e.g. ``peak_dbfs``) over a reading's channels; None if none."""
+    if reading is None:
+        return None
+    vals = [getattr(c, attr) for c in reading.channels if getattr(c, attr) is not None]
+    return max(vals) if vals else None
+
+
+def headline_fields() -> list[dict]:
+    """The meter figures the reports show, in order: ``[{"key", "label", "unit"}, ...]``."""
+    # transitional: chainrun.meters gains HEADLINE_FIELDS during the reshape; until then the local table
+    fields = getattr(meters_module, "HEADLINE_FIELDS", _FALLBACK_HEADLINE)
+    out = []
+    for field in fields:
+        key, label, unit = (field["key"], field["label"], field["unit"]) if isinstance(field, dict) else field
+        out.append({"key": key, "label": label, "unit": unit})
+    return out
+
+
+def _meters_dict(reading) -> dict | None:
+    """A meter reading as JSON, each clipped region also given as [start in seconds, length in samples]."""
+    if reading is None:
+        return None
+    d = reading.to_dict()
+    for ch in d["channels"]:
+        ch["clipped_regions_s"] = [[round(start / reading.rate, 6), length] for start, length in ch["clipped_regions"]]
+    return d
+
+
+def file_dict(r: FileResult) -> dict:
+    """One file's result as JSON-safe data."""
+    s = r.source
+    d = {
+        "input": shown(r.input), "relpath": shown(r.relpath), "output": shown(r.output),
+        "status": r.status, "message": shown(r.message),
+        "rate_hz": s.rate if s else None, "channels": s.channels if s else None,
+        "frames": s.frames if s else None, "duration_s": s.duration_s if s else None,
+        "format": s.format if s else None, "subtype": s.subtype if s else None,
+        "out_format": r.out_format, "out_subtype": r.out_subtype, "dither": r.dither if r.out_subtype else None,
+        "over_db": _num(r.over_db), "trim_db": _num(r.trim_db), "gain_db": _num(r.gain_db),
+        "clipped_by_chainrun": r.clipped_by_chainrun, "seconds": round(r.seconds, 4),
+        "input_meters": _meters_dict(r.input_meters),
+        "output_meters": _meters_dict(r.output_meters),
+    }
+    d.update(r.extra)
+    return d
+
+
+def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
+    """The whole batch as JSON-safe data: recipe, designs per rate, files, summary (the JSON report)."""
+    return {
+        "chainrun_version": __version__,
+        "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+        "host": {"python": platform.python_version(), "platform": platform.platform()},
+        "command": command,
+        "recipe": b.recipe.to_dict(),
+        "recipe_digest": b.recipe.digest,
+        "policy": {
+            "on_over": b.policy.on_over, "ceiling_dbfs": b.policy.ceiling_dbfs,
+            "true_peak_ceiling_dbtp": b.policy.true_peak_ceiling_dbtp, "subtype": b.policy.subtype,
+            "dither": b.policy.dither, "block_size": b.policy.block_size,
+        },
+        "rates": [
+            {"rate_hz": rate, "usable": d.usable, "error": d.error,
+             "chain": d.chain.to_dict() if d.chain else None,
+             "assessment": d.assessment.to_dict() if d.assessment else None}
+            for rate, d in sorted(b.designs.items())
+        ],
+        "summary": _summary(b),
+        "notes": list(b.notes),
+        "headline_fields": headline_fields(),
+        "files": [file_dict(r) for r in b.results],
+    }
+
+
+def _summary(b: BatchResult) -> dict:
+    audio_s = sum(r.source.duration_s for r in b.results if r.source and r.status in DELIVERED)
+    return {
+        "files": len(b.results), **{s: b.count(s) for s in STATUS_ORDER},
+        "audio_seconds_delivered": round(audio_s, 3), "wall_seconds": round(b.seconds, 3),
+        "interrupted": b.interrupted,
+    }
+
+
+def files_document(b: BatchResult) -> dict:
+    """The part of the document that the console summary and the stderr lines read: summary, files."""
+    return {"summary": _summary(b), "headline_fields": headline_fields(), "files": [file_dict(r) for r in b.results]}
+
+
+def with_pictures(document: dict, b: BatchResult) -> dict:
+    """``document`` with what only the live batch holds, for the HTML page (keys :data:`VIEW_ONLY`).
+
+    ``outdir`` is the batch's output folder; ``responses`` has, for each rate
+    whose chain was designed and assessed, ``{"rate_hz", "svg", "error"}``: the
+    response picture as inline SVG, or why it could not be drawn. Waits for
+    pictures drawn aside (``BatchResult.pictures``) and draws the missing ones.
+    """
+    from .pictures import picture_of
+
+    responses = []
+    for rate, d in sorted(b.designs.items()):
+        if d.chain is None or d.assessment is None:
+            continue
+        svg = error = None
+        try:
+            svg = picture_of(b, rate, d)
+        except Exception as exc:   # a picture that cannot be drawn must not cost the report
+            error = f"{type(exc).__name__}: {exc}"
+        responses.append({"rate_hz": rate, "svg": svg, "error": error})
+    return {**document, "outdir": b.outdir, "responses": responses}

@@ -1,0 +1,147 @@
+"""Reports as text, drawn from the report document alone: the console summary, stderr lines, the CSV.
+
+Files are listed worst first (:func:`worst_first`): failed, rejected, clipped,
+then by output peak, loudest first. Every view takes that order from here.
+dB values of silence are left empty in the CSV.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import math
+from typing import Any
+
+from ..results import DELIVERED, INTERRUPTED, QUIET_SKIPS, SKIPPED, STATUS_ORDER, STATUSES
+from ..text import fmt_db
+
+__all__ = ["channels_of", "worst_first", "meter_figure", "console_summary", "error_lines", "csv_fields", "csv_text"]
+
+# The file columns of the CSV, split where the meter columns (in_<key>, out_<key>) go.
+_CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
+                    "out_format", "out_subtype", "dither")
+_CSV_RESULT_FIELDS = ("over_db", "trim_db", "gain_db", "clipped_by_chainrun", "seconds")
+
+# The console table's meter columns: (heading, width, which meters, key, unit).
+_CONSOLE_COLUMNS = (
+    ("out peak", 11, "output_meters", "peak_dbfs", "dBFS"),
+    ("out true peak", 13, "output_meters", "true_peak_dbtp", "dBTP"),
+    ("in peak", 11, "input_meters", "peak_dbfs", "dBFS"),
+)
+
+
+def channels_of(meters: dict | None) -> list[dict]:
+    return list(meters.get("channels") or []) if meters else []
+
+
+def _linear_key(key: str) -> str:
+    """The linear figure a dB figure comes from: ``peak_dbfs`` -> ``peak``."""
+    for suffix in ("_dbfs", "_dbtp"):
+        if key.endswith(suffix):
+            return key[:-len(suffix)]
+    return key
+
+
+def meter_figure(meters: dict | None, key: str, unit: str = "") -> Any:
+    """One headline figure of a file's meters: the loudest channel's, or for a count (unit
+    ``samples``) the sum over channels; -inf for silence, None if not measured."""
+    chans = channels_of(meters)
+    if not chans:
+        return None
+    if not any(key in c for c in chans):           # a figure of the whole stream, not of each channel
+        return (meters.get("headline") or {}).get(key)
+    if unit == "samples":
+        return sum(int(c.get(key) or 0) for c in chans)
+    vals = [c.get(key) for c in chans if c.get(key) is not None]
+    if vals:
+        return max(vals)
+    linear = _linear_key(key)
+    if linear != key and any(c.get(linear) is not None for c in chans):
+        return -math.inf                            # silence: its dB figure is written as null
+    return None
+
+
+def worst_first(files: list[dict]) -> list[dict]:
+    """Files needing attention first: failed, rejected, clipped, then by output peak, loudest first."""
+    def key(f: dict):
+        peaks = [c.get("peak") or 0.0 for c in channels_of(f.get("output_meters"))]
+        return (STATUS_ORDER.get(f.get("status"), 9), -(max(peaks) if peaks else 0.0), f.get("relpath") or "")
+    return sorted(files, key=key)
+
+
+def _audio_seconds(document: dict) -> float:
+    return sum(f["duration_s"] for f in document.get("files") or []
+               if f.get("duration_s") is not None and f.get("status") in DELIVERED)
+
+
+def console_summary(document: dict, paths: dict[str, str] | None = None, limit: int = 40) -> str:
+    """A short table, worst files first, and a totals line."""
+    lines = [f"{'status':<9} " + " ".join(f"{h:>{w}}" for h, w, *_ in _CONSOLE_COLUMNS) + "  file"]
+    rows = worst_first(document.get("files") or [])
+    for f in rows[:limit]:
+        figures = " ".join(f"{fmt_db(meter_figure(f.get(m), key), unit):>{w}}" for _, w, m, key, unit in _CONSOLE_COLUMNS)
+        lines.append(f"{f['status']:<9} {figures}  {f['relpath']}" + (f"  ({f['message']})" if f.get("message") else ""))
+    if len(rows) > limit:
+        lines.append(f"... and {len(rows) - limit} more in the report")
+    summary = document.get("summary") or {}
+    counts = ", ".join(f"{summary[s]} {s}" for s in STATUS_ORDER if summary.get(s))
+    lines.append(f"{summary.get('files', len(rows))} file(s): {counts or 'none'}; {_audio_seconds(document):.1f} s "
+                 f"of audio delivered in {summary.get('wall_seconds') or 0.0:.1f} s"
+                 + ("; INTERRUPTED" if summary.get("interrupted") else ""))
+    if paths:
+        lines.append("report: " + ", ".join(paths.values()))
+    return "\n".join(lines)
+
+
+def error_lines(document: dict) -> list[str]:
+    """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr.
+
+    Also a note for each input skipped for a reason worth knowing (named twice, a
+    link loop); not for files that are plainly not audio. After Ctrl-C, the files
+    not rendered because of it are left to the report and the closing line.
+    """
+    interrupted = (document.get("summary") or {}).get("interrupted")
+    lines = []
+    for f in worst_first(document.get("files") or []):
+        status, message = f.get("status"), f.get("message")
+        word = STATUSES[status].error_word if status in STATUSES else ""
+        if word and not (interrupted and message == INTERRUPTED):
+            lines.append(f"{f['input']}: {word}: {message}")
+        elif status == SKIPPED and message not in QUIET_SKIPS:
+            lines.append(f"{f['input']}: note: skipped: {message}")
+    return lines
+
+
+def csv_fields(document: dict) -> tuple[str, ...]:
+    """The CSV's columns: the file's, then in_<key> and out_<key> of each headline meter figure, then the result's."""
+    keys = [h["key"] for h in document.get("headline_fields") or []]
+    return (_CSV_FILE_FIELDS + tuple(f"in_{k}" for k in keys) + tuple(f"out_{k}" for k in keys)
+            + _CSV_RESULT_FIELDS)
+
+
+def _db_text(x: Any) -> str:
+    return "" if x is None or not math.isfinite(x) else f"{x:.2f}"
+
+
+def _csv_row(f: dict, headline: list[dict], fields: tuple[str, ...]) -> dict:
+    row = {k: f.get(k) for k in fields if k in f}
+    for side, meters in (("in", f.get("input_meters")), ("out", f.get("output_meters"))):
+        for h in headline:
+            value = meter_figure(meters, h["key"], h["unit"])
+            if isinstance(value, float):
+                value = _db_text(value)
+            row[f"{side}_{h['key']}"] = "" if value is None else value
+    row.update(over_db=_db_text(f.get("over_db")), trim_db=_db_text(f.get("trim_db")),
+               gain_db=_db_text(f.get("gain_db")))
+    return {k: ("" if row.get(k) is None else row.get(k)) for k in fields}
+
+
+def csv_text(document: dict) -> str:
+    """The CSV report: a header and a row per file, worst first."""
+    fields = csv_fields(document)
+    headline = document.get("headline_fields") or []
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, fieldnames=fields, lineterminator="\n")
+    w.writeheader()
+    for f in worst_first(document.get("files") or []):
+        w.writerow(_csv_row(f, headline, fields))
+    return buf.getvalue()
