@@ -11,7 +11,6 @@ import importlib
 import json
 import multiprocessing
 import os
-import re
 import signal
 import stat
 import sys
@@ -29,7 +28,8 @@ from .audio.source import Source
 from .errors import AudioError, BatchError
 from .fsutil import TEMP_TAG
 from .interrupt import allow_rendering, ctrl_c_stops_rendering, on_sigint, rendering_stopped, stop_point as _stop_point
-from .render import DEFAULT_BLOCK, MAX_BLOCK, Policy, _sf_path, probe, render_file
+from .audio.reader import cut_short, probe
+from .render import MAX_BLOCK, MIN_BLOCK, Policy, render_file
 from .results import FAILED, INTERRUPTED, MAC_METADATA, NOT_AUDIO, QUIET_SKIPS, FileResult  # noqa: F401 (re-exported)
 from .text import fault, first_line, reason as _reason
 
@@ -40,7 +40,6 @@ MAX_WORKERS = 64
 # Workers are forked on Linux (instant start; the parent holds no threads of its own when the pool
 # starts, and the progress bar runs without its monitor thread); elsewhere they start fresh.
 _POOL_CONTEXT = multiprocessing.get_context("fork" if sys.platform.startswith("linux") else "spawn")
-MIN_BLOCK = 1
 
 # Extensions taken as audio without looking inside (lower case).
 AUDIO_EXTENSIONS = frozenset({
@@ -341,13 +340,7 @@ def design_rates(recipe: Recipe, rates: set[int]) -> dict[int, RateDesign]:
 
 def make_policy(recipe: Recipe, *, on_over: str | None = None, block_size: int | None = None,
                 true_peak: bool = True) -> Policy:
-    block = DEFAULT_BLOCK if block_size is None else block_size
-    if not MIN_BLOCK <= block <= MAX_BLOCK:
-        raise BatchError(f"--block-size {block} is out of range; allowed: {MIN_BLOCK} to {MAX_BLOCK} frames")
-    g, o = recipe.guard, recipe.output
-    return Policy(on_over=on_over or g.on_over, ceiling_dbfs=g.ceiling_dbfs,
-                  true_peak_ceiling_dbtp=g.true_peak_ceiling_dbtp, subtype=o.subtype, dither=o.dither,
-                  block_size=block, true_peak=true_peak)
+    return Policy.from_recipe(recipe, on_over=on_over, block_size=block_size, true_peak=true_peak)
 
 
 @dataclass
@@ -400,51 +393,6 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "
                          f"({', '.join(map(str, designs))} Hz); no audio was touched")
     return Prepared(recipe, policy, outdir, designs, work, results, refused)
-
-
-# libsndfile's header log (sf_command SFC_GET_LOG_INFO): a chunk whose size says more than the file holds
-# is logged as "<chunk> : <declared> (should be <present>)", and RF64 as a frame count that does not match.
-_SFC_GET_LOG_INFO = 0x1001
-_DECLARED_RE = re.compile(r"^\s*(?:data|SSND|Data Size)\s*:\s*(\d+)\s*\(should be (\d+)\)", re.M)
-_DS64_RE = re.compile(r"Calculated frame count (\d+) does not match value from 'ds64' chunk of (\d+)")
-_W64_RE = re.compile(r"^\s*riff\s*:\s*(\d+)\s*\(should be (\d+)\)", re.M)
-_UNKNOWN_LENGTH = {0, 0x7FFFFFFF, 0xFFFFFFFF}        # placeholders of unfinished or streamed headers
-_BYTES = {"PCM_S8": 1, "PCM_U8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4, "FLOAT": 4, "DOUBLE": 8,
-          "ULAW": 1, "ALAW": 1}
-
-
-def cut_short(src: Source) -> str | None:
-    """Why ``src`` holds less audio than its header declares, or None.
-
-    libsndfile quietly reads what is there when a header promises more (a copy or
-    a recording that did not finish); chainrun does not deliver such a file as if
-    it were whole.
-    """
-    import soundfile as sf
-
-    try:
-        with sf.SoundFile(_sf_path(src.path)) as f:
-            buf = sf._ffi.new("char[]", 16384)
-            sf._snd.sf_command(f._file, _SFC_GET_LOG_INFO, buf, 16384)
-            log = sf._ffi.string(buf).decode("latin-1")
-    except Exception:          # unreadable now: rendering will say so
-        return None
-    frame = src.channels * _BYTES.get(src.subtype, 1)
-    for m in _DECLARED_RE.finditer(log):
-        declared, present = int(m.group(1)), int(m.group(2))
-        if declared not in _UNKNOWN_LENGTH and declared - present >= frame:
-            return (f"cut short: its header declares {declared} bytes of audio but the file holds {present} "
-                    f"({present // frame} of {declared // frame} frames; a copy or recording that did not "
-                    "finish); not rendered, copy it again or repair its header")
-    m = _DS64_RE.search(log)                    # RF64: frames present, frames declared
-    short = m is not None and int(m.group(1)) < int(m.group(2))
-    if not short and src.format == "W64":
-        m = _W64_RE.search(log)                 # Wave64 logs only its outer size: declared, present
-        short = m is not None and int(m.group(1)) - int(m.group(2)) >= frame
-    if short:
-        return (f"cut short: the file holds less audio than its header declares ({m.group(0).strip()}; a copy "
-                "or recording that did not finish); not rendered, copy it again or repair its header")
-    return None
 
 
 # The largest block in samples (frames x channels): a file with many channels is read in fewer frames
@@ -508,9 +456,7 @@ def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) 
 
 def job_key(recipe: Recipe, policy: Policy) -> str:
     """What decides an output's bytes besides its input: recipe, policy and chainrun version."""
-    payload = json.dumps({"recipe": recipe.digest, "version": __version__, "on_over": policy.on_over,
-                          "ceiling_dbfs": policy.ceiling_dbfs, "true_peak_ceiling_dbtp": policy.true_peak_ceiling_dbtp,
-                          "subtype": policy.subtype, "dither": policy.dither}, sort_keys=True)
+    payload = json.dumps({"recipe": recipe.digest, "version": __version__, **policy.output_key()}, sort_keys=True)
     return hashlib.sha256(payload.encode()).hexdigest()
 
 

@@ -3,8 +3,13 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun import render
-from chainrun.render import AudioError, Policy, Source, output_format, probe, render_file
+from chainrun.audio import formats, writer
+from chainrun.audio.formats import output_format
+from chainrun.audio.quantise import Quantiser
+from chainrun.audio.reader import _Blocks, probe, unpack24
+from chainrun.audio.source import Source
+from chainrun.errors import AudioError
+from chainrun.render import Policy, render_file, scan_file
 
 UNITY = np.array([[1.0, 0.0, 0.0, 1.0, 0.0, 0.0]])
 
@@ -26,7 +31,7 @@ def test_wav_past_4_gib_becomes_rf64():
 def test_rf64_output_is_written_and_reads_back(tmp_path, monkeypatch):
     x = np.linspace(-0.5, 0.5, 4000)
     sf.write(tmp_path / "in.wav", np.column_stack([x, -x]), 48000, subtype="PCM_24")
-    monkeypatch.setattr(render, "RF64_THRESHOLD", 0)       # as if the output passed 4 GiB
+    monkeypatch.setattr(formats, "RF64_THRESHOLD", 0)       # as if the output passed 4 GiB
     res = render_file(probe(str(tmp_path / "in.wav")), str(tmp_path / "out.wav"), UNITY, 1.0,
                       Policy(dither="none"), "in.wav")
     assert res.status == "ok" and res.out_format == "RF64"
@@ -48,7 +53,7 @@ def test_an_aiff_output_past_4_gib_is_refused_before_writing(tmp_path, monkeypat
     assert output_format(aiff, "same") == ("AIFF", "PCM_16")          # a quarter of the bytes: fits
     x = np.zeros((100, 2))
     sf.write(tmp_path / "in.aiff", x, 48000, subtype="PCM_16")
-    monkeypatch.setattr(render, "RF64_THRESHOLD", 0)                   # as if the output passed 4 GiB
+    monkeypatch.setattr(formats, "RF64_THRESHOLD", 0)                   # as if the output passed 4 GiB
     res = render_file(probe(str(tmp_path / "in.aiff")), str(tmp_path / "out.aiff"), UNITY, 1.0,
                       Policy(), "in.aiff")
     assert res.status == "failed" and "\n" not in res.message and "AIFF" in res.message
@@ -65,7 +70,7 @@ def test_float_rf64_output_is_bit_identical_on_a_rerun(tmp_path, monkeypatch, su
 
     x = np.random.default_rng(3).uniform(-0.9, 0.9, (3000, 2))
     sf.write(tmp_path / "in.wav", x, 48000, subtype=subtype)
-    monkeypatch.setattr(render, "RF64_THRESHOLD", 0)       # as if the output passed 4 GiB
+    monkeypatch.setattr(formats, "RF64_THRESHOLD", 0)       # as if the output passed 4 GiB
     outs = []
     for k in range(2):
         res = render_file(probe(str(tmp_path / "in.wav")), str(tmp_path / f"out{k}.wav"), UNITY, 1.0,
@@ -99,13 +104,13 @@ def test_packed24_gives_the_three_low_bytes_of_each_code(frames, channels, dithe
     y = rng.uniform(-1.1, 1.1, (channels, frames))                # beyond full scale too: some codes clip
     y[0, 0] = -1.0                                                # the lowest code
     counted = rng.random((channels, frames)) < 0.3                # some already counted by the clip policy
-    expected, expected_clipped = render.Quantiser("PCM_24", dither, seed=9).codes(y, counted)
+    expected, expected_clipped = Quantiser("PCM_24", dither, seed=9).codes(y, counted)
     # analytic: a 24-bit little-endian sample is the low three bytes of its two's-complement int32, in
     # the order of the samples (numpy's own byte view is the oracle); big-endian is the same three reversed
     little = expected.reshape(-1).astype("<i4").view(np.uint8).reshape(-1, 4)[:, :3]
     n = 3 * expected.size
     for big_endian, want in ((False, little), (True, little[:, ::-1])):
-        q = render.Quantiser("PCM_24", dither, seed=9)
+        q = Quantiser("PCM_24", dither, seed=9)
         got = q.packed24(y, counted, big_endian=big_endian, out=np.full(n + 7, 0xAA, dtype=np.uint8))
         assert got[:n].tobytes() == np.ascontiguousarray(want).tobytes()
         assert (got[n:] == 0xAA).all()                            # nothing written past the samples
@@ -116,14 +121,14 @@ def test_packed24_skips_the_range_search_only_when_no_code_can_leave_the_range()
     # the known peak lets the search be skipped; a wrong "peak" would show as a wrapped code, so give
     # the true one and check the count and bytes still match the full search
     y = np.array([[0.5, -0.999, 0.25, 1.0]])
-    q1, q2 = render.Quantiser("PCM_24", False, 0), render.Quantiser("PCM_24", False, 0)
+    q1, q2 = Quantiser("PCM_24", False, 0), Quantiser("PCM_24", False, 0)
     a = q1.packed24(y)[:12]
     b = q2.packed24(y, peak=1.0)[:12]
     assert a.tobytes() == b.tobytes() and q1.clipped == q2.clipped == 1     # 1.0 is one above the top code
     assert a[9:12].tobytes() == b"\xff\xff\x7f"                            # the top code, 2**23 - 1
 
 
-@pytest.mark.parametrize("fmt", sorted(render._PACKED_24))
+@pytest.mark.parametrize("fmt", sorted(formats._PACKED_24))
 @pytest.mark.parametrize("frames, channels", [(1, 1), (1001, 2), (4096, 1), (7, 5)])
 @pytest.mark.parametrize("dither", [False, True])
 def test_packed_24_bit_output_is_byte_identical_to_libsndfile(tmp_path, fmt, frames, channels, dither):
@@ -136,10 +141,10 @@ def test_packed_24_bit_output_is_byte_identical_to_libsndfile(tmp_path, fmt, fra
     written = []
     for packed in (True, False):
         path = tmp_path / f"{fmt}-{packed}.bin"
-        out = render._Output(str(path), src, fmt, "PCM_24")
+        out = writer._Output(str(path), src, fmt, "PCM_24")
         assert out.packed                                      # this container takes the packed path
         out.packed = packed
-        q = render.Quantiser("PCM_24", dither=dither, seed=0)
+        q = Quantiser("PCM_24", dither=dither, seed=0)
         half = frames // 2
         out.put(q, y[:, :half])
         out.put(q, y[:, half:])
@@ -159,16 +164,16 @@ def test_unpack24_reads_the_three_bytes_of_each_sample_as_code_over_2_to_the_23(
     padded = np.full(little.size + 5, 0xFF, dtype=np.uint8)     # what follows the samples must not show
     padded[:little.size] = little
     out = np.full((channels, frames + 3), np.nan)
-    got = render.unpack24(padded[:little.size + 1], frames, channels, out)
+    got = unpack24(padded[:little.size + 1], frames, channels, out)
     np.testing.assert_array_equal(got, codes.T / 2.0 ** 23)
     assert np.isnan(out[:, frames:]).all()                      # nothing written past the frames
     with pytest.raises(ValueError, match="one byte past the last sample"):
-        render.unpack24(padded[:little.size], frames, channels, out)
+        unpack24(padded[:little.size], frames, channels, out)
 
 
 def _blocks(path, block):
     """Every block _Blocks reads from ``path``, joined, and whether it took the raw path."""
-    reader = render._Blocks(probe(str(path)), block)
+    reader = _Blocks(probe(str(path)), block)
     try:
         parts = [x for _, x, _ in reader]
     finally:
@@ -176,7 +181,7 @@ def _blocks(path, block):
     return np.concatenate(parts, axis=1), reader.raw
 
 
-@pytest.mark.parametrize("fmt", sorted(render._UNPACKED_24))
+@pytest.mark.parametrize("fmt", sorted(formats._UNPACKED_24))
 @pytest.mark.parametrize("frames, channels, block", [(1, 1, 16), (1001, 2, 64), (4096, 1, 4096), (777, 5, 100),
                                                      (5000, 2, 65536)])
 def test_raw_24_bit_reading_gives_libsndfile_s_numbers(tmp_path, fmt, frames, channels, block):
@@ -207,7 +212,7 @@ def test_other_inputs_keep_libsndfile_s_reading(tmp_path, fmt, subtype, endian):
 def test_packed_path_is_only_for_containers_it_knows(tmp_path):
     # FLAC compresses and CAF is not in the table: both keep libsndfile's own conversion
     for fmt in ("FLAC", "CAF"):
-        out = render._Output(str(tmp_path / f"x.{fmt.lower()}"), _source(10, 1, fmt, "PCM_24"), fmt, "PCM_24")
+        out = writer._Output(str(tmp_path / f"x.{fmt.lower()}"), _source(10, 1, fmt, "PCM_24"), fmt, "PCM_24")
         assert not out.packed
         out.close()
 
@@ -220,5 +225,5 @@ def test_companded_inputs_at_their_largest_code_read_as_clipped(tmp_path, subtyp
     sf.write(path, np.array([0.0, 1.0, -1.0, 0.5, 0.25]), 8000, subtype=subtype)
     back, _ = sf.read(path, dtype="int16")
     assert list(back[1:3]) == [top, -top]
-    reading = render.scan_file(probe(str(path))).input_meters.channels[0]
+    reading = scan_file(probe(str(path))).input_meters.channels[0]
     assert reading.clipped_samples == 2                 # the two samples at the largest code, and no other

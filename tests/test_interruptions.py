@@ -386,23 +386,24 @@ def test_a_ctrl_c_inside_a_finaliser_still_stops_the_file(workers, tmp_path, wri
     # KeyboardInterrupt there had it printed with a traceback and dropped by Python, and the file went on.
     # chainrun's handler only sets a flag; the file stops at its next block and nothing is delivered.
     # (One file with --workers 2 renders in this process, with its pipeline threads.)
-    from chainrun import render
+    from chainrun import interrupt
+    from chainrun.audio.reader import _Blocks
 
     write_audio("in/long take.wav", np.random.default_rng(5).uniform(-0.3, 0.3, (40_000, 2)), 48000, "PCM_24")
     recipe = tmp_path / "r.yaml"
     recipe.write_text(RECIPE)
-    real, calls = render._Blocks._read, []
+    real, calls = _Blocks._read, []
 
     def read(self):
         calls.append(1)
         if len(calls) == 3:
             _FinaliserThatGetsCtrlC()             # made and collected at once: its __del__ runs here
             deadline = time.monotonic() + 10      # with threads, the main thread runs the handler soon after
-            while not render.rendering_stopped() and time.monotonic() < deadline:
+            while not interrupt.rendering_stopped() and time.monotonic() < deadline:
                 time.sleep(0.001)
         return real(self)
 
-    monkeypatch.setattr(render._Blocks, "_read", read)
+    monkeypatch.setattr(_Blocks, "_read", read)
     before = signal.getsignal(signal.SIGINT)
     status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", workers,
                              "--block-size", "4000")
@@ -411,7 +412,7 @@ def test_a_ctrl_c_inside_a_finaliser_still_stops_the_file(workers, tmp_path, wri
     assert "interrupted; 1 file(s) not rendered" in err
     assert finals(tmp_path / "out") == {} and temporaries(tmp_path / "out") == []
     assert len(calls) == 3                        # analytic: it stopped before reading the 4th of 10 blocks
-    assert signal.getsignal(signal.SIGINT) is before and not render.rendering_stopped()
+    assert signal.getsignal(signal.SIGINT) is before and not interrupt.rendering_stopped()
 
 
 def test_a_worker_s_ctrl_c_handler_never_raises(tmp_path, write_audio):
@@ -422,50 +423,51 @@ def test_a_worker_s_ctrl_c_handler_never_raises(tmp_path, write_audio):
     job = batch.Job(src.path, "a.wav", str(tmp_path / "out.wav"))
     try:
         interrupt.on_sigint(signal.SIGINT, None)           # would raise in the middle of anything if it could
-        assert render.rendering_stopped()
+        assert interrupt.rendering_stopped()
         r = batch._render_in_worker(job, src, np.array([[1.0, 0, 0, 1, 0, 0]]), 1.0, render.Policy())
         assert r.status == "failed" and r.message == batch.INTERRUPTED and not os.path.exists(job.output)
     finally:
-        render.allow_rendering()
+        interrupt.allow_rendering()
 
 
 def test_a_ctrl_c_after_the_last_block_still_counts(tmp_path, write_audio, run_cli, monkeypatch):
     # A Ctrl-C while the last file is synced (after its last block) cannot stop that file any more; it is
     # delivered, and the run still ends as interrupted (exit 1, one line) instead of going on quietly
-    from chainrun import render
+    from chainrun import interrupt
+    from chainrun.render import file as render_file
 
     write_audio("in/take.wav", np.zeros((3000, 2)), 48000, "PCM_16")
     recipe = tmp_path / "r.yaml"
     recipe.write_text(RECIPE)
-    real = render._fsync_path
+    real = render_file._fsync_path
 
     def sync(path, directory=False):
         if not directory:
             signal.raise_signal(signal.SIGINT)
         return real(path, directory)
 
-    monkeypatch.setattr(render, "_fsync_path", sync)
+    monkeypatch.setattr(render_file, "_fsync_path", sync)
     before = signal.getsignal(signal.SIGINT)
     status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", "1")
     assert status == 1, err
     assert err.splitlines()[-1] == "chainrun: interrupted after the last file was rendered; every file is in the report"
     assert finals(tmp_path / "out") == {"take.wav": (tmp_path / "out" / "take.wav").read_bytes()}
-    assert signal.getsignal(signal.SIGINT) is before and not render.rendering_stopped()
+    assert signal.getsignal(signal.SIGINT) is before and not interrupt.rendering_stopped()
 
 
 @pytest.mark.parametrize("workers", ["1", "2"])
 def test_a_stop_left_over_from_an_earlier_batch_does_not_stop_the_next(tmp_path, write_audio, run_cli, workers):
     # library use: a batch in the same process after one that was interrupted renders normally
-    from chainrun import render
+    from chainrun import interrupt
 
     for k in range(3):
         write_audio(f"in/take{k}.wav", np.zeros((3000, 2)), 48000, "PCM_16")
     recipe = tmp_path / "r.yaml"
     recipe.write_text(RECIPE)
-    render.stop_rendering()                  # as a Ctrl-C that landed after the last handler was gone
+    interrupt.stop_rendering()                  # as a Ctrl-C that landed after the last handler was gone
     try:
         status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", workers)
     finally:
-        render.allow_rendering()
+        interrupt.allow_rendering()
     assert status == 0, err
     assert sorted(finals(tmp_path / "out")) == ["take0.wav", "take1.wav", "take2.wav"]

@@ -453,10 +453,10 @@ def test_a_name_as_long_as_the_file_system_allows_is_delivered(tmp_path, run_cli
 def test_temporary_names_stay_within_255_bytes_where_the_file_system_says_more(tmp_path, monkeypatch):
     # vfat and exFAT report PC_NAME_MAX 1530 on Linux (bytes for 255 UTF-16 characters, from memory of
     # the kernel's statfs) yet hold names of 255 characters; a temporary name is never longer than 255
-    from chainrun import render
+    from chainrun import fsutil
 
-    monkeypatch.setattr(render.os, "pathconf", lambda path, name: 1530)
+    monkeypatch.setattr(fsutil.os, "pathconf", lambda path, name: 1530)
     final = str(tmp_path / ("saltings_" + "x" * 235 + ".wav"))       # 248 bytes: legal anywhere
     for suffix in ("", ".f64"):
-        temp = os.path.basename(render.temp_path_for(final, suffix))
+        temp = os.path.basename(fsutil.temp_path_for(final, suffix))
         assert len(os.fsencode(temp)) <= 255 and temp.startswith(".saltings_") and TEMP_TAG in temp

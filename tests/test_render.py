@@ -18,8 +18,11 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from scipy import signal
 
-from chainrun import render
-from chainrun.render import Policy, Quantiser, probe, render_file, scan_file, seed_for
+from chainrun.audio import writer
+from chainrun.audio.quantise import Quantiser, seed_for
+from chainrun.audio.reader import probe
+from chainrun.meters import MeterBank
+from chainrun.render import Policy, file as render_mod, render_file, scan_file
 
 RATE = 48000
 # A hand-typed stable resonance, poles at radius 0.99 and angle 0.1 rad (about 764 Hz at 48 kHz),
@@ -189,13 +192,13 @@ def test_blas_runs_on_the_calling_thread_while_a_file_is_metered(tmp_path, write
     from threadpoolctl import threadpool_info
 
     seen = []
-    real = render.Meter.update
+    real = MeterBank.update
 
     def spy(self, block, extremes=None):
         seen.extend(lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas")
         return real(self, block, extremes)
 
-    monkeypatch.setattr(render.Meter, "update", spy)
+    monkeypatch.setattr(MeterBank, "update", spy)
     src = probe(str(_noise_file(write_audio)))
     out = tmp_path / "out"
     out.mkdir()
@@ -227,7 +230,7 @@ def test_disk_full_on_the_third_block_delivers_nothing(tmp_path, write_audio, mo
     out.mkdir()
     dst = out / "take.wav"
     old = _older_output(dst) if older else None
-    real_write, real_raw = sf.SoundFile.write, render._write_raw
+    real_write, real_raw = sf.SoundFile.write, writer._write_raw
     calls = []
 
     def full_disk(self, data):
@@ -243,7 +246,7 @@ def test_disk_full_on_the_third_block_delivers_nothing(tmp_path, write_audio, mo
         return real_raw(f, words, nbytes)
 
     monkeypatch.setattr(sf.SoundFile, "write", full_disk)
-    monkeypatch.setattr(render, "_write_raw", full_disk_raw)
+    monkeypatch.setattr(writer, "_write_raw", full_disk_raw)
     res = render_file(src, str(dst), RESONANCE, 50.0, Policy(on_over=on_over, block_size=1000), "take.wav")
     assert len(calls) == 3
     assert res.status == "failed" and res.output is None
@@ -383,14 +386,14 @@ def test_a_folder_sync_that_fails_after_the_rename_still_names_the_output(tmp_pa
     src = probe(str(write_audio("in/take.wav", np.zeros(1000), RATE, "PCM_16")))
     out = tmp_path / "out"
     out.mkdir()
-    real = render._fsync_path
+    real = render_mod._fsync_path
 
     def failing(path, directory=False):
         if directory:
             raise OSError(errno.EIO, "Input/output error", path)
         return real(path, directory)
 
-    monkeypatch.setattr(render, "_fsync_path", failing)
+    monkeypatch.setattr(render_mod, "_fsync_path", failing)
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(), "take.wav")
     assert res.status == "failed" and "\n" not in res.message and "input/output error" in res.message
     assert res.output == str(out / "take.wav") and files_in(out) == ["take.wav"]

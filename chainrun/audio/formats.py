@@ -1,0 +1,126 @@
+"""Containers and subtypes: one row each, with what chainrun does differently for it.
+
+Everything that depends on a container or a subtype is read from the two tables here
+(:data:`CONTAINERS`, :data:`SUBTYPES`) and the small tables derived from them; no other
+module keeps its own list of subtype widths or container quirks.
+"""
+from __future__ import annotations
+
+from typing import Any, NamedTuple
+
+import numpy as np
+import soundfile as sf
+
+from ..errors import AudioError
+from .source import Source
+
+__all__ = ["Subtype", "Container", "SUBTYPES", "CONTAINERS", "RF64_THRESHOLD", "writable", "sample_bytes",
+           "full_scale", "output_format"]
+
+RF64_THRESHOLD = 0xFFFFFFFF - (1 << 20)   # bytes; a RIFF size field cannot say more than 4 GiB
+
+
+class Subtype(NamedTuple):
+    """One sample encoding."""
+
+    bits: int | None    # integer word length; None for float and for companded codes
+    width: int          # bytes per sample in the file
+    dtype: Any          # numpy dtype handed to libsndfile when writing; None: chainrun does not write it
+    shift: int          # left shift of the codes into that dtype (libsndfile takes its top bits)
+
+
+# Subtype -> its row. libsndfile takes the top bits of int16/int32 data, so 24-bit codes are shifted up by 8.
+# The companded laws count as having no word length: an integer output never has more bits than they hold.
+SUBTYPES: dict[str, Subtype] = {
+    "PCM_U8": Subtype(8, 1, np.int16, 8),       # 8-bit WAV
+    "PCM_S8": Subtype(8, 1, np.int16, 8),       # 8-bit AIFF
+    "PCM_16": Subtype(16, 2, np.int16, 0),
+    "PCM_24": Subtype(24, 3, np.int32, 8),
+    "PCM_32": Subtype(32, 4, np.int32, 0),
+    "FLOAT": Subtype(None, 4, np.float32, 0),
+    "DOUBLE": Subtype(None, 8, np.float64, 0),
+    "ULAW": Subtype(None, 1, None, 0),          # G.711 u-law: read only
+    "ALAW": Subtype(None, 1, None, 0),          # G.711 A-law: read only
+}
+
+
+class Container(NamedTuple):
+    """One container's quirks."""
+
+    size32: bool                 # its size fields are 32-bit: it cannot describe more than 4 GiB
+    large: str | None            # the 64-bit sibling an output past 4 GiB becomes (None: refused)
+    packed24: bool | None        # PCM_24 packed by chainrun and written raw: big-endian? (None: libsndfile's)
+    raw24_magic: bytes | None    # its first four bytes when chainrun reads its PCM_24 raw (little-endian)
+
+
+# Containers chainrun treats specially; any other container libsndfile writes is handled by libsndfile alone.
+CONTAINERS: dict[str, Container] = {
+    "WAV": Container(True, "RF64", False, b"RIFF"),      # RIFF: little-endian; RIFX also says WAV
+    "WAVEX": Container(True, "RF64", False, b"RIFF"),    # WAVE_FORMAT_EXTENSIBLE
+    "RF64": Container(False, None, False, b"RF64"),
+    "W64": Container(False, None, False, b"riff"),       # the first bytes of Wave64's 'riff' GUID
+    "AIFF": Container(True, None, True, None),           # big-endian; there is no 64-bit AIFF
+}
+# Containers whose PCM_24 samples chainrun packs itself and hands to libsndfile as raw bytes
+# (sf_write_raw; libsndfile still writes and finishes the header): format -> big-endian?
+_PACKED_24 = {name: c.packed24 for name, c in CONTAINERS.items() if c.packed24 is not None}
+# Containers whose PCM_24 samples chainrun reads raw (sf_read_raw) and unpacks itself, with the
+# four bytes their files start with. All are little-endian; a big-endian RIFX file also reports
+# itself as WAV, and the first bytes tell it apart.
+_UNPACKED_24 = {name: c.raw24_magic for name, c in CONTAINERS.items() if c.raw24_magic is not None}
+
+# The largest magnitude the G.711 companding laws can code, as libsndfile decodes it to 16 bits
+# (u-law 8031 in 14-bit steps, A-law 4032 in 13-bit steps; ITU-T G.711, values from memory,
+# checked against libsndfile's decoding of +1.0): a sample there is at full scale.
+_COMPANDED_FULL_SCALE = {"ULAW": 32124 / 32768, "ALAW": 32256 / 32768}
+
+
+def writable(subtype: str) -> bool:
+    """True if chainrun can write ``subtype``."""
+    row = SUBTYPES.get(subtype)
+    return row is not None and row.dtype is not None
+
+
+def sample_bytes(subtype: str) -> int:
+    """Bytes one sample of ``subtype`` takes in a file (1 for a subtype not in the table)."""
+    row = SUBTYPES.get(subtype)
+    return row.width if row is not None else 1
+
+
+def full_scale(subtype: str) -> float:
+    """The largest magnitude ``subtype`` can hold (1.0 = 0 dBFS); a sample there counts as clipped.
+
+    For b-bit PCM it is the largest code, ``(2**(b-1) - 1) / 2**(b-1)``.
+    """
+    if subtype in _COMPANDED_FULL_SCALE:
+        return _COMPANDED_FULL_SCALE[subtype]
+    bits = SUBTYPES.get(subtype, (None,))[0]
+    return (2 ** (bits - 1) - 1) / 2 ** (bits - 1) if bits else 1.0
+
+
+def output_format(src: Source, subtype: str) -> tuple[str, str]:
+    """Container and subtype of the output for ``src`` (``subtype`` may be ``same``).
+
+    WAV outputs that would pass 4 GiB become RF64; an AIFF output cannot (its size fields are
+    32-bit too, and there is no 64-bit AIFF), so it is refused before anything is written.
+
+    Raises
+    ------
+    AudioError
+        If the subtype cannot be written, or the container cannot hold it.
+    """
+    out_subtype = src.subtype if subtype == "same" else subtype
+    if not writable(out_subtype):
+        raise AudioError(f"its encoding {src.subtype} cannot be written back as it is; "
+                         "set output.subtype to one of PCM_16, PCM_24, PCM_32, FLOAT, DOUBLE")
+    fmt = src.format
+    nbytes = src.frames * src.channels * SUBTYPES[out_subtype].width
+    row = CONTAINERS.get(fmt)
+    if row is not None and row.size32 and nbytes > RF64_THRESHOLD:
+        if row.large is None:
+            raise AudioError(f"as {out_subtype} its output would pass the 4 GiB an {fmt} file can describe; "
+                             "choose a smaller output.subtype, or split the recording")
+        fmt = row.large
+    if not sf.check_format(fmt, out_subtype):
+        raise AudioError(f"a {fmt} file cannot hold {out_subtype}; choose another output.subtype")
+    return fmt, out_subtype

@@ -1,0 +1,120 @@
+"""Writing the output: :class:`_Output`, the temporary file libsndfile writes, and its PEAK time stamp."""
+from __future__ import annotations
+
+import sys
+
+import numpy as np
+import soundfile as sf
+
+from ..errors import AudioError
+from . import sndfile
+from .formats import _PACKED_24
+from .quantise import Quantiser
+from .reader import _sf_path
+from .source import Source
+
+__all__ = ["_Output"]
+
+
+def _write_raw(f: sf.SoundFile, words: np.ndarray, nbytes: int) -> int:
+    """Hand ``nbytes`` bytes of already-encoded samples to libsndfile; returns the bytes it took."""
+    return sndfile.write_raw(f, words, nbytes)
+
+
+class _Output:
+    """The temporary output file; libsndfile's errors become one line naming their cause.
+
+    PCM_24 in the containers of ``_PACKED_24`` is packed here (:meth:`Quantiser.packed24`) and
+    written raw; every other subtype goes through libsndfile's own conversion.
+    Both give the same bytes (tests/test_render.py checks it for each container).
+    """
+
+    def __init__(self, path: str, src: Source, fmt: str, subtype: str):
+        self.path, self.fmt, self.subtype = path, fmt, subtype
+        try:
+            self.f = sf.SoundFile(_sf_path(path), "w", src.rate, src.channels, subtype, format=fmt)
+        except (sf.LibsndfileError, RuntimeError) as exc:
+            raise AudioError(f"cannot create the output: {_sf_reason(None, exc)}; nothing was delivered") from None
+        # The PEAK chunk of float WAV/AIFF carries a time stamp; without it reruns are bit-identical.
+        sndfile.no_peak_chunk(self.f)
+        self.packed = (subtype == "PCM_24" and fmt in _PACKED_24 and sys.byteorder == "little")
+        self.big_endian = _PACKED_24.get(fmt, False)
+        self._bytes: np.ndarray | None = None
+
+    def write(self, data: np.ndarray) -> None:
+        """Write what :class:`Quantiser` returns (frames x channels, libsndfile's layout)."""
+        try:
+            self.f.write(data)
+        except (sf.LibsndfileError, RuntimeError) as exc:
+            raise AudioError(f"cannot write the output: {_sf_reason(self.f, exc)}; nothing was delivered") from None
+
+    def put(self, quantise: Quantiser, y: np.ndarray, counted: np.ndarray | None = None,
+            peak: float | None = None) -> None:
+        """Quantise ``y`` (channels x frames) and write it, packed here where that is faster.
+
+        ``peak`` is max |y| if the caller knows it (see :meth:`Quantiser.codes`).
+        """
+        if not self.packed:
+            self.write(quantise(y, counted, peak)[0])
+            return
+        self._bytes = quantise.packed24(y, counted, peak, self.big_endian, self._bytes)
+        nbytes = 3 * y.size
+        if _write_raw(self.f, self._bytes, nbytes) != nbytes:
+            raise AudioError(f"cannot write the output: {_sf_reason(self.f, OSError('short write'))}; "
+                             "nothing was delivered")
+
+    @property
+    def closed(self) -> bool:
+        return self.f.closed
+
+    def close(self) -> None:
+        if self.f.closed:
+            return
+        try:
+            self.f.close()
+        except (sf.LibsndfileError, RuntimeError) as exc:
+            raise AudioError(f"cannot finish the output: {_sf_reason(None, exc)}; nothing was delivered") from None
+        if self.fmt == "RF64" and self.subtype in ("FLOAT", "DOUBLE"):
+            _clear_rf64_peak_time(self.path)
+
+    def __enter__(self) -> "_Output":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+
+def _clear_rf64_peak_time(path: str) -> None:
+    """Zero the time stamp in a float RF64 file's PEAK chunk, so that reruns are bit-identical.
+
+    libsndfile writes RF64's header, PEAK chunk included, when the file is opened, before
+    SFC_SET_ADD_PEAK_CHUNK can turn the chunk off (it does for WAV and AIFF). The chunk is
+    "PEAK", its size, a version and then the time stamp (4 bytes each, little-endian); the
+    peaks that follow are left as they are. Chunks are walked from the header, not searched for.
+    """
+    with open(path, "r+b") as fh:
+        head = fh.read(1 << 16)
+        if head[:4] != b"RF64" or head[8:12] != b"WAVE":
+            return
+        at = 12
+        while at + 8 <= len(head):
+            cid, size = head[at:at + 4], int.from_bytes(head[at + 4:at + 8], "little")
+            if cid == b"PEAK":
+                if size >= 8:
+                    fh.seek(at + 12)
+                    fh.write(b"\0\0\0\0")
+                return
+            if cid == b"data":
+                return
+            at += 8 + size + (size & 1)
+
+
+def _sf_reason(f: sf.SoundFile | None, exc: BaseException) -> str:
+    """libsndfile's own description of the last error (it keeps the system's reason for I/O errors)."""
+    try:
+        text = sndfile.error_text(f).strip().rstrip(".")
+    except Exception:
+        text = ""
+    if not text or text.lower() in ("no error", "system error"):
+        text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    return text.replace("System error : ", "").lower()
