@@ -15,7 +15,7 @@ import time
 
 import numpy as np
 
-from chainrun.loudness import LoudnessMeter
+from chainrun.meters.loudness import LoudnessMeter
 
 RATE, CHANNELS, BLOCK = 48000, 2, 65536
 

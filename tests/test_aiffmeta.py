@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun import aiffmeta as am
-from chainrun.riffmeta import MetaError
+from chainrun.audio.metadata import aiff as am
+from chainrun.audio.metadata.riff import MetaError
 
 RATE = 48000
 

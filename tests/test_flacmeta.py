@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun import flacmeta as fm
-from chainrun.riffmeta import MetaError
+from chainrun.audio.metadata import flac as fm
+from chainrun.audio.metadata.riff import MetaError
 
 mutagen_flac = pytest.importorskip("mutagen.flac")
 RATE = 48000

@@ -1,4 +1,4 @@
-"""Tests of chainrun.loudness: K-weighting, EBU Tech 3341/3342 cases, pyloudnorm, block-split exactness.
+"""Tests of chainrun.meters.loudness: K-weighting, EBU Tech 3341/3342 cases, pyloudnorm, block-split exactness.
 
 Each expected value names its source beside the check.  The Tech 3341 / 3342 signals are
 synthesised here from their published descriptions as remembered (the documents themselves could
@@ -18,8 +18,8 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 from scipy import signal
 
-from chainrun.loudness import LoudnessMeter, LoudnessReading, k_weighting_sos
-from chainrun.meters import Meter          # the true-peak meter (its import path may move)
+from chainrun.meters.loudness import LoudnessMeter, LoudnessReading, k_weighting_sos
+from chainrun.meters import MeterBank as Meter     # the standard bank, holding the true-peak meter
 
 # ITU-R BS.1770-4 Annex 1, Table 1 (stage 1) and Table 2 (stage 2), 48 kHz, [b0, b1, b2, 1, a1, a2]
 # (value from memory of ITU-R BS.1770-4 Tables 1/2; verify)

@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun import bext as bx
-from chainrun import riffmeta as rm
+from chainrun.audio.metadata import bext as bx
+from chainrun.audio.metadata import riff as rm
 
 wavinfo = pytest.importorskip("wavinfo")
 

@@ -5,7 +5,7 @@ AIFF-C draft of 1991): EA IFF 85 chunks with big-endian 32-bit sizes and a pad b
 odd-sized payload (not counted in the size). No library reads and writes arbitrary AIFF
 chunks in place (mutagen handles only the 'ID3 ' chunk; Python's aifc module is gone from
 3.13 and never kept other chunks), so the chunk code is here, built like
-:mod:`chainrun.riffmeta` and sharing its records (``CarryItem``, ``Reservation``,
+:mod:`chainrun.audio.metadata.riff` and sharing its records (``CarryItem``, ``Reservation``,
 ``MetaError``) and its libsndfile ``sf_set_chunk`` binding.
 
 Carried with the same payload, in the input's order: NAME, AUTH, '(c) ', ANNO, COMT, MARK,
@@ -39,7 +39,7 @@ import os
 import struct
 from dataclasses import dataclass, field
 
-from chainrun.riffmeta import CARRY_LIMIT, CarryItem, MetaError, Reservation, _libsndfile_set_chunk
+from .riff import CARRY_LIMIT, CarryItem, MetaError, Reservation, _libsndfile_set_chunk
 
 FILLER = "JUNK"                    # id of the reserved room and of the filler left in it
 
@@ -183,7 +183,7 @@ def plan_carry(layout: AiffLayout, keep: bool = True) -> list[CarryItem]:
 
     Chunks describing the input's audio, and fillers, are rewritten or dropped (see
     ``_LAYOUT``); every other chunk is carried with the same payload, up to
-    :data:`chainrun.riffmeta.CARRY_LIMIT` bytes in all. ``keep=False`` (recipe
+    :data:`chainrun.audio.metadata.riff.CARRY_LIMIT` bytes in all. ``keep=False`` (recipe
     ``output.metadata: drop``) drops every metadata chunk; malformed chunks are dropped with
     the reason of their note.
     """

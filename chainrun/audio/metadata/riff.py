@@ -35,7 +35,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from chainrun.bext import BEXT_ROW_MAX, parse_bext, update_bext
+from .bext import BEXT_ROW_MAX, parse_bext, update_bext
 
 CARRY_LIMIT = 16 * 1024 * 1024        # bytes of metadata carried per file, all chunks together
 TAIL_WINDOW = CARRY_LIMIT + 65536     # bytes at the end of a streamed file searched for chunks
@@ -473,7 +473,7 @@ def finish_output(temp_path: str, reservation: Reservation, carry: list[CarryIte
     carry : list of CarryItem
         What :func:`plan_carry` returned.
     bext_row : str, optional
-        One EBU R 98 row (:func:`chainrun.bext.coding_history_row`) for the bext chunk.
+        One EBU R 98 row (:func:`chainrun.audio.metadata.bext.coding_history_row`) for the bext chunk.
     loudness : dict, optional
         Output measurements for the bext v2 loudness fields; missing ones are written unknown.
 
