@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import numbers
 import os
-import stat
 from dataclasses import replace
 from types import MappingProxyType
 from typing import Any, Mapping, NamedTuple
@@ -25,7 +24,7 @@ from ..errors import Location, RecipeError
 from ..section_types import MAX_ABS_GAIN_DB, MAX_BW_OCTAVES, MAX_ORDER, MIN_FREQ_HZ, SECTION_TYPES, SECTIONS
 from .model import _GUARD_KEYS, Guard, Output, Recipe, Section
 from .yaml import (MAX_FILE_BYTES, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer, _mapping,
-                   _Node, _number, _text)
+                   _Node, _number, _read_text, _text)
 
 __all__ = ["load", "loads", "from_dict"]
 
@@ -182,37 +181,6 @@ def _build(cls, layer: _Layer):
     return cls(**{k: v for k, (v, _) in layer.items()},
                where=MappingProxyType({k: where for k, (_, where) in layer.items()}))
 
-
-
-def _read_text(path: str, where: Location | None) -> str:
-    def fail(msg: str):
-        if where is None:
-            return RecipeError(path, 1, 1, msg)
-        return RecipeError.at(where, msg)
-
-    try:
-        if os.path.isdir(path):
-            raise fail(f"'{path}' is a folder; a recipe is a .yaml file")
-        if not stat.S_ISREG(os.stat(path).st_mode):     # a pipe or a device: reading it could wait for ever
-            raise fail(f"'{path}' is not a regular file (a pipe, socket or device); a recipe is a .yaml file")
-        size = os.path.getsize(path)
-        if size > MAX_FILE_BYTES:
-            raise fail(f"recipe is {size} bytes; allowed: up to {MAX_FILE_BYTES} bytes")
-        with open(path, "rb") as fh:
-            data = fh.read(MAX_FILE_BYTES + 1)
-    except FileNotFoundError:
-        raise fail(f"recipe file '{path}' does not exist; give the path of a .yaml recipe") from None
-    except OSError as exc:
-        raise fail(f"cannot read recipe file '{path}': {exc.strerror or exc}; "
-                   "a recipe must be a readable file") from None
-    try:
-        return data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        before = data[: exc.start]
-        line = before.count(b"\n") + 1
-        col = exc.start - (before.rfind(b"\n") + 1) + 1
-        raise RecipeError(path, line, col, f"byte 0x{data[exc.start]:02x} is not UTF-8; "
-                                           "save the recipe as UTF-8 text") from None
 
 
 class _Loaded(NamedTuple):

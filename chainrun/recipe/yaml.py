@@ -1,4 +1,4 @@
-"""Located safe YAML: recipe text -> nodes that remember the file, line and column of every value.
+"""Located safe YAML: a recipe file -> text -> nodes that remember their file, line and column.
 
 Only safe YAML is read: the document is *composed* into nodes with PyYAML's safe loader
 and converted here; no tag ever constructs a Python object. Numbers are written in decimal
@@ -12,7 +12,9 @@ from __future__ import annotations
 
 import difflib
 import math
+import os
 import re
+import stat
 from typing import Any, Mapping
 
 import yaml
@@ -29,6 +31,37 @@ _STR_TAG, _INT_TAG, _FLOAT_TAG = ("tag:yaml.org,2002:str", "tag:yaml.org,2002:in
 _RESOLVER = yaml.resolver.Resolver()         # YAML 1.1's implicit tags, to tell an explicit !!str apart
 _NOT_DECIMAL = re.compile(r"^[-+]?(0[0-9_]+|0[xXbBoO]|[^:]*:)")   # octal, hex, binary, base 60
 _FLOAT_RE = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
+
+
+def _read_text(path: str, where: Location | None) -> str:
+    def fail(msg: str):
+        if where is None:
+            return RecipeError(path, 1, 1, msg)
+        return RecipeError.at(where, msg)
+
+    try:
+        if os.path.isdir(path):
+            raise fail(f"'{path}' is a folder; a recipe is a .yaml file")
+        if not stat.S_ISREG(os.stat(path).st_mode):     # a pipe or a device: reading it could wait for ever
+            raise fail(f"'{path}' is not a regular file (a pipe, socket or device); a recipe is a .yaml file")
+        size = os.path.getsize(path)
+        if size > MAX_FILE_BYTES:
+            raise fail(f"recipe is {size} bytes; allowed: up to {MAX_FILE_BYTES} bytes")
+        with open(path, "rb") as fh:
+            data = fh.read(MAX_FILE_BYTES + 1)
+    except FileNotFoundError:
+        raise fail(f"recipe file '{path}' does not exist; give the path of a .yaml recipe") from None
+    except OSError as exc:
+        raise fail(f"cannot read recipe file '{path}': {exc.strerror or exc}; "
+                   "a recipe must be a readable file") from None
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        before = data[: exc.start]
+        line = before.count(b"\n") + 1
+        col = exc.start - (before.rfind(b"\n") + 1) + 1
+        raise RecipeError(path, line, col, f"byte 0x{data[exc.start]:02x} is not UTF-8; "
+                                           "save the recipe as UTF-8 text") from None
 
 
 class _Node:
