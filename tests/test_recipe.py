@@ -718,3 +718,114 @@ def test_the_steepest_slope_offered_is_accepted(write_recipe, gain_db):
     ok = write_recipe(f"format: 1\nchain:\n  - {{type: low_shelf, freq: 100, gain_db: {gain_db}, slope: {offered}}}\n",
                       name="ok.yaml")
     assert load(ok).sections[0].params["slope"] == offered
+
+
+# --------------------------------------------------------------------------- loads() and from_dict()
+
+from chainrun.recipe import from_dict, loads  # noqa: E402
+
+VOICE = """\
+format: 1
+name: boathouse voice
+chain:
+  - {type: highpass, freq: 80, order: 4}
+  - {type: peak, freq: 3000, gain_db: 2.5, bw: 1, label: presence}
+  - {type: high_shelf, freq: 9000, gain_db: -3, slope: 0.8}
+  - {type: notch, freq: 50, q: 30}
+  - {type: iir, b: [0.5, 0.25], a: [1, -0.25]}
+guard: {max_gain_db: 12, on_over: clip}
+output: {subtype: PCM_24, dither: tpdf}
+"""
+
+VOICE_DICT = {
+    "format": 1, "name": "boathouse voice",
+    "chain": [{"type": "highpass", "freq": 80, "order": 4},
+              {"type": "peak", "freq": 3000, "gain_db": 2.5, "bw": 1, "label": "presence"},
+              {"type": "high_shelf", "freq": 9000, "gain_db": -3, "slope": 0.8},
+              {"type": "notch", "freq": 50, "q": 30},
+              {"type": "iir", "b": (0.5, 0.25), "a": [1, -0.25]}],
+    "guard": {"max_gain_db": 12, "on_over": "clip"},
+    "output": {"subtype": "PCM_24", "dither": "tpdf"},
+}
+
+
+@pytest.mark.parametrize("rate", [44100, 96000])
+def test_text_and_dict_design_to_the_same_sos_as_the_file(write_recipe, rate):
+    # The file route is the one checked against the Audio EQ Cookbook and scipy.signal in
+    # test_design.py; text and mapping must give bit-identical coefficients, guard and output.
+    from chainrun.design import design
+
+    from_file = load(write_recipe(VOICE, "voice.yaml"))
+    from_text = loads(VOICE)
+    from_map = from_dict(VOICE_DICT)
+    expected = design(from_file, rate).sos
+    for recipe, path in ((from_text, "<text>"), (from_map, "<dict>")):
+        assert recipe.path == path and recipe.name == "boathouse voice"
+        assert design(recipe, rate).sos.tobytes() == expected.tobytes()
+        assert recipe.guard == from_file.guard and recipe.output == from_file.output
+        assert recipe.digest == from_file.digest
+        assert [s.label for s in recipe.sections] == ["", "presence", "", "", ""]
+
+
+def test_from_dict_takes_numpy_scalars():
+    np = pytest.importorskip("numpy")
+    recipe = from_dict({"format": 1, "chain": [{"type": "peak", "freq": np.float32(1000.0),
+                                                "gain_db": np.float64(-2.0), "q": np.int64(2)}]})
+    assert dict(recipe.sections[0].params) == {"freq": 1000.0, "gain_db": -2.0, "q": 2.0}
+    assert recipe.name == "<dict>"
+
+
+# (text, line, marker in that line or column, message part); the marker's first character is the column
+@pytest.mark.parametrize("text, line, col, part", [
+    ("format: 1\nchain:\n  - {type: peak, freq: 1000, gain_db: 2, q: 1\n", 4, 1, "invalid YAML"),
+    ("format: 1\nchain:\n  - {type: peak, freq: 1000, gain_db: 2, bw: 1, q: 1}\n", 3, "1, q",
+     "chain[0] gives both q and bw"),
+    ("format: 1\nchain:\n  - type: lowpass\n    freq: 050\n", 4, "050", "'050' is not a decimal number"),
+    ("", 1, 1, "the recipe is empty"),
+])
+def test_malformed_text_is_a_located_error_at_text(text, line, col, part):
+    if isinstance(col, str):
+        col = text.splitlines()[line - 1].index(col) + 1
+    with pytest.raises(RecipeError) as err:
+        loads(text)
+    msg = str(err.value)
+    assert ERROR_RE.match(msg), msg
+    # located as the text was written: line and column counted in `text` above
+    assert msg.startswith(f"<text>:{line}:{col}: error: ") and part in msg, msg
+    named = pytest.raises(RecipeError, loads, text, name="studio-b")
+    assert str(named.value).startswith(f"studio-b:{line}:{col}: error: ")
+
+
+@pytest.mark.parametrize("mapping, part", [
+    ({"format": 1, "chain": [{"type": "peak", "freq": 1000, "gain_db": 2}]}, "chain[0] needs q or bw"),
+    ({"format": 1, "chain": [{"type": "lowpass", "freq": "80"}]}, "chain[0].freq must be a number; found text '80'"),
+    ({"format": 1, "chain": [{"type": "gain", "gain_db": float("nan")}]}, "chain[0].gain_db must be a finite number"),
+    ({"format": 1, "chain": [{"type": "gain", "gain_db": object()}]}, "a value of type object cannot be written"),
+    ({"format": 1, (1, 2): 3}, "keys must be plain words"),
+    (["format", 1], "a recipe must be a mapping"),
+])
+def test_malformed_dict_is_a_located_error_at_dict(mapping, part):
+    with pytest.raises(RecipeError) as err:
+        from_dict(mapping)
+    msg = str(err.value)
+    assert ERROR_RE.match(msg) and msg.startswith("<dict>:") and part in msg, msg
+
+
+def test_a_dict_that_contains_itself_is_an_error_not_a_hang():
+    looped: dict = {"format": 1}
+    looped["chain"] = [looped]
+    with pytest.raises(RecipeError, match=r"^<dict>:1:1: error: lists and mappings are nested more than"):
+        from_dict(looped)
+
+
+def test_includes_in_text_and_dict_resolve_from_the_working_folder(write_recipe, tmp_path, monkeypatch):
+    write_recipe("format: 1\nchain:\n  - {type: highpass, freq: 40}\nguard: {ceiling_dbfs: -1}\n", "lib/house.yaml")
+    monkeypatch.chdir(tmp_path)
+    text = "format: 1\ninclude: lib/house.yaml\nchain:\n  - {type: gain, gain_db: -2}\n"
+    for recipe in (loads(text), from_dict({"format": 1, "include": "lib/house.yaml",
+                                           "chain": [{"type": "gain", "gain_db": -2}]})):
+        assert [s.kind for s in recipe.sections] == ["highpass", "gain"]
+        assert recipe.includes == (os.path.join("lib", "house.yaml"),)
+        assert recipe.guard.ceiling_dbfs == -1.0
+    with pytest.raises(RecipeError, match=r"^<text>:2:10: error: included recipe 'nowhere.yaml' does not exist"):
+        loads("format: 1\ninclude: nowhere.yaml\n")

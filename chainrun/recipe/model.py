@@ -1,0 +1,141 @@
+"""The loaded recipe: :class:`Section`, :class:`Guard`, :class:`Output` and :class:`Recipe`.
+
+Plain frozen data, sample-rate-free and validated by :mod:`chainrun.recipe.loader`. Every
+value keeps the file, line and column it came from, so that any later stage (design at a
+sample rate, the guard, the runner) can point at the exact place in the file that caused a
+problem.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass, field
+from typing import Any, Mapping
+
+from ..errors import Location
+from .yaml import _fmt
+
+__all__ = ["Section", "Guard", "Output", "Recipe"]
+
+_GUARD_KEYS = ("max_gain_db", "pole_margin", "max_decay_s", "ceiling_dbfs", "true_peak_ceiling_dbtp", "on_over")
+
+@dataclass(frozen=True)
+class Section:
+    """One filter section of a chain, validated but not yet designed.
+
+    ``params`` holds the section's numeric parameters with defaults filled in
+    (``order``; ``slope`` for second-order shelves); ``where`` the location of
+    the section itself and ``param_where`` the location of each given key.
+    ``index`` is the position in the file it was written in.
+    """
+
+    kind: str
+    params: Mapping[str, Any]
+    where: Location
+    param_where: Mapping[str, Location]
+    index: int
+    label: str = ""
+    origin: str = ""          # for a section of an included recipe: that file, as the include named it
+
+    def locate(self, key: str | None = None) -> Location:
+        """Location of ``key`` if it was written, else of the section."""
+        return self.param_where.get(key, self.where) if key else self.where
+
+    @property
+    def title(self) -> str:
+        """Short human name: ``chain[2] peak 3000 Hz (label)``, plus ``from FILE`` for an included section."""
+        base = f"chain[{self.index}] {self.kind}"
+        if "freq" in self.params:
+            base += f" {_fmt(self.params['freq'])} Hz"
+        base = f"{base} ({self.label})" if self.label else base
+        return f"{base} from {self.origin}" if self.origin else base
+
+    def to_dict(self) -> dict:
+        out: dict[str, Any] = {"type": self.kind}
+        out.update({k: (list(v) if isinstance(v, tuple) else v) for k, v in self.params.items()})
+        if self.label:
+            out["label"] = self.label
+        out["from"] = str(self.where)
+        return out
+
+
+@dataclass(frozen=True)
+class Guard:
+    """Safety limits, see README.md "What the guard promises" (keys: README.md "Recipes").
+
+    ``where`` holds the location of each value some file of the include chain wrote (the
+    strictest one); a key missing from it has its default.
+    """
+
+    max_gain_db: float = 24.0
+    pole_margin: float = 1e-6
+    max_decay_s: float = 5.0
+    ceiling_dbfs: float = 0.0
+    true_peak_ceiling_dbtp: float | None = None
+    on_over: str = "reject"
+    where: Mapping[str, Location] = field(default_factory=dict, compare=False)
+
+    def to_dict(self) -> dict:
+        return {k: getattr(self, k) for k in _GUARD_KEYS}
+
+    def sources(self) -> dict:
+        """Where each value came from: key -> ``path:line:col``, or ``default``."""
+        return {k: str(self.where[k]) if k in self.where else "default" for k in _GUARD_KEYS}
+
+
+@dataclass(frozen=True)
+class Output:
+    """Output format: ``subtype`` (same or a libsndfile subtype) and ``dither``."""
+
+    subtype: str = "same"
+    dither: str = "auto"
+    where: Mapping[str, Location] = field(default_factory=dict, compare=False)
+
+    def to_dict(self) -> dict:
+        return {"subtype": self.subtype, "dither": self.dither}
+
+
+@dataclass(frozen=True)
+class Recipe:
+    """A loaded recipe: the resolved chain (includes first), guard and output.
+
+    ``warnings`` are located one-line warnings (``path:line:col: warning: ...``) found
+    while loading, e.g. a file that writes a looser guard limit than a file it includes.
+    """
+
+    path: str
+    name: str
+    sections: tuple[Section, ...]
+    guard: Guard
+    output: Output
+    includes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        """The recipe as resolved, as plain JSON-safe data (``guard_from``: where each guard value was set)."""
+        return {
+            "format": 1,
+            "name": self.name,
+            "path": self.path,
+            "includes": list(self.includes),
+            "chain": [s.to_dict() for s in self.sections],
+            "guard": self.guard.to_dict(),
+            "guard_from": self.guard.sources(),
+            "output": self.output.to_dict(),
+            "warnings": list(self.warnings),
+        }
+
+    @property
+    def digest(self) -> str:
+        """SHA-256 of the resolved recipe (chain, guard values, output), location-free.
+
+        Two recipes that filter audio identically share a digest even if they are
+        laid out differently or include each other from other folders.
+        """
+        d = self.to_dict()
+        for s in d["chain"]:
+            s.pop("from", None)
+            s.pop("label", None)
+        payload = {"chain": d["chain"], "guard": d["guard"], "output": d["output"]}
+        return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
+
