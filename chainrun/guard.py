@@ -26,6 +26,7 @@ References
 """
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -33,6 +34,7 @@ import numpy as np
 
 from .design import Chain
 from .recipe import Guard, Location, Recipe
+from .section_types import raw_sections
 
 __all__ = ["Problem", "Assessment", "assess", "response_db", "check_raw_sections"]
 
@@ -128,18 +130,26 @@ def pole_radii(sos: np.ndarray) -> np.ndarray:
     return np.array([float(np.max(np.abs(p))) if p.size else 0.0 for p in map(_row_poles, sos)])
 
 
+@functools.lru_cache(maxsize=256)
+def _largest_root(a: tuple[float, ...]) -> float:
+    """Largest root radius of a raw section's denominator (computed once per distinct denominator:
+    a batch checks a recipe before any audio and again at each rate it assesses)."""
+    return float(np.max(np.abs(np.roots(np.asarray(a) / a[0]))))
+
+
 def check_raw_sections(recipe: Recipe) -> list[Problem]:
-    """Stability of each raw ``iir`` section from the roots of its own denominator."""
+    """Stability of each raw section (a catalogue row with ``raw=True``) from the roots of its own
+    denominator."""
     limit = 1.0 - recipe.guard.pole_margin
     problems = []
-    for s in recipe.sections:
-        if s.kind != "iir" or len(s.params["a"]) < 2:
+    for s in raw_sections(recipe):
+        if len(s.params["a"]) < 2:
             continue
-        radius = float(np.max(np.abs(np.roots(np.asarray(s.params["a"]) / s.params["a"][0]))))
+        radius = _largest_root(tuple(float(v) for v in s.params["a"]))
         if radius > limit:
             problems.append(Problem(
                 "error",
-                f"chain[{s.index}] iir is unstable: its denominator has a root at radius {radius:.6g} "
+                f"chain[{s.index}] {s.kind} is unstable: its denominator has a root at radius {radius:.6g} "
                 f"(feedback that never dies away); allowed: every root inside radius {limit:.9g} "
                 "(1 - guard.pole_margin)",
                 s.locate("a")))
