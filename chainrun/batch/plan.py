@@ -42,7 +42,7 @@ def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
 
     The section that cannot be designed on its own is named; if each can, the recipe itself.
     """
-    from .design import design_section
+    from ..design import design_section
 
     why = fault(exc)
     for section in recipe.sections:
