@@ -1,11 +1,19 @@
 """chainrun: guarded IIR equaliser chains for folders of audio files.
 
-The public Python API is small:
+The public Python API is small, and gives the same results as the command line:
 
 - :func:`load` a recipe file into a :class:`Recipe`;
 - :func:`design` it at a sample rate into a :class:`Chain`;
 - :func:`assess` the chain with the recipe's guard into an :class:`Assessment`;
-- :func:`run_batch` to filter files and folders into an output folder.
+- :func:`check` recipe files at several rates (what ``chainrun check`` prints);
+- :func:`run` a recipe over files and folders into an output folder, with its reports
+  (``chainrun run``; returns a ``RunOutcome`` holding the :class:`BatchResult`);
+- :func:`scan` existing files into :class:`FileResult` s (``chainrun scan``);
+- :func:`write_reports` of a :class:`BatchResult` again, elsewhere.
+
+``run_batch`` (the batch without reports or pictures) stays importable from here for callers of
+chainrun 0.1; new code calls :func:`run`. The response picture of ``chainrun plot`` is
+``chainrun.app.plot`` (not re-exported: ``chainrun.plot`` is the module that draws it).
 
 Importing the package loads numpy, soundfile and PyYAML only. scipy (about 0.6 s and
 76 MB) is imported by the functions that design, check, meter or filter, on first use,
@@ -16,6 +24,11 @@ __version__ = "0.1.0"
 from .design import Chain, design
 from .guard import Assessment, assess
 from .recipe import Recipe, RecipeError, load
-from .batch import run_batch
+from .results import FileResult
+from .batch.run import BatchResult, run_batch
+from .app import check, run, scan
+from .report import write_reports
 
-__all__ = ["__version__", "load", "design", "assess", "run_batch", "Recipe", "RecipeError", "Chain", "Assessment"]
+__all__ = ["__version__", "load", "design", "assess", "check", "run", "scan", "write_reports", "Recipe",
+           "RecipeError", "Chain", "Assessment", "FileResult", "BatchResult",
+           "run_batch"]     # run_batch: kept for callers of 0.1, see above

@@ -21,7 +21,10 @@ import soundfile as sf
 from scipy import signal
 
 import chainrun
-from chainrun import batch, design, load
+from chainrun import design, load
+from chainrun.batch import executors, plan
+from chainrun.batch.discover import Job
+from chainrun.batch import run as batch_run
 from chainrun.render import TEMP_TAG
 
 HEX64 = set("0123456789abcdef")
@@ -376,14 +379,14 @@ def test_workers_are_cores(tmp_path, write_audio, write_recipe, run_cli, monkeyp
     # file in one thread; with more, several files go to worker processes, each rendering in one
     # thread, and a file rendered alone gets the pipeline threads.
     log = tmp_path / "threads.log"
-    real = batch.render_file
+    real = executors.render_file
 
     def spy(src, dst, sos, bound, policy, **kw):
         with open(log, "a") as fh:          # a file: worker processes are forked, lists would stay there
             fh.write(f"{policy.threads}\n")
         return real(src, dst, sos, bound, policy, **kw)
 
-    monkeypatch.setattr(batch, "render_file", spy)
+    monkeypatch.setattr(executors, "render_file", spy)
     for i in range(files):
         write_audio(f"in/take{i}.wav", np.full((2000, 2), 0.1), 48000, "PCM_24")
     status, _, err = run_cli("run", write_recipe(GENTLE), tmp_path / "in", "-o", tmp_path / "out",
@@ -464,13 +467,13 @@ def test_a_file_rejected_at_its_rate_says_an_earlier_output_is_not_this_run_s(tm
 
 
 def test_runtime_guard_in_a_batch(tmp_path, season, write_recipe, run_cli, monkeypatch):
-    real_assess = batch.assess
+    real_assess = plan.assess
 
     def optimistic(chain, guard, recipe=None):
         a = real_assess(chain, guard, recipe)
         return dataclasses.replace(a, peak_gain=a.peak_gain * 0.05)     # a bound far too small
 
-    monkeypatch.setattr(batch, "assess", optimistic)             # in-process: --workers 1
+    monkeypatch.setattr(plan, "assess", optimistic)             # in-process: --workers 1
     out = tmp_path / "out"
     status, _, err = run_cli("run", write_recipe(GENTLE), season / "boathouse", "-o", out, "--workers", "1")
     assert status == 1
@@ -525,10 +528,10 @@ def test_the_note_about_an_earlier_output_is_said_once(tmp_path):
     out.mkdir()
     (out / "a.wav").write_bytes(b"an earlier run's output")
     (tmp_path / "a.wav").write_bytes(b"input")
-    job = batch.Job(str(tmp_path / "a.wav"), "a.wav", str(out / "a.wav"))
+    job = Job(str(tmp_path / "a.wav"), "a.wav", str(out / "a.wav"))
     r = chainrun.render.FileResult(job.input, job.relpath, "rejected", "over the ceiling")
-    batch._note_earlier_output(job, r)
-    batch._note_earlier_output(job, r)
+    batch_run._note_earlier_output(job, r)
+    batch_run._note_earlier_output(job, r)
     assert r.message == ("over the ceiling; the file under its output name is an earlier run's, left as it was, "
                          "not this run's result")
 

@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun.journal import JOURNAL_NAME, LOCK_NAME, OutdirLock
+from chainrun.batch.outdir import JOURNAL_NAME, LOCK_NAME, OutdirLock
 
 RECIPE = """\
 format: 1

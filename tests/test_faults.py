@@ -25,8 +25,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun import journal as journal_mod
-from chainrun.journal import JOURNAL_NAME, LOCK_NAME, LockedError, OutdirLock
+from chainrun.batch import outdir as journal_mod
+from chainrun.batch.outdir import JOURNAL_NAME, LOCK_NAME, LockedError, OutdirLock
 from chainrun.render import TEMP_TAG
 
 RECIPE = """\
@@ -487,9 +487,9 @@ def test_a_worker_killed_mid_file_costs_nothing_its_files_are_rendered_again(tmp
 def test_a_file_that_kills_every_worker_fails_alone(tmp_path, season, run_cli, monkeypatch):
     # A file that kills whichever worker renders it (here by _exit; in life, say, a decoder crash) breaks
     # the pool twice: after the second time only that file fails, the rest are delivered
-    from chainrun import batch
+    from chainrun.batch import executors
 
-    real = batch._render_job
+    real = executors._render_job
 
     def deadly(job, *args):
         if job.relpath == os.path.join("boathouse", "host.wav"):
@@ -498,7 +498,7 @@ def test_a_file_that_kills_every_worker_fails_alone(tmp_path, season, run_cli, m
 
     ref = tmp_path / "ref"
     assert run_cli("run", tmp_path / "recipe.yaml", season, "-o", ref, "--workers", "1")[0] == 0
-    monkeypatch.setattr(batch, "_render_job", deadly)      # the forked workers inherit it
+    monkeypatch.setattr(executors, "_render_job", deadly)      # the forked workers inherit it
     out = tmp_path / "out"
     status, _, err = run_cli("run", tmp_path / "recipe.yaml", season, "-o", out, "--workers", "2")
     assert status == 1, err
@@ -514,7 +514,7 @@ def test_a_file_that_kills_every_worker_fails_alone(tmp_path, season, run_cli, m
 def test_leftover_clean_up_does_not_enter_another_run_s_outdir(tmp_path):
     # A run into out/ must not remove the temporary file of a run rendering into out/sub/ right now (seen:
     # that run's delivery failed). A subfolder with a lock of its own is another OUTDIR; its run cleans it.
-    from chainrun.journal import LOCK_NAME, clean_leftovers
+    from chainrun.batch.outdir import LOCK_NAME, clean_leftovers
     from chainrun.render import TEMP_TAG
 
     (tmp_path / "out" / "sub").mkdir(parents=True)

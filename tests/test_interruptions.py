@@ -33,7 +33,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun.journal import LOCK_NAME
+from chainrun.batch.outdir import LOCK_NAME
 from chainrun.render import TEMP_TAG
 
 pytestmark = pytest.mark.slow
@@ -281,6 +281,7 @@ def test_a_ctrl_c_that_python_wrapped_is_still_an_interruption(monkeypatch, caps
     # as RuntimeError("Error calling __set_name__ ...") caused by the KeyboardInterrupt; seen once in the
     # kill points above. It must end like any Ctrl-C: one line, exit 1, not "internal error".
     from chainrun import cli
+    from chainrun.cli import check as cli_check
 
     def wrapped(args):
         try:
@@ -288,7 +289,7 @@ def test_a_ctrl_c_that_python_wrapped_is_still_an_interruption(monkeypatch, caps
         except KeyboardInterrupt as ki:
             raise RuntimeError("Error calling __set_name__ on 'x' instance 'format' in 'Formatter'") from ki
 
-    monkeypatch.setattr(cli, "cmd_check", wrapped)
+    monkeypatch.setattr(cli_check, "main", wrapped)
     status = cli.main(["check", "recipes"])
     err = capsys.readouterr().err
     assert status == 1
@@ -417,15 +418,18 @@ def test_a_ctrl_c_inside_a_finaliser_still_stops_the_file(workers, tmp_path, wri
 
 def test_a_worker_s_ctrl_c_handler_never_raises(tmp_path, write_audio):
     # in a pool worker, the handler runs wherever the worker happens to be; it only asks the file to stop
-    from chainrun import batch, interrupt, render
+    from chainrun import interrupt, render
+    from chainrun.batch import executors
+    from chainrun.batch.discover import Job
+    from chainrun.results import INTERRUPTED
 
     src = render.probe(str(write_audio("in/a.wav", np.zeros((1000, 1)), 48000, "PCM_16")))
-    job = batch.Job(src.path, "a.wav", str(tmp_path / "out.wav"))
+    job = Job(src.path, "a.wav", str(tmp_path / "out.wav"))
     try:
         interrupt.on_sigint(signal.SIGINT, None)           # would raise in the middle of anything if it could
         assert interrupt.rendering_stopped()
-        r = batch._render_in_worker(job, src, np.array([[1.0, 0, 0, 1, 0, 0]]), 1.0, render.Policy())
-        assert r.status == "failed" and r.message == batch.INTERRUPTED and not os.path.exists(job.output)
+        r = executors._render_in_worker(job, src, np.array([[1.0, 0, 0, 1, 0, 0]]), 1.0, render.Policy())
+        assert r.status == "failed" and r.message == INTERRUPTED and not os.path.exists(job.output)
     finally:
         interrupt.allow_rendering()
 

@@ -20,7 +20,9 @@ import pytest
 import soundfile as sf
 from scipy import signal
 
-from chainrun import batch, design, load
+from chainrun import app, design, load
+from chainrun.batch import executors, plan
+from chainrun.batch import run as batch_run
 from chainrun.recipe import MAX_INCLUDE_DEPTH, MAX_SECTIONS, RecipeError
 from chainrun.render import MAX_BLOCK, TEMP_TAG
 
@@ -347,13 +349,13 @@ def test_many_channels_read_in_fewer_frames_per_block(tmp_path, run_cli, monkeyp
     # per buffer, several buffers per file and per worker. The batch shortens the block so a block holds at
     # most MAX_BLOCK samples; the block size never changes the output (checked against block size 7).
     seen = []
-    real = batch.render_file
+    real = executors.render_file
 
     def spy(src, dst, sos, bound, policy, **kw):
         seen.append((src.channels, policy.block_size))
         return real(src, dst, sos, bound, policy, **kw)
 
-    monkeypatch.setattr(batch, "render_file", spy)
+    monkeypatch.setattr(executors, "render_file", spy)
     recipe = tmp_path / "r.yaml"
     recipe.write_text(RECIPE)
     src = tmp_path / "in" / "array.wav"
@@ -372,37 +374,35 @@ def test_many_channels_read_in_fewer_frames_per_block(tmp_path, run_cli, monkeyp
 
 
 def test_default_workers_never_exceed_the_limit(tmp_path, run_cli, monkeypatch):
-    import chainrun.cli as cli
-
-    monkeypatch.setattr(cli, "_cores", lambda: 512)          # a large machine
+    monkeypatch.setattr(app, "cores", lambda: 512)          # a large machine
     calls = []
-    real = batch.execute
+    real = app.execute
 
     def spy(prep, workers=1, *a, **k):
         calls.append(workers)
         return real(prep, 1, *a, **k)
 
-    monkeypatch.setattr(batch, "execute", spy)
+    monkeypatch.setattr(app, "execute", spy)
     recipe = tmp_path / "r.yaml"
     recipe.write_text(RECIPE)
     src = tmp_path / "in.wav"
     sf.write(str(src), noise(1000), 48000, subtype="PCM_16")
     status, _, err = run_cli("run", recipe, src, "-o", tmp_path / "out")
     assert status == 0, err                                  # before: "internal error: BatchError: --workers 512"
-    assert calls == [batch.MAX_WORKERS]
+    assert calls == [batch_run.MAX_WORKERS]
 
 
 def test_a_fault_designing_at_one_rate_is_a_located_line_not_an_internal_error(tmp_path, run_cli, monkeypatch):
     # design and guard are pure numerics; should one raise something other than RecipeError at some rate,
     # the batch names the section and the rate instead of failing with "internal error"
-    real = batch.design
+    real = plan.design
 
     def fragile(recipe, rate):
         if rate == 44100:
             raise OverflowError("math range error")
         return real(recipe, rate)
 
-    monkeypatch.setattr(batch, "design", fragile)
+    monkeypatch.setattr(plan, "design", fragile)
     import sys
 
     design_mod = sys.modules["chainrun.design"]      # (the package's name 'design' is the function)

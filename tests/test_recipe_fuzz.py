@@ -34,7 +34,7 @@ import yaml
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from chainrun.batch import design_rates
+from chainrun.batch.plan import design_rates
 from chainrun.recipe import Recipe, RecipeError, load
 
 REPO = Path(__file__).resolve().parents[1]

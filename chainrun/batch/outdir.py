@@ -9,6 +9,8 @@
   and fsynced after each file is delivered: its job key (recipe digest and the
   policy that shapes the output), the input's fingerprint and the output's. A
   later run skips a file whose entry still matches on all three.
+* :func:`claim_outdir` — all of the above at the start of a run: create OUTDIR, take its lock,
+  refuse foreign files at chainrun's names, clean leftovers.
 """
 from __future__ import annotations
 
@@ -22,10 +24,11 @@ import stat
 import time
 from dataclasses import dataclass
 
-from .fsutil import TEMP_TAG
+from ..errors import BatchError
+from ..fsutil import TEMP_TAG
 
 __all__ = ["LockedError", "ForeignFileError", "OutdirLock", "check_journal", "clean_leftovers", "fingerprint",
-           "Journal", "LOCK_NAME", "JOURNAL_NAME"]
+           "Journal", "LOCK_NAME", "JOURNAL_NAME", "claim_outdir"]
 
 LOCK_NAME = ".chainrun.lock"
 JOURNAL_NAME = ".chainrun-journal.jsonl"
@@ -338,3 +341,38 @@ class Journal:
         finally:
             os.close(fd)
         self.entries[relpath] = Entry(relpath, key, entry["input"], entry["output"], result)
+
+
+def claim_outdir(outdir: str) -> tuple[OutdirLock, list[str]]:
+    """Create OUTDIR, take its lock and clean what an interrupted run left; returns the lock and notes.
+
+    Raises
+    ------
+    BatchError
+        If another live run holds the folder, it cannot be created, or the lock's or the journal's name
+        holds something chainrun did not make (a hard link, a FIFO, a device, another user's file).
+    """
+    try:
+        os.makedirs(outdir, exist_ok=True)
+        lock = OutdirLock(outdir).acquire()
+    except (LockedError, ForeignFileError) as exc:
+        raise BatchError(str(exc)) from None
+    except OSError as exc:
+        raise BatchError(f"{outdir}: error: cannot use the output folder: "
+                         f"{(exc.strerror or str(exc)).lower()}") from None
+    try:
+        check_journal(outdir)
+        notes = []
+        if lock.took_over:
+            notes.append(f"took over the lock left by pid {lock.took_over.get('pid')} on host "
+                         f"{lock.took_over.get('host')} (that run is gone)")
+        removed = clean_leftovers(outdir)
+        if removed:
+            notes.append(f"removed {len(removed)} unfinished temporary file(s) left by an interrupted run")
+    except ForeignFileError as exc:     # refused before any audio is read
+        lock.release()
+        raise BatchError(str(exc)) from None
+    except BaseException:        # Ctrl-C here: the caller never gets the lock, so release it now
+        lock.release()
+        raise
+    return lock, notes

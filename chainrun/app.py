@@ -1,0 +1,276 @@
+"""The use cases — check, run, scan, plot — as the command line and the Python API both call them.
+
+Nothing here prints: each function returns plain results, and raises
+
+* :class:`~chainrun.errors.RecipeError` for a recipe that cannot be read (located, one line);
+* :class:`~chainrun.errors.BatchError` for a usage problem found before any audio is touched
+  (the command line's exit status 2).
+
+A Python caller of :func:`run` gets the same run as ``chainrun run``: the same preparation, the same
+OUTDIR lock, journal and resume, the same executors, the same reports.
+"""
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Callable
+
+from .batch.discover import discover
+from .batch.plan import design_and_assess, probe_job
+from .batch.run import MAX_WORKERS, BatchResult, claimed, execute
+from .errors import BatchError
+from .recipe import Recipe, RecipeError, load
+from .render import Policy, scan_file
+from .results import FileResult
+
+__all__ = ["DEFAULT_RATES", "RECIPE_SUFFIXES", "PLOT_SUFFIXES", "find_recipes", "check_recipe", "check", "cores",
+           "RunOutcome", "run", "scan", "plot"]
+
+DEFAULT_RATES = (44100, 48000, 96000)
+RECIPE_SUFFIXES = (".yaml", ".yml")
+PLOT_SUFFIXES = (".png", ".svg")
+_ASSESSMENT_KEYS = ("rate", "accepted", "rows", "max_pole_radius", "decay_60db_s", "decay_exact", "max_gain_db",
+                    "max_gain_hz", "min_gain_db", "min_gain_hz", "worst_case_peak_gain", "worst_case_peak_gain_db",
+                    "worst_case_exact", "problems", "error")
+
+
+# --------------------------------------------------------------------------- check
+
+def find_recipes(paths: list[str]) -> list[str]:
+    """The recipe files named, and those (``*.yaml``, ``*.yml``) in the folders named, in order.
+
+    Raises
+    ------
+    BatchError
+        If a path does not exist, or no recipe is found.
+    """
+    found = []
+    for p in paths:
+        if os.path.isdir(p):
+            for root, dirs, files in os.walk(p):
+                dirs[:] = sorted(d for d in dirs if not d.startswith("."))
+                found.extend(os.path.join(root, f) for f in sorted(files)
+                             if f.endswith(RECIPE_SUFFIXES) and not f.startswith("."))
+        elif os.path.exists(p):
+            found.append(p)
+        else:
+            raise BatchError(f"{p}: error: no such file or folder; give recipe files or folders of them")
+    if not found:
+        raise BatchError(f"{', '.join(paths)}: error: no recipes (*.yaml, *.yml) found")
+    return found
+
+
+def check_recipe(path: str, rates: tuple[int, ...]) -> dict:
+    """Load, design and assess one recipe at each rate; a JSON-safe summary."""
+    entry: dict = {"path": path, "accepted": False, "errors": [], "warnings": [], "rates": []}
+    try:
+        recipe = load(path)
+    except RecipeError as exc:
+        entry["errors"].append(str(exc))
+        return entry
+    entry.update(name=recipe.name, digest=recipe.digest, sections=len(recipe.sections))
+    entry["warnings"].extend(recipe.warnings)          # e.g. a file loosening a limit it includes
+    accepted = True
+    for rate in rates:
+        try:
+            _, a = design_and_assess(recipe, rate)
+        except RecipeError as exc:
+            entry["errors"].append(str(exc))
+            entry["rates"].append(dict.fromkeys(_ASSESSMENT_KEYS) | {"rate": rate, "accepted": False,
+                                                                     "error": str(exc)})
+            accepted = False
+            continue
+        entry["rates"].append(a.to_dict() | {"error": next((str(p) for p in a.problems
+                                                            if p.severity == "error"), None)})
+        for p in a.problems:
+            (entry["errors"] if p.severity == "error" else entry["warnings"]).append(str(p))
+        accepted &= a.accepted
+    entry["errors"] = list(dict.fromkeys(entry["errors"]))       # same problem at several rates: once
+    entry["warnings"] = list(dict.fromkeys(entry["warnings"]))
+    entry["accepted"] = accepted
+    return entry
+
+
+def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES) -> list[dict]:
+    """Check every recipe named or found in the folders named (see :func:`check_recipe`); writes nothing.
+
+    Raises
+    ------
+    BatchError
+        If a path does not exist, or no recipe is found.
+    """
+    return [check_recipe(p, rates) for p in find_recipes(paths)]
+
+
+# --------------------------------------------------------------------------- run
+
+def cores() -> int:
+    """The cores this process may run on."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not Linux
+        return max(1, os.cpu_count() or 1)
+
+
+@dataclass
+class RunOutcome:
+    """What :func:`run` did: the batch, the reports written (``{"json"|"csv"|"html": path}``) and one line
+    for each report that could not be written where it belongs."""
+
+    result: BatchResult
+    report_paths: dict[str, str] = field(default_factory=dict)
+    report_errors: list[str] = field(default_factory=list)
+
+
+def _check_report_folder(report: str) -> None:
+    folder = os.path.dirname(os.path.abspath(report))
+    probe_dir = folder
+    while not os.path.exists(probe_dir):
+        probe_dir = os.path.dirname(probe_dir)
+    if not os.path.isdir(probe_dir) or not os.access(probe_dir, os.W_OK):
+        raise BatchError(f"{report}: error: the report cannot be written there ({probe_dir} is not a writable "
+                         "folder); no audio was touched")
+
+
+def _pictures_aside(recipe: Recipe, designs: dict) -> dict:
+    """Start drawing the report's response pictures in a forked child (matplotlib, away from the audio)."""
+    from .report.pictures import draw_pictures_aside
+
+    return draw_pictures_aside(recipe, designs)
+
+
+def _write_reports(result: BatchResult, report: str | None, command: list[str] | None,
+                   outdir: str) -> tuple[dict[str, str], list[str]]:
+    from .report import ReportError, write_reports
+
+    errors: list[str] = []
+    try:
+        paths = write_reports(result, report, command=command)
+    except ReportError as exc:
+        paths = exc.written
+        errors = exc.problems
+    except OSError as exc:
+        paths = {}
+        errors = [f"{exc.filename or report or outdir}: error: cannot write the report: "
+                  f"{(exc.strerror or str(exc)).lower()}"]
+    if errors:
+        errors[-1] += "; the files listed above as ok were delivered"
+    return paths, errors
+
+
+def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | None = None,
+        block_size: int | None = None, on_over: str | None = None, report: str | None = None,
+        true_peak: bool = True, redo: bool = False, progress=None, command: list[str] | None = None) -> RunOutcome:
+    """Filter ``inputs`` (files and folders) into ``outdir`` with ``recipe``, and write the reports.
+
+    Parameters
+    ----------
+    recipe
+        A loaded :class:`~chainrun.recipe.Recipe`, or the path of a recipe file.
+    workers
+        Cores to keep busy (default: all this process may use, at most 64).
+    block_size, on_over, true_peak
+        As ``chainrun run``'s ``--block-size``, ``--on-over`` and ``--no-true-peak``.
+    report
+        The JSON report's path (default ``OUTDIR/chainrun-report.json``); CSV and HTML go beside it.
+    redo
+        Render every file again, even those an earlier run delivered unchanged.
+    progress
+        Called with each finished :class:`~chainrun.results.FileResult`. If it also has
+        ``start(total_files)`` and ``close()``, they are called before the first file and after the last.
+    command
+        The command line recorded in the report.
+
+    Raises
+    ------
+    RecipeError
+        If ``recipe`` is a path and the recipe cannot be loaded.
+    BatchError
+        For a usage problem, before any audio is touched (the output folder held by another run, a
+        recipe rejected at every rate in the batch, an input inside OUTDIR...).
+    """
+    if isinstance(recipe, (str, os.PathLike)):
+        recipe = load(os.fspath(recipe))
+    if workers is None:
+        workers = min(cores(), MAX_WORKERS)
+    if not 1 <= workers <= MAX_WORKERS:
+        raise BatchError(f"--workers {workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
+    if report:
+        _check_report_folder(report)
+    policy = Policy.from_recipe(recipe, on_over=on_over, block_size=block_size, true_peak=true_peak)
+    with claimed(recipe, inputs, outdir, policy) as (prep, notes):
+        pictures: dict = {}
+        if progress is not None and hasattr(progress, "start"):
+            progress.start(len(prep.work))
+        try:
+            # The report's pictures (matplotlib) are drawn by a forked child process, so that neither
+            # matplotlib's memory nor its use of the GIL is ever the renderer's. With one worker (one
+            # core) the child runs after the audio; with more, while the audio renders: it is started
+            # before the pipeline threads or the worker processes exist.
+            if workers > 1:
+                pictures.update(_pictures_aside(recipe, prep.designs))
+            result = execute(prep, workers=workers, progress=progress, resume=not redo)
+        finally:
+            if progress is not None and hasattr(progress, "close"):
+                progress.close()
+        if workers == 1:
+            pictures.update(_pictures_aside(recipe, prep.designs))
+        result.notes[:0] = notes
+        result.pictures = pictures
+        paths, errors = _write_reports(result, report, command, outdir)
+    return RunOutcome(result, paths, errors)
+
+
+# --------------------------------------------------------------------------- scan
+
+def scan(inputs: list[str], true_peak: bool = True) -> list[FileResult]:
+    """Meter existing files (found as a batch finds them); writes nothing.
+
+    Raises
+    ------
+    BatchError
+        If an input does not exist.
+    """
+    plan = discover(inputs, None)
+    results = []
+    for job in plan.jobs:
+        src = probe_job(job)
+        if isinstance(src, FileResult):
+            results.append(src)
+            continue
+        results.append(scan_file(src, true_peak=true_peak, relpath=job.relpath))
+    results.extend(plan.skipped)
+    return results
+
+
+# --------------------------------------------------------------------------- plot
+
+def plot(recipe: Recipe | str, rate: int, output: str, *, warn: Callable[[str], None] | None = None):
+    """Draw the chain's response at ``rate`` to ``output`` (.png or .svg); returns the guard's Assessment.
+
+    ``warn`` is called with each of the assessment's problems before the picture is drawn.
+
+    Raises
+    ------
+    BatchError
+        If ``output`` is not a .png or .svg name, or cannot be written.
+    RecipeError
+        If the recipe cannot be loaded, or designed at ``rate``.
+    """
+    if os.path.splitext(output)[1].lower() not in PLOT_SUFFIXES:
+        raise BatchError(f"{output}: error: the picture must be a .png or .svg file")
+    if isinstance(recipe, (str, os.PathLike)):
+        recipe = load(os.fspath(recipe))
+    chain, assessment = design_and_assess(recipe, rate)
+    from .report.plot import save_response
+
+    for p in assessment.problems:
+        if warn is not None:
+            warn(str(p))
+    try:
+        save_response(recipe, chain, assessment, output)
+    except OSError as exc:
+        raise BatchError(f"{output}: error: cannot write the picture: {(exc.strerror or str(exc)).lower()}") \
+            from None
+    return assessment
+

@@ -1,0 +1,257 @@
+"""Executors: who renders a batch's files, and where. The run loop never knows which one it has.
+
+The protocol (:class:`Executor`) is small on purpose:
+
+* ``threads`` — how many pipeline threads one file may use (``Policy.threads``); :func:`~.run.execute`
+  sets it on the policy of every task before the executor sees them.
+* ``run(tasks, finished) -> interrupted`` — render every :class:`Task` (longest first, as given) and
+  call ``finished(job, result)`` with each file's :class:`~chainrun.results.FileResult` as soon as it
+  is known, in the calling thread. Ctrl-C is the executor's to take: it stops at a safe point, calls
+  ``finished`` for every file that did finish, and returns True; it never raises KeyboardInterrupt.
+  A task it never finished is not reported: the caller marks it as not rendered (INTERRUPTED). A
+  fault in one file is that file's failed result, never the batch's end.
+* ``notes`` — one line each for what the batch report should say about the executor's run (a worker
+  that died, say), filled during ``run``.
+
+:class:`InlineExecutor` renders in this process, one file after the other, each with the pipeline
+threads; :class:`PoolExecutor` renders one file per forked worker process. A cluster executor (Dask,
+say) is one more class with the same three members: it ships each task to a node running
+:func:`render_task`, and passes Ctrl-C on to its workers as :class:`PoolExecutor` does.
+"""
+from __future__ import annotations
+
+import importlib
+import multiprocessing
+import os
+import signal
+import sys
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import replace
+from typing import Callable, NamedTuple, Protocol, Sequence
+
+from ..audio.source import Source
+from ..interrupt import allow_rendering, ctrl_c_stops_rendering, on_sigint, rendering_stopped, stop_point as _stop_point
+from ..render import MAX_BLOCK, MIN_BLOCK, Policy, render_file
+from ..results import FAILED, INTERRUPTED, FileResult
+from ..text import first_line, reason as _reason
+from .discover import Job
+
+__all__ = ["Task", "Finished", "Executor", "InlineExecutor", "PoolExecutor", "render_task"]
+
+# Workers are forked on Linux (instant start; the parent holds no threads of its own when the pool
+# starts, and the progress bar runs without its monitor thread); elsewhere they start fresh.
+_POOL_CONTEXT = multiprocessing.get_context("fork" if sys.platform.startswith("linux") else "spawn")
+
+
+class Task(NamedTuple):
+    """One file to render with its chain: the arguments of :func:`render_task`."""
+
+    job: Job
+    src: Source
+    sos: object              # the chain's second-order sections (numpy array, one row per biquad)
+    bound: float             # the guard's worst-case peak gain
+    policy: Policy
+
+
+Finished = Callable[[Job, FileResult], None]
+
+
+class Executor(Protocol):
+    """Renders a batch's tasks; see the module docstring for the contract."""
+
+    threads: int
+    notes: list[str]
+
+    def run(self, tasks: Sequence[Task], finished: Finished) -> bool:
+        """Render ``tasks``, calling ``finished(job, result)`` for each; True if Ctrl-C stopped it."""
+        ...
+
+
+def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
+    folder = os.path.dirname(job.output) or "."
+
+    def fail(why: str) -> FileResult:
+        return FileResult(job.input, job.relpath, FAILED, why, source=src)
+
+    try:
+        os.makedirs(folder, exist_ok=True)
+    except OSError as exc:
+        return fail(f"cannot create its output folder {folder}: {_reason(exc)}")
+    if os.path.isdir(job.output) and not os.path.islink(job.output):
+        return fail(f"a folder already has its output name ({job.output}); move that folder away")
+    if not os.access(folder, os.W_OK | os.X_OK, effective_ids=os.access in os.supports_effective_ids):
+        try:
+            read_only = bool(os.statvfs(folder).f_flag & os.ST_RDONLY)
+        except OSError:
+            read_only = False
+        return fail(f"cannot write into its output folder {folder}: "
+                    f"{'read-only file system' if read_only else 'permission denied'}; nothing was delivered")
+    # The largest block in samples (frames x channels) is MAX_BLOCK: a file with many channels is read in
+    # fewer frames per block, so memory stays bounded (the block size never changes the output).
+    if src.channels * policy.block_size > MAX_BLOCK:
+        policy = replace(policy, block_size=max(MIN_BLOCK, MAX_BLOCK // src.channels))
+    return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
+                       relpath=job.relpath)
+
+
+def render_task(task: Task) -> FileResult:
+    """Render one task in this process (a fault outside render_file's own handling fails this file only)."""
+    job, src = task.job, task.src
+    try:
+        return _render_job(*task)
+    except Exception as exc:
+        return FileResult(job.input, job.relpath, FAILED, f"unexpected fault: {type(exc).__name__}: "
+                          f"{first_line(exc)}; nothing was delivered", source=src)
+
+
+class InlineExecutor:
+    """Every file in this process, one after the other; Ctrl-C stops the file at its next block."""
+
+    def __init__(self, threads: int = 1):
+        self.threads = threads
+        self.notes: list[str] = []
+
+    def run(self, tasks: Sequence[Task], finished: Finished) -> bool:
+        try:
+            with ctrl_c_stops_rendering():
+                for task in tasks:
+                    _stop_point()
+                    finished(task.job, render_task(task))
+        except KeyboardInterrupt:
+            return True
+        return False
+
+
+def _worker_init(parent: int | None = None) -> None:
+    if sys.platform.startswith("linux"):
+        # A worker must not outlive its batch: if the parent is killed (SIGKILL, a crash), the kernel kills
+        # the worker too. Otherwise it would go on writing outputs that no journal records, and hold the
+        # output folder's lock (inherited with fork) for ever.
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)     # PR_SET_PDEATHSIG
+        except (OSError, AttributeError):
+            pass
+    if parent is not None and os.getppid() != parent:       # the parent died before prctl took effect
+        os._exit(1)
+    allow_rendering()
+    if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:   # a batch run in the background ignores it
+        signal.signal(signal.SIGINT, on_sigint)
+
+
+def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
+    interrupted = FileResult(job.input, job.relpath, FAILED, INTERRUPTED, source=src)
+    if rendering_stopped():
+        return interrupted
+    try:
+        return _render_job(job, src, sos, bound, policy)     # execute gave it one thread: one core
+    except KeyboardInterrupt:
+        return interrupted
+
+
+def _stop_workers(pool: ProcessPoolExecutor) -> None:
+    """Pass Ctrl-C on to every worker (each stops its file and skips the rest of its queue)."""
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        try:
+            os.kill(proc.pid, signal.SIGINT)
+        except (OSError, AttributeError, TypeError):
+            pass
+
+
+class PoolExecutor:
+    """One file per worker process, ``workers`` at a time, each file rendering in one thread.
+
+    At most one file waits in the pool beyond those rendering. A worker that dies (the out-of-memory
+    killer, say) breaks its pool, and every file the pool holds fails with it, so the pool holds few;
+    those files are tried once more, each alone, so that only the one that kills its worker fails.
+    The files not yet handed over go to a new pool.
+    """
+
+    threads = 1
+
+    def __init__(self, workers: int):
+        self.workers = workers
+        self.notes: list[str] = []
+
+    def run(self, tasks: Sequence[Task], finished: Finished) -> bool:
+        # The workers are forked: what the parent has imported they share. The guard has
+        # imported scipy.signal already; make sure, so that no worker pays its import again.
+        importlib.import_module("scipy.signal")
+        allow_rendering()           # the workers fork with the flag as it is here
+        interrupted = False
+        tried_again: set[str] = set()      # files a broken worker pool took down, rendered once more
+        size = min(self.workers, len(tasks))
+        waiting = list(tasks)
+        again: list[Task] = []
+        pool: ProcessPoolExecutor | None = None
+        broken = False
+        pending: dict = {}          # future -> (task, rendering alone)
+
+        def next_to_submit():
+            if again:
+                return None if pending else again
+            if waiting and len(pending) <= size and not any(alone for _, alone in pending.values()):
+                return waiting
+            return None
+
+        try:
+            while waiting or again or pending:
+                if pool is None:
+                    pool = ProcessPoolExecutor(max_workers=size, initializer=_worker_init,
+                                               initargs=(os.getpid(),), mp_context=_POOL_CONTEXT)
+                while not broken and (source := next_to_submit()) is not None:   # Ctrl-C here stops them too
+                    task = source[0]
+                    try:
+                        fut = pool.submit(_render_in_worker, *task)
+                    except (BrokenProcessPool, RuntimeError):   # broken while submitting (3.11 may say
+                        broken = True                           # "cannot schedule new futures")
+                        break
+                    pending[fut] = (task, source is again)
+                    source.pop(0)
+                if pending:
+                    done, _ = wait(pending, return_when=FIRST_COMPLETED)
+                    for fut in done:
+                        task, _ = pending[fut]
+                        job, src = task.job, task.src
+                        try:
+                            r = fut.result()
+                        except Exception as exc:  # a worker died: the file is failed, the batch goes on
+                            if isinstance(exc, BrokenProcessPool):
+                                broken = True
+                                if job.relpath not in tried_again:
+                                    tried_again.add(job.relpath)
+                                    again.append(task)
+                                    del pending[fut]
+                                    continue
+                            text = first_line(exc, type(exc).__name__)
+                            r = FileResult(job.input, job.relpath, FAILED, f"the worker rendering it stopped: "
+                                           f"{text}; nothing was delivered", source=src)
+                        finished(job, r)
+                        del pending[fut]            # after: a Ctrl-C in between leaves it to the finally
+                if broken and not pending:         # every file the broken pool held is accounted for
+                    pool.shutdown(wait=True)
+                    pool, broken = None, False
+        except KeyboardInterrupt:
+            interrupted = True
+            for fut in pending:
+                fut.cancel()
+            if pool is not None:
+                _stop_workers(pool)
+        finally:
+            while pool is not None:
+                try:
+                    pool.shutdown(wait=True, cancel_futures=True)
+                    break
+                except KeyboardInterrupt:      # Ctrl-C again: the workers are already stopping
+                    interrupted = True
+                    _stop_workers(pool)
+            for fut, (task, _) in pending.items():
+                if fut.done() and not fut.cancelled() and fut.exception() is None:
+                    finished(task.job, fut.result())
+        if tried_again:
+            self.notes.append(f"a worker process stopped while rendering (killed from outside, or out of memory?); "
+                              f"the {len(tried_again)} file(s) its pool held were rendered again, each on its own")
+        return interrupted

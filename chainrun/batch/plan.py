@@ -1,0 +1,157 @@
+"""Planning: probe every input, design and assess the recipe at each rate, before any audio is read.
+
+:func:`prepare` turns a recipe, the inputs and OUTDIR into a :class:`Prepared` batch: the files to
+render (each with a usable design at its rate) and the results already decided (skipped, unreadable,
+rejected at their rate).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ..audio.source import Source
+from ..design import Chain, design
+from ..errors import AudioError, BatchError
+from ..guard import Assessment, assess, check_raw_sections
+from ..recipe import Recipe, RecipeError
+from ..audio.reader import cut_short, probe
+from ..render import Policy
+from ..results import FAILED, REJECTED, FileResult
+from ..text import fault, reason as _reason
+from .discover import Job, discover
+
+__all__ = ["RateDesign", "Prepared", "prepare", "probe_job", "design_fault", "design_and_assess", "design_rates"]
+
+
+@dataclass(frozen=True)
+class RateDesign:
+    """The chain and its assessment at one rate, or why it cannot be used there."""
+
+    rate: int
+    chain: Chain | None
+    assessment: Assessment | None
+    error: str | None = None
+
+    @property
+    def usable(self) -> bool:
+        return self.error is None and self.assessment is not None and self.assessment.accepted
+
+
+def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
+    """A located, one-line RecipeError for a fault (not a RecipeError) raised designing or assessing at ``rate``.
+
+    The section that cannot be designed on its own is named; if each can, the recipe itself.
+    """
+    from ..design import design_section
+
+    why = fault(exc)
+    for section in recipe.sections:
+        try:
+            design_section(section, rate)
+        except RecipeError:
+            continue
+        except Exception:
+            return RecipeError.at(section.locate("freq"), f"{section.title} cannot be designed at {rate} Hz "
+                                                          f"({why}); change its parameters, and please report it")
+    return RecipeError(recipe.path, 1, 1, f"the chain cannot be designed or assessed at {rate} Hz ({why}); "
+                                          "please report it")
+
+
+def probe_job(job: Job) -> Source | FileResult:
+    """The header of one discovered input, or a failed result saying in one line why it cannot be read."""
+    try:
+        with open(job.input, "rb"):     # a plain open first: its error names the cause (permission denied)
+            pass
+    except OSError as exc:
+        return FileResult(job.input, job.relpath, FAILED, f"cannot read: {_reason(exc)}")
+    try:
+        src = probe(job.input)
+    except AudioError as exc:
+        return FileResult(job.input, job.relpath, FAILED, str(exc))
+    short = cut_short(src)
+    if short:
+        return FileResult(job.input, job.relpath, FAILED, short, source=src)
+    return src
+
+
+def design_and_assess(recipe: Recipe, rate: int) -> tuple[Chain, Assessment]:
+    """The recipe designed and assessed at ``rate`` (what ``check``, ``plot`` and a batch all need).
+
+    Raises
+    ------
+    RecipeError
+        For a recipe that cannot be used at ``rate``, and also, located by
+        :func:`design_fault`, for a fault (any other exception) in design or guard.
+    """
+    try:
+        chain = design(recipe, rate)
+        return chain, assess(chain, recipe.guard, recipe)
+    except RecipeError:
+        raise
+    except Exception as fault:      # a fault, not a recipe error: still one located line
+        raise design_fault(recipe, rate, fault) from None
+
+
+def design_rates(recipe: Recipe, rates: set[int]) -> dict[int, RateDesign]:
+    """Design and assess the recipe at every rate in the batch (pure, before any audio)."""
+    out = {}
+    for rate in sorted(rates):
+        try:
+            chain, a = design_and_assess(recipe, rate)
+        except RecipeError as exc:
+            out[rate] = RateDesign(rate, None, None, str(exc))
+            continue
+        err = next((str(p) for p in a.problems if p.severity == "error"), None)
+        out[rate] = RateDesign(rate, chain, a, err)
+    return out
+
+
+@dataclass
+class Prepared:
+    """A batch ready to render: what to do with each file, decided before any audio is read."""
+
+    recipe: Recipe
+    policy: Policy
+    outdir: str
+    designs: dict[int, RateDesign]
+    work: list[tuple[Job, Source]]
+    results: list[FileResult]       # already decided: skipped, unreadable, rejected at their rate
+    refused: list[tuple[Job, FileResult]] = field(default_factory=list)   # those rejected at their rate
+
+
+def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> Prepared:
+    """Check the recipe, discover and probe the inputs, design at every rate.
+
+    Raises
+    ------
+    BatchError
+        For usage problems, a recipe unstable at any rate (raw sections), or a
+        recipe that is rejected at every sample rate in the batch.
+    """
+    raw = check_raw_sections(recipe)
+    if raw:
+        raise BatchError(f"{raw[0]}; no audio was touched")
+    plan = discover(inputs, outdir)
+    results = list(plan.skipped)
+    probed: list[tuple[Job, Source]] = []
+    for job in plan.jobs:
+        src = probe_job(job)
+        if isinstance(src, FileResult):
+            results.append(src)
+            continue
+        probed.append((job, src))
+    designs = design_rates(recipe, {src.rate for _, src in probed})
+    work, refused = [], []
+    for job, src in probed:
+        d = designs[src.rate]
+        if d.usable:
+            work.append((job, src))
+        else:
+            r = FileResult(job.input, job.relpath, REJECTED, f"the recipe cannot be used at {src.rate} Hz: "
+                           f"{d.error}", source=src)
+            refused.append((job, r))
+            results.append(r)
+    if probed and not work:
+        first = next(iter(designs.values()))
+        raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "
+                         f"({', '.join(map(str, designs))} Hz); no audio was touched")
+    return Prepared(recipe, policy, outdir, designs, work, results, refused)

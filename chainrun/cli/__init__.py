@@ -1,0 +1,160 @@
+"""Command line: ``chainrun check | run | scan | plot``. See README.md, 'Commands', for the contract.
+
+The parser is built from :data:`COMMANDS`, one row per command; a command's module (``chainrun.cli.<name>``,
+whose ``main(args)`` parses nothing and prints everything) is imported only when that command runs, so
+``chainrun --help`` and a usage error answer at once. The work itself is :mod:`chainrun.app`'s.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import os
+import sys
+import traceback
+
+from .. import __version__
+from ..app import cores
+from ..errors import BatchError
+from ..interrupt import from_ctrl_c as _from_ctrl_c
+from ..recipe import RecipeError
+from ..text import shown
+
+EXIT_OK, EXIT_NOT_OK, EXIT_USAGE = 0, 1, 2
+
+
+class UsageError(Exception):
+    """A command-line mistake: printed as one line, exit status 2."""
+
+
+def _err(line: str) -> None:
+    """One line on stderr; undecodable bytes and control characters shown escaped (text.shown)."""
+    print(shown(str(line)), file=sys.stderr)
+
+
+def _rate(text: str) -> int:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a sample rate; give Hz, e.g. 48000") from None
+    if not value.is_integer() or not 1000 <= value <= 768000:
+        raise argparse.ArgumentTypeError(f"{text} Hz is out of range; allowed: whole Hz from 1000 to 768000")
+    return int(value)
+
+
+def _positive(name: str):
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{name} must be a whole number; got '{text}'") from None
+        if value < 1:
+            raise argparse.ArgumentTypeError(f"{name} must be at least 1; got {value}")
+        return value
+    return parse
+
+
+def _check_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("recipes", nargs="+", metavar="RECIPE_OR_DIR", help="recipe files or folders searched for *.yaml")
+    p.add_argument("--rate", type=_rate, action="append", metavar="HZ",
+                   help="sample rate to check; repeat for several (default: 44100, 48000, 96000)")
+    p.add_argument("--json", action="store_true", help="print results as JSON on stdout")
+
+
+def _run_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("recipe", metavar="RECIPE")
+    p.add_argument("inputs", nargs="+", metavar="INPUT", help="audio files or folders (searched recursively)")
+    p.add_argument("-o", "--outdir", required=True, metavar="OUTDIR", help="output folder (created if needed)")
+    p.add_argument("--workers", type=_positive("--workers"), metavar="N",
+                   help=f"cores to keep busy (default: all, here {cores()}): N files at once in separate "
+                        "processes; a file rendered alone overlaps its reading, filtering and writing; "
+                        "1 renders everything in one thread")
+    p.add_argument("--block-size", type=_positive("--block-size"), metavar="N",
+                   help="frames per block (default 65536); never changes the output")
+    p.add_argument("--on-over", choices=("reject", "clip", "scale"),
+                   help="what to do when an output would pass the ceiling (default: the recipe's guard.on_over)")
+    p.add_argument("--report", metavar="PATH", help="JSON report path (default OUTDIR/chainrun-report.json); "
+                                                     "the CSV and HTML reports go beside it. A name without "
+                                                     ".json is the base of all three; a folder holds them")
+    p.add_argument("--no-true-peak", action="store_true",
+                   help="skip true-peak metering (faster); outputs are still metered against a recipe's "
+                        "true_peak_ceiling_dbtp")
+    p.add_argument("--redo", action="store_true",
+                   help="render every file again, even those an earlier run already delivered unchanged")
+
+
+def _scan_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("inputs", nargs="+", metavar="INPUT", help="audio files or folders (searched recursively)")
+    p.add_argument("--json", action="store_true", help="print results as JSON on stdout")
+    p.add_argument("--no-true-peak", action="store_true", help="skip true-peak metering (faster)")
+
+
+def _plot_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("recipe", metavar="RECIPE")
+    p.add_argument("--rate", type=_rate, default=48000, metavar="HZ", help="sample rate (default 48000)")
+    p.add_argument("-o", "--output", required=True, metavar="FILE", help="picture to write, .png or .svg")
+
+
+# One row per command: name -> (help, description, arguments). Its module is chainrun.cli.<name>.
+COMMANDS = {
+    "check": ("design and assess recipes at each sample rate; writes nothing",
+              "Design every recipe at each rate, prove it stable and bound its gain.", _check_arguments),
+    "run": ("filter files and folders into OUTDIR, with reports",
+            "Filter audio files with a recipe, block by block, into OUTDIR (the input tree mirrored); "
+            "write JSON, CSV and HTML reports.", _run_arguments),
+    "scan": ("meter existing files; writes nothing",
+             "Sample peak, true peak, RMS, DC offset and clipping of existing files.", _scan_arguments),
+    "plot": ("draw the chain's response to a PNG or SVG file",
+             "Magnitude and phase of the whole chain at one sample rate, each section drawn faintly beneath, "
+             "with the guard's figures.", _plot_arguments),
+}
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse, with a usage error as one line (argparse would print the whole usage block first)."""
+
+    def error(self, message: str):
+        _err(f"{self.prog}: error: {message}; see '{self.prog} --help'")
+        self.exit(EXIT_USAGE)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="chainrun",
+        description="Guarded IIR equaliser chains for folders of audio files.",
+        epilog="Exit status: 0 all fine, 1 something rejected or not ok, 2 usage error.")
+    parser.add_argument("--version", action="version", version=f"chainrun {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+    for name, (help_, description, arguments) in COMMANDS.items():
+        p = sub.add_parser(name, help=help_, description=description)
+        arguments(p)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``chainrun`` console script; returns the exit status."""
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:      # usage error (2) or --help/--version (0)
+        return exc.code if isinstance(exc.code, int) else EXIT_USAGE
+    args.argv = list(argv) if argv is not None else sys.argv[1:]
+    try:
+        return importlib.import_module(f"{__name__}.{args.command}").main(args)
+    except (UsageError, BatchError, RecipeError) as exc:
+        _err(str(exc))
+        return EXIT_USAGE
+    except KeyboardInterrupt:      # before any file was rendered, or while the reports were written
+        _err("chainrun: interrupted; no partial file was left")
+        return EXIT_NOT_OK
+    except BrokenPipeError:
+        return EXIT_NOT_OK
+    except Exception as exc:  # a bug, not bad input: say so in one line
+        if _from_ctrl_c(exc):
+            _err("chainrun: interrupted; no partial file was left")
+            return EXIT_NOT_OK
+        _err(f"chainrun: internal error: {type(exc).__name__}: {exc} "
+             "(set CHAINRUN_DEBUG=1 for the traceback and please report it)")
+        if os.environ.get("CHAINRUN_DEBUG"):
+            traceback.print_exc()
+        return EXIT_NOT_OK

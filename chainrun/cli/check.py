@@ -1,0 +1,54 @@
+"""``chainrun check``: print what :func:`chainrun.app.check` found, as a table or as JSON."""
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+
+from .. import __version__
+from ..app import DEFAULT_RATES, check
+from ..text import fmt_db
+from . import EXIT_NOT_OK, EXIT_OK, _err
+
+
+def _print_check(entry: dict) -> None:
+    title = f"{entry['path']}"
+    if "name" in entry:
+        title += f"  \"{entry['name']}\"  {entry['sections']} section(s)"
+    print(title)
+    if entry["rates"]:
+        print(f"  {'rate':>9}  {'biquads':>7}  {'max pole radius':>15}  {'60 dB decay':>11}  "
+              f"{'max gain':>22}  {'worst-case peak':>15}  verdict")
+        for r in entry["rates"]:
+            verdict = "accepted" if r["accepted"] else "REJECTED"
+            if r.get("rows") is None:
+                print(f"  {r['rate']:>6} Hz  {'-':>7}  {'-':>15}  {'-':>11}  {'-':>22}  {'-':>15}  {verdict}")
+                continue
+            radius = f"{r['max_pole_radius']:.9f}" if r["max_pole_radius"] is not None else "-"
+            decay = "-" if r["decay_60db_s"] is None else (
+                f"{'' if r['decay_exact'] else '>'}{r['decay_60db_s']:.3f} s")
+            gain = "-" if r["max_gain_db"] is None else f"{r['max_gain_db']:+.2f} dB @ {r['max_gain_hz']:.0f} Hz"
+            peak = fmt_db(r["worst_case_peak_gain_db"] if r["worst_case_peak_gain_db"] is not None else math.inf)
+            print(f"  {r['rate']:>6} Hz  {r['rows']:>7}  {radius:>15}  {decay:>11}  {gain:>22}  {peak:>15}  {verdict}")
+    for line in entry["errors"] + entry["warnings"]:
+        _err(line)
+
+
+def main(args: argparse.Namespace) -> int:
+    rates = tuple(dict.fromkeys(args.rate)) if args.rate else DEFAULT_RATES
+    entries = check(args.recipes, rates)
+    rejected = [e for e in entries if not e["accepted"]]
+    if args.json:
+        json.dump({"version": __version__, "rates": list(rates), "accepted": not rejected,
+                   "recipes": entries}, sys.stdout, indent=2)
+        print()
+        for e in entries:
+            for line in e["errors"] + e["warnings"]:
+                _err(line)
+    else:
+        for e in entries:
+            _print_check(e)
+        print(f"{len(entries)} recipe(s) checked at {', '.join(map(str, rates))} Hz: "
+              f"{len(entries) - len(rejected)} accepted, {len(rejected)} rejected")
+    return EXIT_NOT_OK if rejected else EXIT_OK

@@ -1,0 +1,13 @@
+"""``chainrun plot``: draw the response (:func:`chainrun.app.plot`) and print the picture's path."""
+from __future__ import annotations
+
+import argparse
+
+from ..app import plot
+from . import EXIT_OK, _err
+
+
+def main(args: argparse.Namespace) -> int:
+    plot(args.recipe, args.rate, args.output, warn=_err)
+    print(args.output)
+    return EXIT_OK

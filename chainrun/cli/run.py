@@ -1,0 +1,73 @@
+"""``chainrun run``: a run through :func:`chainrun.app.run`, with a progress bar, its summary and its errors."""
+from __future__ import annotations
+
+import argparse
+import sys
+
+from ..app import run
+from ..batch.run import MAX_WORKERS
+from ..recipe import RecipeError, load
+from ..results import FAILED, INTERRUPTED
+from . import EXIT_NOT_OK, EXIT_OK, EXIT_USAGE, _err
+
+
+class _Progress:
+    """A tqdm bar on stderr (files, and hours of audio done), only when stderr is a terminal."""
+
+    def __init__(self, enabled: bool):
+        self.enabled = enabled
+        self.bar = None
+        self.hours = 0.0
+
+    def start(self, total_files: int) -> None:
+        if self.enabled and total_files:
+            from tqdm import tqdm
+            tqdm.monitor_interval = 0       # no monitor thread: worker processes are forked
+            self.bar = tqdm(total=total_files, unit="file", file=sys.stderr, dynamic_ncols=True,
+                            desc="filtering")
+
+    def __call__(self, result) -> None:
+        if self.bar is None:
+            return
+        if result.source is not None:
+            self.hours += result.source.duration_s / 3600.0
+        self.bar.update(1)
+        self.bar.set_postfix_str(f"{self.hours:.2f} h audio")
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+
+
+def main(args: argparse.Namespace) -> int:
+    from ..report import console_summary, error_lines
+
+    if args.workers is not None and args.workers > MAX_WORKERS:
+        _err(f"--workers {args.workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
+        return EXIT_USAGE
+    try:
+        recipe = load(args.recipe)
+    except RecipeError as exc:
+        _err(f"{exc}; no audio was touched")
+        return EXIT_USAGE
+    for line in recipe.warnings:
+        _err(line)
+    outcome = run(recipe, args.inputs, args.outdir, workers=args.workers, block_size=args.block_size,
+                  on_over=args.on_over, report=args.report, true_peak=not args.no_true_peak, redo=args.redo,
+                  progress=_Progress(sys.stderr.isatty()), command=["chainrun"] + args.argv)
+    result = outcome.result
+    for note in result.notes:
+        _err(f"chainrun: note: {note}")
+    print(console_summary(result, outcome.report_paths))
+    for line in error_lines(result):
+        _err(line)
+    for line in outcome.report_errors:
+        _err(line)
+    if result.interrupted:
+        left = sum(r.status == FAILED and r.message == INTERRUPTED for r in result.results)
+        if left:
+            _err(f"chainrun: interrupted; {left} file(s) not rendered (listed in the report as failed); "
+                 "no partial file was left, and the next run resumes")
+        else:
+            _err("chainrun: interrupted after the last file was rendered; every file is in the report")
+    return EXIT_OK if result.all_ok and not outcome.report_errors else EXIT_NOT_OK

@@ -1,0 +1,37 @@
+"""``chainrun scan``: print what :func:`chainrun.app.scan` metered, as a table or as JSON."""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+from .. import __version__
+from ..app import scan
+from ..report import file_dict, loudest
+from ..results import CLIPPED, FAILED, STATUSES
+from ..text import fmt_db, shown
+from . import EXIT_NOT_OK, EXIT_OK, _err
+
+
+def main(args: argparse.Namespace) -> int:
+    results = scan(args.inputs, true_peak=not args.no_true_peak)
+    if args.json:
+        json.dump({"version": __version__, "files": [file_dict(r) for r in results]}, sys.stdout, indent=2,
+                  allow_nan=False)
+        print()
+    else:
+        print(f"{'status':<8} {'peak':>11} {'true peak':>11} {'RMS':>11} {'clipped':>8}  file")
+        for r in results:
+            m = r.input_meters
+            if m is None:
+                print(f"{r.status:<8} {'-':>11} {'-':>11} {'-':>11} {'-':>8}  {shown(r.relpath)}"
+                      + (f"  ({shown(r.message)})" if r.message else ""))
+                continue
+            clipped = sum(c.clipped_samples for c in m.channels)
+            print(f"{r.status:<8} {fmt_db(loudest(m, 'peak_dbfs'), 'dBFS'):>11} "
+                  f"{fmt_db(loudest(m, 'true_peak_dbtp'), 'dBTP'):>11} "
+                  f"{fmt_db(loudest(m, 'rms_dbfs'), 'dBFS'):>11} {clipped:>8}  {shown(r.relpath)}")
+    bad = [r for r in results if r.status in (FAILED, CLIPPED)]
+    for r in bad:
+        _err(f"{shown(r.input)}: {STATUSES[r.status].error_word}: {shown(r.message)}")
+    return EXIT_NOT_OK if bad else EXIT_OK
