@@ -27,7 +27,7 @@ from .recipe import Recipe, RecipeError, load
 from .results import FileResult
 from .batch.run import BatchResult, run_batch
 from .app import check, run, scan
-from .report import write_reports
+from .report.write import write_reports
 
 __all__ = ["__version__", "load", "design", "assess", "check", "run", "scan", "write_reports", "Recipe",
            "RecipeError", "Chain", "Assessment", "FileResult", "BatchResult",

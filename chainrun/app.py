@@ -141,7 +141,7 @@ def _pictures_aside(recipe: Recipe, designs: dict) -> dict:
 
 def _write_reports(result: BatchResult, report: str | None, command: list[str] | None,
                    outdir: str) -> tuple[dict[str, str], list[str]]:
-    from .report import ReportError, write_reports
+    from .report.write import ReportError, write_reports
 
     errors: list[str] = []
     try:

@@ -34,8 +34,8 @@ import pytest
 import soundfile as sf
 
 from chainrun.cli import main
-from chainrun.render import TEMP_TAG
-from chainrun.report import shown
+from chainrun.fsutil import TEMP_TAG
+from chainrun.text import shown
 
 # The marsh chain: wind rumble out, a presence lift. The 5 kHz peak is above Nyquist for an 8 kHz file.
 RECIPE = """\

@@ -20,12 +20,12 @@ import pytest
 import soundfile as sf
 from scipy import signal
 
-import chainrun
+import chainrun.results
 from chainrun import design, load
 from chainrun.batch import executors, plan
 from chainrun.batch.discover import Job
 from chainrun.batch import run as batch_run
-from chainrun.render import TEMP_TAG
+from chainrun.fsutil import TEMP_TAG
 
 HEX64 = set("0123456789abcdef")
 
@@ -529,7 +529,7 @@ def test_the_note_about_an_earlier_output_is_said_once(tmp_path):
     (out / "a.wav").write_bytes(b"an earlier run's output")
     (tmp_path / "a.wav").write_bytes(b"input")
     job = Job(str(tmp_path / "a.wav"), "a.wav", str(out / "a.wav"))
-    r = chainrun.render.FileResult(job.input, job.relpath, "rejected", "over the ceiling")
+    r = chainrun.results.FileResult(job.input, job.relpath, "rejected", "over the ceiling")
     batch_run._note_earlier_output(job, r)
     batch_run._note_earlier_output(job, r)
     assert r.message == ("over the ceiling; the file under its output name is an earlier run's, left as it was, "
@@ -542,7 +542,7 @@ def test_the_note_about_an_earlier_output_is_said_once(tmp_path):
     ("rep/", "rep/chainrun-report")])
 def test_report_option_keeps_every_dot_part_but_json(given, base):
     # two nights named night.2024.06.01 and night.2024.06.02 must not share (and overwrite) one report
-    from chainrun.report import report_paths
+    from chainrun.report.write import report_paths
 
     paths = report_paths(None, given)
     assert paths == {"json": base + ".json", "csv": base + ".csv", "html": base + ".html"}

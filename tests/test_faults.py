@@ -27,7 +27,7 @@ import soundfile as sf
 
 from chainrun.batch import outdir as journal_mod
 from chainrun.batch.outdir import JOURNAL_NAME, LOCK_NAME, LockedError, OutdirLock
-from chainrun.render import TEMP_TAG
+from chainrun.fsutil import TEMP_TAG
 
 RECIPE = """\
 format: 1
@@ -515,7 +515,7 @@ def test_leftover_clean_up_does_not_enter_another_run_s_outdir(tmp_path):
     # A run into out/ must not remove the temporary file of a run rendering into out/sub/ right now (seen:
     # that run's delivery failed). A subfolder with a lock of its own is another OUTDIR; its run cleans it.
     from chainrun.batch.outdir import LOCK_NAME, clean_leftovers
-    from chainrun.render import TEMP_TAG
+    from chainrun.fsutil import TEMP_TAG
 
     (tmp_path / "out" / "sub").mkdir(parents=True)
     (tmp_path / "out" / "old").mkdir()

@@ -34,7 +34,7 @@ import pytest
 import soundfile as sf
 
 from chainrun.batch.outdir import LOCK_NAME
-from chainrun.render import TEMP_TAG
+from chainrun.fsutil import TEMP_TAG
 
 pytestmark = pytest.mark.slow
 
@@ -419,11 +419,12 @@ def test_a_ctrl_c_inside_a_finaliser_still_stops_the_file(workers, tmp_path, wri
 def test_a_worker_s_ctrl_c_handler_never_raises(tmp_path, write_audio):
     # in a pool worker, the handler runs wherever the worker happens to be; it only asks the file to stop
     from chainrun import interrupt, render
+    from chainrun.audio.reader import probe
     from chainrun.batch import executors
     from chainrun.batch.discover import Job
     from chainrun.results import INTERRUPTED
 
-    src = render.probe(str(write_audio("in/a.wav", np.zeros((1000, 1)), 48000, "PCM_16")))
+    src = probe(str(write_audio("in/a.wav", np.zeros((1000, 1)), 48000, "PCM_16")))
     job = Job(src.path, "a.wav", str(tmp_path / "out.wav"))
     try:
         interrupt.on_sigint(signal.SIGINT, None)           # would raise in the middle of anything if it could

@@ -24,7 +24,8 @@ from chainrun import app, design, load
 from chainrun.batch import executors, plan
 from chainrun.batch import run as batch_run
 from chainrun.recipe import MAX_INCLUDE_DEPTH, MAX_SECTIONS, RecipeError
-from chainrun.render import MAX_BLOCK, TEMP_TAG
+from chainrun.fsutil import TEMP_TAG
+from chainrun.render import MAX_BLOCK
 
 GAIN = "  - {type: gain, gain_db: -1}\n"
 RECIPE = "format: 1\nname: Saltings Hour gentle pass\nchain:\n  - {type: highpass, freq: 60}\n" + GAIN

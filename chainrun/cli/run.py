@@ -40,7 +40,8 @@ class _Progress:
 
 
 def main(args: argparse.Namespace) -> int:
-    from ..report import console_summary, error_lines
+    from ..report.document import files_document
+    from ..report.table import console_summary, error_lines
 
     if args.workers is not None and args.workers > MAX_WORKERS:
         _err(f"--workers {args.workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
@@ -58,8 +59,9 @@ def main(args: argparse.Namespace) -> int:
     result = outcome.result
     for note in result.notes:
         _err(f"chainrun: note: {note}")
-    print(console_summary(result, outcome.report_paths))
-    for line in error_lines(result):
+    document = files_document(result)
+    print(console_summary(document, outcome.report_paths))
+    for line in error_lines(document):
         _err(line)
     for line in outcome.report_errors:
         _err(line)

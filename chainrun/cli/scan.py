@@ -7,7 +7,7 @@ import sys
 
 from .. import __version__
 from ..app import scan
-from ..report import file_dict, loudest
+from ..report.document import file_dict, loudest
 from ..results import CLIPPED, FAILED, STATUSES
 from ..text import fmt_db, shown
 from . import EXIT_NOT_OK, EXIT_OK, _err

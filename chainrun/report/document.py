@@ -19,7 +19,7 @@ from ..results import DELIVERED, STATUS_ORDER, FileResult
 from ..text import shown
 
 if TYPE_CHECKING:
-    from ..batch import BatchResult
+    from ..batch.run import BatchResult
 
 __all__ = ["batch_dict", "files_document", "file_dict", "headline_fields", "with_pictures", "loudest", "VIEW_ONLY"]
 

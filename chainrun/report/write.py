@@ -17,7 +17,7 @@ from .html import render_html
 from .table import csv_text
 
 if TYPE_CHECKING:
-    from ..batch import BatchResult
+    from ..batch.run import BatchResult
 
 __all__ = ["report_paths", "write_reports", "ReportError"]
 
