@@ -19,7 +19,7 @@ Importing the package loads numpy, soundfile and PyYAML only. scipy (about 0.6 s
 76 MB) is imported by the functions that design, check, meter or filter, on first use,
 so that ``chainrun --help``, a usage error or a Ctrl-C at start-up answer at once.
 """
-__version__ = "0.1.0"
+from .version import __version__
 
 from .design import Chain, design
 from .guard import Assessment, assess

@@ -14,7 +14,7 @@ import time
 from dataclasses import dataclass, field, replace
 from typing import Iterator
 
-from .. import __version__
+from ..version import __version__
 from ..errors import BatchError
 from ..recipe import Recipe
 from ..render import Policy

@@ -6,10 +6,10 @@ import json
 import math
 import sys
 
-from .. import __version__
+from ..version import __version__
 from ..app import DEFAULT_RATES, check
 from ..text import fmt_db
-from . import EXIT_NOT_OK, EXIT_OK, _err
+from .common import EXIT_NOT_OK, EXIT_OK, _err
 
 
 def _print_check(entry: dict) -> None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 import argparse
 
 from ..app import plot
-from . import EXIT_OK, _err
+from .common import EXIT_OK, _err
 
 
 def main(args: argparse.Namespace) -> int:

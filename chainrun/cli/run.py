@@ -8,7 +8,7 @@ from ..app import run
 from ..batch.run import MAX_WORKERS
 from ..recipe import RecipeError, load
 from ..results import FAILED, INTERRUPTED
-from . import EXIT_NOT_OK, EXIT_OK, EXIT_USAGE, _err
+from .common import EXIT_NOT_OK, EXIT_OK, EXIT_USAGE, _err
 
 
 class _Progress:

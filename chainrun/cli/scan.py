@@ -5,12 +5,12 @@ import argparse
 import json
 import sys
 
-from .. import __version__
+from ..version import __version__
 from ..app import scan
 from ..report.document import file_dict, loudest
 from ..results import CLIPPED, FAILED, STATUSES
 from ..text import fmt_db, shown
-from . import EXIT_NOT_OK, EXIT_OK, _err
+from .common import EXIT_NOT_OK, EXIT_OK, _err
 
 
 def main(args: argparse.Namespace) -> int:

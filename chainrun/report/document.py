@@ -13,7 +13,7 @@ import platform
 import time
 from typing import TYPE_CHECKING, Any
 
-from .. import __version__
+from ..version import __version__
 from .. import meters as meters_module
 from ..results import DELIVERED, STATUS_ORDER, FileResult
 from ..text import shown
