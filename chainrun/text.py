@@ -44,7 +44,10 @@ def shown(path: str | None) -> str | None:
     :func:`one_line` hides as \\uXXXX. The result encodes as strict UTF-8 (it holds no surrogate)."""
     if path is None:
         return None
-    text = path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    try:
+        text = path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    except UnicodeEncodeError:      # a lone surrogate that is no escaped byte (text from JSON, not a file name)
+        text = path.encode("utf-8", "backslashreplace").decode("utf-8")
     return one_line(text)
 
 

@@ -12,7 +12,7 @@ import math
 from typing import Any
 
 from ..results import DELIVERED, INTERRUPTED, QUIET_SKIPS, SKIPPED, STATUS_ORDER, STATUSES
-from ..text import fmt_db
+from ..text import fmt_db, shown
 
 __all__ = ["channels_of", "worst_first", "meter_figure", "console_summary", "error_lines", "csv_fields", "csv_text"]
 
@@ -74,12 +74,18 @@ def _audio_seconds(document: dict) -> float:
 
 
 def console_summary(document: dict, paths: dict[str, str] | None = None, limit: int = 40) -> str:
-    """A short table, worst files first, and a totals line."""
+    """A short table, worst files first, and a totals line.
+
+    Every name and message is passed through :func:`~chainrun.text.shown` (again: a document read
+    back from JSON, or report paths under a folder whose name is not UTF-8, hold raw text), so the
+    summary prints on a strict UTF-8 console and no name can hold a terminal escape.
+    """
     lines = [f"{'status':<9} " + " ".join(f"{h:>{w}}" for h, w, *_ in _CONSOLE_COLUMNS) + "  file"]
     rows = worst_first(document.get("files") or [])
     for f in rows[:limit]:
         figures = " ".join(f"{fmt_db(meter_figure(f.get(m), key), unit):>{w}}" for _, w, m, key, unit in _CONSOLE_COLUMNS)
-        lines.append(f"{f['status']:<9} {figures}  {f['relpath']}" + (f"  ({f['message']})" if f.get("message") else ""))
+        lines.append(f"{shown(str(f['status'])):<9} {figures}  {shown(f['relpath'])}"
+                     + (f"  ({shown(f['message'])})" if f.get("message") else ""))
     if len(rows) > limit:
         lines.append(f"... and {len(rows) - limit} more in the report")
     summary = document.get("summary") or {}
@@ -88,12 +94,13 @@ def console_summary(document: dict, paths: dict[str, str] | None = None, limit: 
                  f"of audio delivered in {summary.get('wall_seconds') or 0.0:.1f} s"
                  + ("; INTERRUPTED" if summary.get("interrupted") else ""))
     if paths:
-        lines.append("report: " + ", ".join(paths.values()))
+        lines.append("report: " + ", ".join(shown(p) for p in paths.values()))
     return "\n".join(lines)
 
 
 def error_lines(document: dict) -> list[str]:
-    """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr.
+    """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr
+    (names and messages through :func:`~chainrun.text.shown`).
 
     Also a note for each input skipped for a reason worth knowing (named twice, a
     link loop); not for files that are plainly not audio. After Ctrl-C, the files
@@ -105,9 +112,9 @@ def error_lines(document: dict) -> list[str]:
         status, message = f.get("status"), f.get("message")
         word = STATUSES[status].error_word if status in STATUSES else ""
         if word and not (interrupted and message == INTERRUPTED):
-            lines.append(f"{f['input']}: {word}: {message}")
+            lines.append(f"{shown(f['input'])}: {word}: {shown(message)}")
         elif status == SKIPPED and message not in QUIET_SKIPS:
-            lines.append(f"{f['input']}: note: skipped: {message}")
+            lines.append(f"{shown(f['input'])}: note: skipped: {shown(message)}")
     return lines
 
 
