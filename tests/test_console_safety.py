@@ -133,3 +133,46 @@ def test_check_of_a_recipe_whose_name_is_not_utf8_prints_every_result(tmp_path):
     assert "2 recipe(s) checked" in stdout
     assert "m\\xe9t\\xe9o.yaml" in stdout and '"tide\\x1b[2J\\u202e pass"' in stdout
     assert "\x1b" not in stdout
+
+
+# --------------------------------------------------------------------------- the CSV report
+
+# OWASP "CSV Injection": cells starting with =, +, -, @, tab or carriage return are formulas to a spreadsheet.
+_OWASP_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_FORMULA_NAMES = ('=HYPERLINK("evil.test","y").wav', "-take.wav", "+take.wav", "@take.wav")
+
+
+def test_csv_names_are_never_formulas_and_numbers_stay_numbers(tmp_path, write_audio):
+    for name in _FORMULA_NAMES + ("tide\u202etake.wav",):
+        write_audio(name, np.full(2000, 0.25), 48000, "PCM_16")
+    (tmp_path / "r.yaml").write_text(GENTLE, encoding="utf-8")
+    proc = _chainrun("run", "-o", "=out", "--workers", "1", "--", "r.yaml", *_FORMULA_NAMES, "tide\u202etake.wav",
+                     cwd=tmp_path)
+    assert proc.returncode == 0, proc.stderr.decode()
+    with open(tmp_path / "=out" / "chainrun-report.csv", newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))                    # Python's csv module (reference library)
+    assert len(rows) == 5
+    inputs = set()
+    for row in rows:
+        for key in ("input", "output", "status", "message", "format", "subtype", "out_format", "out_subtype"):
+            assert not row[key].startswith(_OWASP_FORMULA_START), (key, row[key])
+        inputs.add(row["input"])
+        # analytic: a constant 0.25 (PCM_16 code 8192 exactly) peaks at 20*log10(0.25) = -12.04 dBFS,
+        # written as a plain negative number, not as text
+        assert row["in_peak_dbfs"] == "-12.04" and float(row["in_peak_dbfs"]) < 0
+        assert float(row["out_peak_dbfs"]) < 0 and not row["out_peak_dbfs"].startswith("'")
+        assert row["output"].startswith("'=out" + os.sep)
+    assert inputs == {"'" + n for n in _FORMULA_NAMES} | {"tide\\u202etake.wav"}
+
+
+def test_csv_text_cells_of_a_document_read_back():
+    from chainrun.report.table import csv_text
+
+    doc = {"headline_fields": [{"key": "peak_dbfs", "label": "peak", "unit": "dBFS"}],
+           "files": [{"input": "\tcmd", "output": "\rx", "status": "failed", "message": "-2+3",
+                      "format": "WAV", "input_meters": {"channels": [{"peak": 0.5, "peak_dbfs": -6.0206}]},
+                      "trim_db": -3.0103}]}
+    row = next(csv.DictReader(io.StringIO(csv_text(doc))))
+    # a tab or carriage return is shown escaped (\t, \r), so it can no longer start a formula
+    assert row["input"] == "\\tcmd" and row["output"] == "\\rx" and row["message"] == "'-2+3"
+    assert row["in_peak_dbfs"] == "-6.02" and row["trim_db"] == "-3.01"       # numbers stay numbers

@@ -2,7 +2,8 @@
 
 Files are listed worst first (:func:`worst_first`): failed, rejected, clipped,
 then by output peak, loudest first. Every view takes that order from here.
-dB values of silence are left empty in the CSV.
+dB values of silence are left empty in the CSV; a CSV text cell that a spreadsheet would take for
+a formula (``=HYPERLINK(...)``, ``-take``) starts with an apostrophe.
 """
 from __future__ import annotations
 
@@ -20,6 +21,13 @@ __all__ = ["channels_of", "worst_first", "meter_figure", "console_summary", "err
 _CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
                     "out_format", "out_subtype", "dither")
 _CSV_RESULT_FIELDS = ("over_db", "trim_db", "gain_db", "clipped_by_chainrun", "seconds")
+# The CSV's text columns (names, messages, format names): the only cells a spreadsheet could take
+# for a formula. Every other column is a number and is written as one (a dB figure of -3.01 too).
+_CSV_TEXT_FIELDS = ("input", "output", "status", "message", "format", "subtype", "out_format", "out_subtype",
+                    "dither")
+# OWASP "CSV Injection": a cell starting with one of these is taken for a formula by spreadsheet
+# programs; a leading apostrophe makes it text.
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 # The console table's meter columns: (heading, width, which meters, key, unit).
 _CONSOLE_COLUMNS = (
@@ -139,7 +147,16 @@ def _csv_row(f: dict, headline: list[dict], fields: tuple[str, ...]) -> dict:
             row[f"{side}_{h['key']}"] = "" if value is None else value
     row.update(over_db=_db_text(f.get("over_db")), trim_db=_db_text(f.get("trim_db")),
                gain_db=_db_text(f.get("gain_db")))
+    for k in _CSV_TEXT_FIELDS:
+        if isinstance(row.get(k), str):
+            row[k] = _csv_text_cell(row[k])
     return {k: ("" if row.get(k) is None else row.get(k)) for k in fields}
+
+
+def _csv_text_cell(text: str) -> str:
+    """A text cell on one line (:func:`~chainrun.text.shown`) that no spreadsheet runs as a formula."""
+    text = shown(text)
+    return "'" + text if text.startswith(_FORMULA_START) else text
 
 
 def csv_text(document: dict) -> str:
