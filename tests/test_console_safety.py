@@ -208,3 +208,68 @@ def test_html_response_pictures_show_c1_and_bidi_characters_escaped(tmp_path, wr
     page = _html_page(tmp_path, write_audio, run_cli)
     pictures = "".join(re.findall(r"<svg\b.*?</svg>", page, flags=re.S))
     assert pictures and _hidden_in(pictures) == []
+
+
+# --------------------------------------------------------------------------- reports never replace others' files
+
+def _wav_bytes(tmp_path, write_audio) -> bytes:
+    return write_audio("rec.wav", np.full(2000, 0.25), 48000, "PCM_16").read_bytes()
+
+
+def test_report_never_replaces_a_recording_named_like_it(tmp_path, write_audio, run_cli, monkeypatch):
+    import tempfile
+
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path / "tmp"))
+    (tmp_path / "tmp").mkdir()
+    write_audio("in/take.wav", np.full(2000, 0.25), 48000, "PCM_16")
+    (tmp_path / "r.yaml").write_text(GENTLE, encoding="utf-8")
+    rep = tmp_path / "rep"
+    rep.mkdir()
+    recording = _wav_bytes(tmp_path, write_audio)
+    (rep / "night.json").write_bytes(recording)                     # a recording someone named .json
+    status, out, err = run_cli("run", tmp_path / "r.yaml", tmp_path / "in", "-o", tmp_path / "out",
+                               "--workers", "1", "--report", rep / "night.json")
+    assert status == 1 and (tmp_path / "out" / "take.wav").exists()     # the audio was delivered
+    assert (rep / "night.json").read_bytes() == recording                 # left as it was
+    lines = [ln for ln in err.splitlines() if ln.startswith(f"{rep / 'night.json'}: error:")]
+    assert len(lines) == 1 and "not a JSON report chainrun wrote" in lines[0], err
+    fallback = lines[0].split("; it was written to ")[1].split(" instead")[0]
+    assert os.path.dirname(fallback) == str(tmp_path / "tmp")
+    with open(fallback, encoding="utf-8") as fh:
+        assert json.load(fh)["summary"]["ok"] == 1                        # Python's json (reference library)
+    assert sorted(os.listdir(rep)) == ["night.csv", "night.html", "night.json"]
+    assert f"report: {fallback}, {rep / 'night.csv'}, {rep / 'night.html'}" in out
+
+
+def test_report_never_replaces_someones_spreadsheet_but_replaces_its_own(tmp_path, write_audio, run_cli,
+                                                                          monkeypatch):
+    import tempfile
+
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path / "tmp"))
+    (tmp_path / "tmp").mkdir()
+    write_audio("in/take.wav", np.full(2000, 0.25), 48000, "PCM_16")
+    (tmp_path / "r.yaml").write_text(GENTLE, encoding="utf-8")
+    rep = tmp_path / "rep"
+    rep.mkdir()
+    sheet = b"take,minutes,presenter\nmarsh dawn,12,Ana\n"
+    (rep / "week.csv").write_bytes(sheet)
+    argv = ("run", tmp_path / "r.yaml", tmp_path / "in", "-o", tmp_path / "out", "--workers", "1",
+            "--report", rep / "week.json")
+    status, _, err = run_cli(*argv)
+    assert status == 1 and (rep / "week.csv").read_bytes() == sheet
+    assert f"{rep / 'week.csv'}: error: the report was not written there: a file is there that is not a CSV " \
+           "report chainrun wrote" in err
+    assert (rep / "week.json").exists() and (rep / "week.html").exists()
+    # its own reports of an earlier run are replaced, quietly
+    (rep / "week.csv").unlink()
+    assert run_cli(*argv)[0] == 0 and run_cli(*argv, "--redo")[0] == 0
+    with open(rep / "week.csv", newline="", encoding="utf-8") as fh:
+        assert [row["status"] for row in csv.DictReader(fh)] == ["ok"]
+    # an HTML page or a JSON file that is not ours is never replaced either
+    for name, body in (("week.html", b"<!DOCTYPE html>\n<html><body>the programme's notes</body></html>\n"),
+                       ("week.json", b'{"presenter": "Ana"}\n')):
+        (rep / name).write_bytes(body)
+        status, _, err = run_cli(*argv)
+        assert status == 1 and (rep / name).read_bytes() == body, err
+        (rep / name).unlink()
+        assert run_cli(*argv)[0] == 0

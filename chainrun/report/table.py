@@ -15,10 +15,11 @@ from typing import Any
 from ..results import DELIVERED, INTERRUPTED, QUIET_SKIPS, SKIPPED, STATUS_ORDER, STATUSES
 from ..text import fmt_db, shown
 
-__all__ = ["channels_of", "worst_first", "meter_figure", "console_summary", "error_lines", "csv_fields", "csv_text"]
+__all__ = ["CSV_FILE_FIELDS", "channels_of", "worst_first", "meter_figure", "console_summary", "error_lines",
+           "csv_fields", "csv_text"]
 
 # The file columns of the CSV, split where the meter columns (in_<key>, out_<key>) go.
-_CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
+CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
                     "out_format", "out_subtype", "dither")
 _CSV_RESULT_FIELDS = ("over_db", "trim_db", "gain_db", "clipped_by_chainrun", "seconds")
 # The CSV's text columns (names, messages, format names): the only cells a spreadsheet could take
@@ -129,7 +130,7 @@ def error_lines(document: dict) -> list[str]:
 def csv_fields(document: dict) -> tuple[str, ...]:
     """The CSV's columns: the file's, then in_<key> and out_<key> of each headline meter figure, then the result's."""
     keys = [h["key"] for h in document.get("headline_fields") or []]
-    return (_CSV_FILE_FIELDS + tuple(f"in_{k}" for k in keys) + tuple(f"out_{k}" for k in keys)
+    return (CSV_FILE_FIELDS + tuple(f"in_{k}" for k in keys) + tuple(f"out_{k}" for k in keys)
             + _CSV_RESULT_FIELDS)
 
 
