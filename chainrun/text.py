@@ -13,18 +13,41 @@ __all__ = ["one_line", "shown", "db", "fmt_db", "reason", "first_line", "fault"]
 
 _CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
 
+# Characters that are invisible or reorder the text around them, so that a name holding one can
+# pass for another name, or a line of a log can read differently from its bytes (the attack of
+# N. Boucher and R. Anderson, "Trojan Source: Invisible Vulnerabilities", 2021). They are shown as
+# \uXXXX, never as \xNN, so that a real U+0085 is never mistaken for the stray byte 0x85 that
+# shown() writes as \x85.
+#   U+0080-U+009F          C1 controls (U+009B CSI starts a terminal escape; U+0085 NEL ends a line)
+#   U+202A-U+202E          LRE RLE PDF LRO RLO: explicit embeddings and overrides  } the directional
+#   U+2066-U+2069          LRI RLI FSI PDI: isolates                               } formatting characters
+#   U+200E U+200F U+061C   LRM RLM ALM: implicit directional marks                 } of Unicode Standard Annex #9
+#   U+2028 U+2029          line and paragraph separators: some viewers and editors end a line there
+#   U+200B U+2060 U+FEFF   zero width space, word joiner, zero width no-break space: invisible, so two
+#                          names differing by one look the same
+# Left as they are: U+200C and U+200D (zero width non-joiner and joiner), which Persian, Indic
+# scripts and emoji sequences need in ordinary names, and every other printable character.
+_HIDDEN_RE = re.compile("[\u0080-\u009f\u061c\u200b\u200e\u200f\u2028\u2029\u202a-\u202e"
+                        "\u2060\u2066-\u2069\ufeff]")
+
 
 def one_line(text: str) -> str:
-    """``text`` with control characters (a newline, a terminal escape) shown escaped, e.g. ``\\n``."""
-    return _CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], text)
+    """``text`` with control characters (a newline, a terminal escape) shown escaped, e.g. ``\\n``,
+    ``\\x1b``; C1 controls, bidirectional formatting characters and invisible ones as ``\\u202e``."""
+    text = _CONTROL_RE.sub(lambda m: repr(m.group())[1:-1], text)
+    return _HIDDEN_RE.sub(lambda m: f"\\u{ord(m.group()):04x}", text)
 
 
 def shown(path: str | None) -> str | None:
     """A path (or any text) on one line: bytes that are not UTF-8 shown as \\xNN, control characters
-    (a newline in a file name, a terminal escape) as \\n, \\x1b and so on."""
+    (a newline in a file name, a terminal escape) as \\n, \\x1b and so on, and the characters
+    :func:`one_line` hides as \\uXXXX. The result encodes as strict UTF-8 (it holds no surrogate)."""
     if path is None:
         return None
-    text = path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    try:
+        text = path.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+    except UnicodeEncodeError:      # a lone surrogate that is no escaped byte (text from JSON, not a file name)
+        text = path.encode("utf-8", "backslashreplace").decode("utf-8")
     return one_line(text)
 
 

@@ -7,7 +7,7 @@ import re
 from typing import Any
 
 from ..results import SKIPPED, STATUSES
-from ..text import fmt_db
+from ..text import fmt_db, one_line
 from .table import channels_of, meter_figure
 
 __all__ = ["plain", "esc", "db_cell", "clipped_total", "seconds_text", "status_badge", "num_text"]
@@ -16,7 +16,9 @@ _CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f]")
 
 
 def plain(value: Any) -> str:
-    """Any value as text a UTF-8 file can hold: stray surrogates and control characters shown as escapes."""
+    """Any value as text a UTF-8 file can hold: stray surrogates and control characters shown as escapes;
+    C1 controls, bidirectional overrides and isolates and invisible characters as ``\\u202e`` and so on
+    (:func:`chainrun.text.one_line`), so that no name or note can reorder or hide text on the page."""
     s = "" if value is None else str(value)
     try:
         s.encode("utf-8")
@@ -26,7 +28,7 @@ def plain(value: Any) -> str:
         except UnicodeEncodeError:
             s = s.encode("utf-8", "backslashreplace").decode("utf-8")
     s = s.replace("\n", "\\n").replace("\t", "\\t")
-    return _CONTROL.sub(lambda m: f"\\x{ord(m.group()):02x}", s)
+    return one_line(_CONTROL.sub(lambda m: f"\\x{ord(m.group()):02x}", s))
 
 
 def esc(value: Any) -> str:

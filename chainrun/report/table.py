@@ -2,7 +2,8 @@
 
 Files are listed worst first (:func:`worst_first`): failed, rejected, clipped,
 then by output peak, loudest first. Every view takes that order from here.
-dB values of silence are left empty in the CSV.
+dB values of silence are left empty in the CSV; a CSV text cell that a spreadsheet would take for
+a formula (``=HYPERLINK(...)``, ``-take``) starts with an apostrophe.
 """
 from __future__ import annotations
 
@@ -12,14 +13,22 @@ import math
 from typing import Any
 
 from ..results import DELIVERED, INTERRUPTED, QUIET_SKIPS, SKIPPED, STATUS_ORDER, STATUSES
-from ..text import fmt_db
+from ..text import fmt_db, shown
 
-__all__ = ["channels_of", "worst_first", "meter_figure", "console_summary", "error_lines", "csv_fields", "csv_text"]
+__all__ = ["CSV_FILE_FIELDS", "channels_of", "worst_first", "meter_figure", "console_summary", "error_lines",
+           "csv_fields", "csv_text"]
 
 # The file columns of the CSV, split where the meter columns (in_<key>, out_<key>) go.
-_CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
+CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
                     "out_format", "out_subtype", "dither")
 _CSV_RESULT_FIELDS = ("over_db", "trim_db", "gain_db", "clipped_by_chainrun", "seconds")
+# The CSV's text columns (names, messages, format names): the only cells a spreadsheet could take
+# for a formula. Every other column is a number and is written as one (a dB figure of -3.01 too).
+_CSV_TEXT_FIELDS = ("input", "output", "status", "message", "format", "subtype", "out_format", "out_subtype",
+                    "dither")
+# OWASP "CSV Injection": a cell starting with one of these is taken for a formula by spreadsheet
+# programs; a leading apostrophe makes it text.
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 # The console table's meter columns: (heading, width, which meters, key, unit).
 _CONSOLE_COLUMNS = (
@@ -74,12 +83,18 @@ def _audio_seconds(document: dict) -> float:
 
 
 def console_summary(document: dict, paths: dict[str, str] | None = None, limit: int = 40) -> str:
-    """A short table, worst files first, and a totals line."""
+    """A short table, worst files first, and a totals line.
+
+    Every name and message is passed through :func:`~chainrun.text.shown` (again: a document read
+    back from JSON, or report paths under a folder whose name is not UTF-8, hold raw text), so the
+    summary prints on a strict UTF-8 console and no name can hold a terminal escape.
+    """
     lines = [f"{'status':<9} " + " ".join(f"{h:>{w}}" for h, w, *_ in _CONSOLE_COLUMNS) + "  file"]
     rows = worst_first(document.get("files") or [])
     for f in rows[:limit]:
         figures = " ".join(f"{fmt_db(meter_figure(f.get(m), key), unit):>{w}}" for _, w, m, key, unit in _CONSOLE_COLUMNS)
-        lines.append(f"{f['status']:<9} {figures}  {f['relpath']}" + (f"  ({f['message']})" if f.get("message") else ""))
+        lines.append(f"{shown(str(f['status'])):<9} {figures}  {shown(f['relpath'])}"
+                     + (f"  ({shown(f['message'])})" if f.get("message") else ""))
     if len(rows) > limit:
         lines.append(f"... and {len(rows) - limit} more in the report")
     summary = document.get("summary") or {}
@@ -88,12 +103,13 @@ def console_summary(document: dict, paths: dict[str, str] | None = None, limit: 
                  f"of audio delivered in {summary.get('wall_seconds') or 0.0:.1f} s"
                  + ("; INTERRUPTED" if summary.get("interrupted") else ""))
     if paths:
-        lines.append("report: " + ", ".join(paths.values()))
+        lines.append("report: " + ", ".join(shown(p) for p in paths.values()))
     return "\n".join(lines)
 
 
 def error_lines(document: dict) -> list[str]:
-    """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr.
+    """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr
+    (names and messages through :func:`~chainrun.text.shown`).
 
     Also a note for each input skipped for a reason worth knowing (named twice, a
     link loop); not for files that are plainly not audio. After Ctrl-C, the files
@@ -105,16 +121,16 @@ def error_lines(document: dict) -> list[str]:
         status, message = f.get("status"), f.get("message")
         word = STATUSES[status].error_word if status in STATUSES else ""
         if word and not (interrupted and message == INTERRUPTED):
-            lines.append(f"{f['input']}: {word}: {message}")
+            lines.append(f"{shown(f['input'])}: {word}: {shown(message)}")
         elif status == SKIPPED and message not in QUIET_SKIPS:
-            lines.append(f"{f['input']}: note: skipped: {message}")
+            lines.append(f"{shown(f['input'])}: note: skipped: {shown(message)}")
     return lines
 
 
 def csv_fields(document: dict) -> tuple[str, ...]:
     """The CSV's columns: the file's, then in_<key> and out_<key> of each headline meter figure, then the result's."""
     keys = [h["key"] for h in document.get("headline_fields") or []]
-    return (_CSV_FILE_FIELDS + tuple(f"in_{k}" for k in keys) + tuple(f"out_{k}" for k in keys)
+    return (CSV_FILE_FIELDS + tuple(f"in_{k}" for k in keys) + tuple(f"out_{k}" for k in keys)
             + _CSV_RESULT_FIELDS)
 
 
@@ -132,7 +148,16 @@ def _csv_row(f: dict, headline: list[dict], fields: tuple[str, ...]) -> dict:
             row[f"{side}_{h['key']}"] = "" if value is None else value
     row.update(over_db=_db_text(f.get("over_db")), trim_db=_db_text(f.get("trim_db")),
                gain_db=_db_text(f.get("gain_db")))
+    for k in _CSV_TEXT_FIELDS:
+        if isinstance(row.get(k), str):
+            row[k] = _csv_text_cell(row[k])
     return {k: ("" if row.get(k) is None else row.get(k)) for k in fields}
+
+
+def _csv_text_cell(text: str) -> str:
+    """A text cell on one line (:func:`~chainrun.text.shown`) that no spreadsheet runs as a formula."""
+    text = shown(text)
+    return "'" + text if text.startswith(_FORMULA_START) else text
 
 
 def csv_text(document: dict) -> str:
