@@ -123,7 +123,6 @@ def test_run_into_a_folder_whose_name_is_not_utf8_prints_its_summary(tmp_path, w
     assert os.path.exists(out + b"/take.wav")
 
 
-@pytest.mark.xfail(strict=True, reason="cli not yet patched")
 def test_check_of_a_recipe_whose_name_is_not_utf8_prints_every_result(tmp_path):
     (tmp_path / "a.yaml").write_text(GENTLE, encoding="utf-8")
     with open(os.fsencode(str(tmp_path)) + b"/m\xe9t\xe9o.yaml", "w", encoding="utf-8") as fh:

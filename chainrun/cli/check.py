@@ -8,14 +8,14 @@ import sys
 
 from ..version import __version__
 from ..app import DEFAULT_RATES, check
-from ..text import fmt_db
+from ..text import fmt_db, shown
 from .common import EXIT_NOT_OK, EXIT_OK, _err
 
 
 def _print_check(entry: dict) -> None:
-    title = f"{entry['path']}"
+    title = f"{shown(entry['path'])}"
     if "name" in entry:
-        title += f"  \"{entry['name']}\"  {entry['sections']} section(s)"
+        title += f"  \"{shown(entry['name'])}\"  {entry['sections']} section(s)"
     print(title)
     if entry["rates"]:
         print(f"  {'rate':>9}  {'biquads':>7}  {'max pole radius':>15}  {'60 dB decay':>11}  "

@@ -4,10 +4,11 @@ from __future__ import annotations
 import argparse
 
 from ..app import plot
+from ..text import shown
 from .common import EXIT_OK, _err
 
 
 def main(args: argparse.Namespace) -> int:
     plot(args.recipe, args.rate, args.output, warn=_err)
-    print(args.output)
+    print(shown(args.output))
     return EXIT_OK
