@@ -95,7 +95,8 @@ def console_summary(document: dict, paths: dict[str, str] | None = None, limit: 
 def error_lines(document: dict) -> list[str]:
     """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr.
 
-    Also a note for each input skipped for a reason worth knowing (named twice, a
+    Also the notes on malformed metadata of delivered files (one line each, naming the
+    file, the chunk and its byte offset), and a note for each input skipped for a reason worth knowing (named twice, a
     link loop); not for files that are plainly not audio. After Ctrl-C, the files
     not rendered because of it are left to the report and the closing line.
     """
@@ -108,6 +109,7 @@ def error_lines(document: dict) -> list[str]:
             lines.append(f"{f['input']}: {word}: {message}")
         elif status == SKIPPED and message not in QUIET_SKIPS:
             lines.append(f"{f['input']}: note: skipped: {message}")
+        lines.extend((f.get("metadata") or {}).get("notes") or [])    # malformed metadata, each located
     return lines
 
 
