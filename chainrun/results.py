@@ -64,9 +64,10 @@ class FileResult:
     clipped_by_chainrun: int = 0         # samples hard-clipped by policy or quantiser
     seconds: float = 0.0
     extra: dict = field(default_factory=dict)
+    metadata: dict | None = None         # chunks carried, rewritten or dropped; notes (audio.metadata.carry)
 
     _RECORDED = ("status", "message", "out_format", "out_subtype", "dither", "over_db", "trim_db", "gain_db",
-                 "clipped_by_chainrun", "seconds")
+                 "clipped_by_chainrun", "seconds", "metadata")
 
     def to_record(self) -> dict:
         """What a journal keeps of a delivered file, to report it again without rendering it."""

@@ -98,10 +98,10 @@ def full_scale(subtype: str) -> float:
     return (2 ** (bits - 1) - 1) / 2 ** (bits - 1) if bits else 1.0
 
 
-def output_format(src: Source, subtype: str) -> tuple[str, str]:
+def output_format(src: Source, subtype: str, extra: int = 0) -> tuple[str, str]:
     """Container and subtype of the output for ``src`` (``subtype`` may be ``same``).
 
-    WAV outputs that would pass 4 GiB become RF64; an AIFF output cannot (its size fields are
+    WAV outputs that would pass 4 GiB (their samples and ``extra`` bytes of metadata) become RF64; an AIFF output cannot (its size fields are
     32-bit too, and there is no 64-bit AIFF), so it is refused before anything is written.
 
     Raises
@@ -114,7 +114,7 @@ def output_format(src: Source, subtype: str) -> tuple[str, str]:
         raise AudioError(f"its encoding {src.subtype} cannot be written back as it is; "
                          "set output.subtype to one of PCM_16, PCM_24, PCM_32, FLOAT, DOUBLE")
     fmt = src.format
-    nbytes = src.frames * src.channels * SUBTYPES[out_subtype].width
+    nbytes = src.frames * src.channels * SUBTYPES[out_subtype].width + extra
     row = CONTAINERS.get(fmt)
     if row is not None and row.size32 and nbytes > RF64_THRESHOLD:
         if row.large is None:

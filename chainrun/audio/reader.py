@@ -17,6 +17,7 @@ from ..errors import AudioError
 from ..interrupt import stop_point as _stop_point
 from . import sndfile
 from .formats import _UNPACKED_24, sample_bytes
+from .metadata.carry import read_source_meta
 from .source import Source
 
 __all__ = ["probe", "cut_short", "unpack24"]
@@ -35,12 +36,41 @@ def probe(path: str) -> Source:
         info = sf.info(_sf_path(path))
     except (sf.LibsndfileError, RuntimeError, OSError, ValueError) as exc:
         raise AudioError(_why(exc)) from None
-    if info.frames <= 0:
+    meta = read_source_meta(path, info.format)
+    frames = _streamed_frames(meta, int(info.frames))
+    if frames <= 0:
         raise AudioError("holds no audio frames; nothing to filter")
     if info.channels <= 0 or info.samplerate <= 0:
         raise AudioError("declares no channels or no sample rate; the header is damaged")
-    return Source(path, int(info.samplerate), int(info.channels), int(info.frames),
-                  info.format, info.subtype, st.st_size, st.st_mtime_ns)
+    return Source(path, int(info.samplerate), int(info.channels), frames, info.format, info.subtype,
+                  st.st_size, st.st_mtime_ns, meta.channel_mask if meta else None, meta)
+
+
+def _streamed_frames(meta, frames: int) -> int:
+    """The frames of audio in a WAV whose 'data' size is a streaming placeholder (0, 0x7FFFFFFF,
+    0xFFFFFFFF); ``frames`` (libsndfile's count) for any other file.
+
+    libsndfile takes such a chunk to run to the end of the file, so a LIST chunk after it would
+    be read as samples; the chunk layout tells where the audio really ends.
+
+    Raises
+    ------
+    AudioError
+        If the end of the audio cannot be told, or libsndfile cannot read up to it.
+    """
+    layout = meta.layout if meta is not None and meta.kind == "riff" else None
+    data = next((c for c in layout.chunks if c.id == "data"), None) if layout is not None else None
+    if data is None or data.size not in _UNKNOWN_LENGTH:
+        return frames
+    if layout.audio_error:
+        raise AudioError(f"{layout.audio_error} (its 'data' size {data.size:#x} is a streaming placeholder); "
+                         "not rendered, repair its header")
+    align = layout.fmt.block_align if layout.fmt and layout.fmt.block_align else 1
+    real = layout.data_size // align
+    if real > frames:
+        raise AudioError(f"its 'data' size {data.size:#x} is a streaming placeholder and only {frames} of its "
+                         f"{real} frames can be read; not rendered, repair its header")
+    return real
 
 
 def _sf_path(path: str) -> str | bytes:
@@ -174,11 +204,14 @@ class _Blocks:
 
     def _read(self) -> np.ndarray:
         """The next block, channel-major; empty at the end of the data."""
+        want = min(self.block, self.src.frames - self.done)    # never past the audio (a streamed WAV's LIST)
+        if want <= 0:
+            return np.empty((self.src.channels, 0), dtype=np.float64)
         if not self.raw:
-            got = self.f.read(self.block, dtype="float64", always_2d=True, out=self.buf)
+            got = self.f.read(want, dtype="float64", always_2d=True, out=self.buf)
             return got.T.copy()       # a new channel-major array: the buffer is reused for the next read
         # libsndfile stops at the last frame of the data chunk and keeps the position.
-        got = sndfile.read_raw(self.f, self.ptr, self.block * self.frame_bytes)
+        got = sndfile.read_raw(self.f, self.ptr, want * self.frame_bytes)
         n = max(got, 0) // self.frame_bytes
         x = np.empty((self.src.channels, n), dtype=np.float64)
         return unpack24(self.bytes, n, self.src.channels, x, self.scratch) if n else x

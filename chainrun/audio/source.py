@@ -1,7 +1,7 @@
 """What an input file holds, from its header (no audio read)."""
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 __all__ = ["Source"]
 
@@ -18,6 +18,9 @@ class Source:
     subtype: str
     size: int
     mtime_ns: int
+    channel_mask: int | None = None     # WAVE_FORMAT_EXTENSIBLE speaker mask, if the header has one
+    # The metadata layout read at probe time (a chainrun.audio.metadata.carry.SourceMeta), or None.
+    meta: object | None = field(default=None, compare=False, repr=False)
 
     @property
     def duration_s(self) -> float:

@@ -9,11 +9,12 @@ import soundfile as sf
 from ..errors import AudioError
 from . import sndfile
 from .formats import _PACKED_24
+from .metadata.carry import MetaError, OutputMeta
 from .quantise import Quantiser
 from .reader import _sf_path
 from .source import Source
 
-__all__ = ["_Output"]
+__all__ = ["_Output", "meta_failure"]
 
 
 def _write_raw(f: sf.SoundFile, words: np.ndarray, nbytes: int) -> int:
@@ -29,7 +30,7 @@ class _Output:
     Both give the same bytes (tests/test_render.py checks it for each container).
     """
 
-    def __init__(self, path: str, src: Source, fmt: str, subtype: str):
+    def __init__(self, path: str, src: Source, fmt: str, subtype: str, meta: OutputMeta | None = None):
         self.path, self.fmt, self.subtype = path, fmt, subtype
         try:
             self.f = sf.SoundFile(_sf_path(path), "w", src.rate, src.channels, subtype, format=fmt)
@@ -37,6 +38,12 @@ class _Output:
             raise AudioError(f"cannot create the output: {_sf_reason(None, exc)}; nothing was delivered") from None
         # The PEAK chunk of float WAV/AIFF carries a time stamp; without it reruns are bit-identical.
         sndfile.no_peak_chunk(self.f)
+        if meta is not None:                  # room for the input's metadata, before the first write
+            try:
+                meta.prepare(self.f)
+            except MetaError as exc:
+                self.f.close()
+                raise AudioError(meta_failure(exc)) from None
         self.packed = (subtype == "PCM_24" and fmt in _PACKED_24 and sys.byteorder == "little")
         self.big_endian = _PACKED_24.get(fmt, False)
         self._bytes: np.ndarray | None = None
@@ -82,6 +89,11 @@ class _Output:
 
     def __exit__(self, *exc) -> None:
         self.close()
+
+
+def meta_failure(exc: MetaError) -> str:
+    """A :class:`MetaError` (one line naming the temporary file) as a file's failure message."""
+    return f"cannot write its metadata: {str(exc).split(': error: ', 1)[-1]}; nothing was delivered"
 
 
 def _clear_rf64_peak_time(path: str) -> None:

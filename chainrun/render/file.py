@@ -18,7 +18,10 @@ import soundfile as sf
 from ..audio.formats import full_scale, output_format
 from ..audio.quantise import Quantiser, seed_for, wants_dither
 from ..audio.reader import _Blocks, _why
+from ..audio.metadata.carry import MetaError, OutputMeta
 from ..audio.source import Source
+from ..audio.writer import meta_failure
+from .. import __version__
 from ..errors import AudioError
 from ..fsutil import fsync_path as _fsync_path, remove_quietly as _remove_quietly, temp_path_for
 from ..meters import MeterBank
@@ -46,6 +49,7 @@ class _Run:
     filt: _Filter
     meter_args: dict
     scratch: str | None = None
+    meta: OutputMeta | None = None
 
 
 def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Policy,
@@ -81,7 +85,8 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
     try:
         if os.path.exists(dst) and os.path.samefile(dst, src.path):
             raise AudioError("the output would overwrite the input; refused")
-        fmt, out_subtype = output_format(src, policy.subtype)
+        meta = OutputMeta(src.meta, policy.metadata, policy.history or f"chainrun {__version__}")
+        fmt, out_subtype = output_format(src, policy.subtype, meta.extra_bytes())
         res.out_format, res.out_subtype = fmt, out_subtype
         res.dither = wants_dither(policy.dither, src.subtype, out_subtype)
         in_meter = MeterBank(src.rate, src.channels, full_scale=full_scale(src.subtype),
@@ -93,7 +98,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         # output is still metered for it, only the input is not.
         out_true_peak = policy.true_peak or policy.true_peak_ceiling_dbtp is not None
         run = _Run(src, dst, temp_path_for(dst), fmt, out_subtype, out_fs, res, in_meter, quantise, filt,
-                   dict(true_peak=out_true_peak, max_regions=policy.max_regions))
+                   dict(true_peak=out_true_peak, max_regions=policy.max_regions), meta=meta)
         on_over = ON_OVER[policy.on_over](policy)
         out_meter, over = on_over.render(run)
         if on_over.refuse(res, over):
@@ -104,6 +109,11 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
 
         at_ceiling = res.clipped_by_chainrun          # by the clip policy; the rest by the word length
         res.clipped_by_chainrun += quantise.clipped
+        try:    # bext v2 loudness: pass the output's measurements here once they are metered
+            meta.finish(run.tmp, loudness=None)
+        except MetaError as exc:
+            raise AudioError(meta_failure(exc)) from None
+        res.metadata = meta.listing()
         _check_unchanged(src)
         _fsync_path(run.tmp)
         os.replace(run.tmp, dst)

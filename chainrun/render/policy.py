@@ -13,6 +13,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from .. import __version__
 from ..audio.reader import _Blocks
 from ..audio.writer import _Output
 from ..errors import BatchError
@@ -52,6 +53,8 @@ class Policy:
     true_peak: bool = True
     max_regions: int = 20
     threads: int = 1
+    metadata: bool = True
+    history: str = ""
 
     @property
     def ceiling(self) -> float:
@@ -73,16 +76,20 @@ class Policy:
         g, o = recipe.guard, recipe.output
         return cls(on_over=on_over or g.on_over, ceiling_dbfs=g.ceiling_dbfs,
                    true_peak_ceiling_dbtp=g.true_peak_ceiling_dbtp, subtype=o.subtype, dither=o.dither,
-                   block_size=block, true_peak=true_peak)
+                   block_size=block, true_peak=true_peak,
+                   metadata=getattr(o, "metadata", "keep") == "keep",
+                   history=f"chainrun {__version__} {getattr(recipe, 'name', '')}".strip())
 
     def output_key(self) -> dict:
         """The fields that decide an output's bytes (besides the input and the recipe), by name.
 
         Block size, threads and metering never change the output, so they are not in it.
+        ``metadata`` and ``history`` are: the history text (it names the recipe, which the
+        recipe's digest leaves out) is written into the bext chunk of an output.
         """
         return {"on_over": self.on_over, "ceiling_dbfs": self.ceiling_dbfs,
                 "true_peak_ceiling_dbtp": self.true_peak_ceiling_dbtp, "subtype": self.subtype,
-                "dither": self.dither}
+                "dither": self.dither, "metadata": self.metadata, "history": self.history}
 
 
 def _over(peak: float, true_peak: float | None, policy: Policy) -> float:
@@ -119,7 +126,7 @@ class OnOver:
         policy, res, filt, src = self.policy, run.res, run.filt, run.src
         out_meter = MeterBank(src.rate, src.channels, full_scale=self.meter_full_scale(run.out_fs), **run.meter_args)
         reader = _Blocks(src, policy.block_size, run.in_meter)
-        out = _Output(run.tmp, src, run.fmt, run.out_subtype)
+        out = _Output(run.tmp, src, run.fmt, run.out_subtype, run.meta)
         try:
             def process(item):
                 frame0, x, x_peak = item
@@ -240,7 +247,7 @@ class Scale(OnOver):
         res.over_db = over if over > 0 else None
         # Pass 2: scale, meter, quantise, write.
         out_meter = MeterBank(src.rate, src.channels, full_scale=run.out_fs, **run.meter_args)
-        with _Output(run.tmp, src, run.fmt, run.out_subtype) as out:
+        with _Output(run.tmp, src, run.fmt, run.out_subtype, run.meta) as out:
             def pass2(y):
                 extremes = y.max(axis=1), y.min(axis=1)
                 out_meter.update(y, extremes)

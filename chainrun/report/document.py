@@ -70,6 +70,14 @@ def _meters_dict(reading) -> dict | None:
     return d
 
 
+def _metadata_dict(m: dict | None) -> dict | None:
+    """What became of the input's metadata chunks or blocks, with the notes, as JSON-safe data."""
+    if m is None:
+        return None
+    return {"container": m.get("container"), "items": [dict(i) for i in m.get("items") or []],
+            "notes": [shown(n) for n in m.get("notes") or []], "changes": list(m.get("changes") or [])}
+
+
 def file_dict(r: FileResult) -> dict:
     """One file's result as JSON-safe data."""
     s = r.source
@@ -84,6 +92,7 @@ def file_dict(r: FileResult) -> dict:
         "clipped_by_chainrun": r.clipped_by_chainrun, "seconds": round(r.seconds, 4),
         "input_meters": _meters_dict(r.input_meters),
         "output_meters": _meters_dict(r.output_meters),
+        "metadata": _metadata_dict(r.metadata),
     }
     d.update(r.extra)
     return d
@@ -102,6 +111,7 @@ def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
             "on_over": b.policy.on_over, "ceiling_dbfs": b.policy.ceiling_dbfs,
             "true_peak_ceiling_dbtp": b.policy.true_peak_ceiling_dbtp, "subtype": b.policy.subtype,
             "dither": b.policy.dither, "block_size": b.policy.block_size,
+            "metadata": "keep" if getattr(b.policy, "metadata", True) else "drop",
         },
         "rates": [
             {"rate_hz": rate, "usable": d.usable, "error": d.error,

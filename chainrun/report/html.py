@@ -184,9 +184,25 @@ def _files_table(ordered: list[dict]) -> list[str]:
             + db_cell(om, "peak_dbfs")
             + db_cell(om, "true_peak_dbtp")
             + clip_cell
-            + f"<td class=\"msg\">{esc(f.get('message'))}</td></tr>")
+            + f"<td class=\"msg\">{esc(f.get('message'))}{_metadata_line(f)}</td></tr>")
     out += ["</tbody></table></div>"]
     return out
+
+
+def _metadata_line(f: dict) -> str:
+    """One small line under a delivered file's message: how many metadata chunks were carried,
+    rewritten and dropped (each named in its tooltip), and the notes on malformed ones."""
+    m = f.get("metadata") or {}
+    items = [i for i in m.get("items") or [] if i.get("action") != "rewritten" or i.get("chunk") == "bext"]
+    if not items and not m.get("notes"):
+        return ""
+    parts = []
+    for action in ("carried", "rewritten", "dropped"):
+        names = [str(i.get("chunk") or i.get("block")).strip() for i in items if i.get("action") == action]
+        if names:
+            parts.append(f'<span title="{esc(", ".join(names))}">{len(names)} {action}</span>')
+    notes = "".join(f"<br>{esc(n)}" for n in m.get("notes") or [])
+    return f'<div class="sub">metadata: {", ".join(parts) or "none"}{notes}</div>'
 
 
 def _has_regions(f: dict) -> bool:

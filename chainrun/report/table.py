@@ -111,7 +111,8 @@ def error_lines(document: dict) -> list[str]:
     """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr
     (names and messages through :func:`~chainrun.text.shown`).
 
-    Also a note for each input skipped for a reason worth knowing (named twice, a
+    Also the notes on malformed metadata of delivered files (one line each, naming the
+    file, the chunk and its byte offset), and a note for each input skipped for a reason worth knowing (named twice, a
     link loop); not for files that are plainly not audio. After Ctrl-C, the files
     not rendered because of it are left to the report and the closing line.
     """
@@ -124,6 +125,7 @@ def error_lines(document: dict) -> list[str]:
             lines.append(f"{shown(f['input'])}: {word}: {shown(message)}")
         elif status == SKIPPED and message not in QUIET_SKIPS:
             lines.append(f"{shown(f['input'])}: note: skipped: {shown(message)}")
+        lines.extend(shown(n) for n in (f.get("metadata") or {}).get("notes") or [])   # malformed metadata, located
     return lines
 
 
