@@ -21,7 +21,7 @@ from ..audio.reader import _Blocks, _why
 from ..audio.metadata.carry import MetaError, OutputMeta
 from ..audio.source import Source
 from ..audio.writer import meta_failure
-from .. import __version__
+from ..version import __version__
 from ..errors import AudioError
 from ..fsutil import fsync_path as _fsync_path, remove_quietly as _remove_quietly, temp_path_for
 from ..meters import MeterBank

@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .. import __version__
+from ..version import __version__
 from ..audio.reader import _Blocks
 from ..audio.writer import _Output
 from ..errors import BatchError
