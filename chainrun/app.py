@@ -15,6 +15,7 @@ import os
 from dataclasses import dataclass, field
 from typing import Callable
 
+from .audio.metadata import metadata_summary
 from .batch.discover import discover
 from .batch.plan import design_and_assess, probe_job
 from .batch.run import MAX_WORKERS, BatchResult, claimed, execute
@@ -224,7 +225,11 @@ def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | 
 # --------------------------------------------------------------------------- scan
 
 def scan(inputs: list[str], true_peak: bool = True) -> list[FileResult]:
-    """Meter existing files (found as a batch finds them); writes nothing.
+    """Meter existing files (found as a batch finds them) and summarise their metadata; writes nothing.
+
+    Each readable file's ``extra["metadata"]`` holds
+    :func:`~chainrun.audio.metadata.metadata_summary` (description, time reference, iXML scene
+    and take, the chunk list, notes on malformed metadata).
 
     Raises
     ------
@@ -238,7 +243,9 @@ def scan(inputs: list[str], true_peak: bool = True) -> list[FileResult]:
         if isinstance(src, FileResult):
             results.append(src)
             continue
-        results.append(scan_file(src, true_peak=true_peak, relpath=job.relpath))
+        r = scan_file(src, true_peak=true_peak, relpath=job.relpath)
+        r.extra["metadata"] = metadata_summary(src)
+        results.append(r)
     results.extend(plan.skipped)
     return results
 

@@ -289,3 +289,22 @@ def test_rf64_promotion_counts_the_metadata_bytes(tmp_path):
     big = replace(src, frames=frames)
     assert output_format(big, "same") == ("WAV", "PCM_24")
     assert output_format(big, "same", extra) == ("RF64", "PCM_24")
+
+
+def test_scan_shows_a_take_s_metadata(tmp_path, capsys):
+    # README "Commands": scan shows each file's metadata summary; --json gives all of it.
+    # EBU Tech 3285: the time reference counts samples since midnight, so TIME_REF at 48 kHz is
+    # 10:00:05 and 123 samples (analytic).
+    (tmp_path / "in").mkdir()
+    take = tmp_path / "in" / "take3.wav"
+    wav(take, before=ck(b"bext", bext_payload()) + ck(b"iXML", IXML), after=INFO + ck(b"cue ", cue_payload()))
+    assert main(["scan", str(take)]) == 0
+    out = capsys.readouterr().out
+    line = out.splitlines()[2]
+    assert "description 'Boathouse interview, take 3'" in line and "time reference 10:00:05:00123" in line
+    assert "scene 12A" in line and "take 3" in line
+    assert "carries bext, iXML, LIST, cue" in line and "fmt" not in line
+    assert main(["scan", "--json", str(take)]) == 0
+    meta = json.loads(capsys.readouterr().out)["files"][0]["metadata"]
+    assert meta["time_reference"] == TIME_REF and meta["scene"] == "12A" and meta["take"] == "3"
+    assert [c["id"] for c in meta["chunks"]] == ["fmt ", "bext", "iXML", "data", "LIST", "cue "]

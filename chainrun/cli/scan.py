@@ -13,6 +13,29 @@ from ..text import fmt_db, shown
 from .common import EXIT_NOT_OK, EXIT_OK, _err
 
 
+_LAYOUT_CHUNKS = {"fmt ", "data", "fact", "ds64", "JUNK", "PAD ", "FLLR", "COMM", "SSND", "FVER",
+                  "STREAMINFO", "SEEKTABLE", "PADDING"}     # describe the audio or fill space: not shown
+
+
+def _metadata_line(meta: dict | None) -> str:
+    """One line of a file's metadata for the scan table: what a recordist looks for first."""
+    if not meta:
+        return ""
+    parts = []
+    if meta.get("description"):
+        parts.append(f"description '{meta['description']}'")
+    if meta.get("time_reference_hms"):
+        parts.append(f"time reference {meta['time_reference_hms']}")
+    for key in ("scene", "take"):
+        if meta.get(key):
+            parts.append(f"{key} {meta[key]}")
+    chunks = [c["id"].strip() or repr(c["id"]) for c in meta.get("chunks") or [] if c["id"] not in _LAYOUT_CHUNKS]
+    if chunks:
+        parts.append("carries " + ", ".join(chunks))
+    parts += [f"note: {n}" for n in meta.get("notes") or []]
+    return shown("; ".join(parts)) if parts else ""
+
+
 def main(args: argparse.Namespace) -> int:
     results = scan(args.inputs, true_peak=not args.no_true_peak)
     if args.json:
@@ -31,6 +54,9 @@ def main(args: argparse.Namespace) -> int:
             print(f"{r.status:<8} {fmt_db(loudest(m, 'peak_dbfs'), 'dBFS'):>11} "
                   f"{fmt_db(loudest(m, 'true_peak_dbtp'), 'dBTP'):>11} "
                   f"{fmt_db(loudest(m, 'rms_dbfs'), 'dBFS'):>11} {clipped:>8}  {shown(r.relpath)}")
+            line = _metadata_line(r.extra.get("metadata"))
+            if line:
+                print(f"{'':<8} {line}")
     bad = [r for r in results if r.status in (FAILED, CLIPPED)]
     for r in bad:
         _err(f"{shown(r.input)}: {STATUSES[r.status].error_word}: {shown(r.message)}")
