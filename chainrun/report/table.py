@@ -14,12 +14,14 @@ from typing import Any
 from ..results import DELIVERED, INTERRUPTED, QUIET_SKIPS, SKIPPED, STATUS_ORDER, STATUSES
 from ..text import fmt_db
 
-__all__ = ["channels_of", "worst_first", "meter_figure", "console_summary", "error_lines", "csv_fields", "csv_text"]
+__all__ = ["channels_of", "worst_first", "meter_figure", "loudness_text", "console_summary", "error_lines", "csv_fields",
+           "csv_text", "BELOW_GATE"]
 
 # The file columns of the CSV, split where the meter columns (in_<key>, out_<key>) go.
 _CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
                     "out_format", "out_subtype", "dither")
-_CSV_RESULT_FIELDS = ("over_db", "trim_db", "gain_db", "clipped_by_chainrun", "seconds")
+_CSV_RESULT_FIELDS = ("over_db", "trim_db", "gain_db", "clipped_by_chainrun", "seconds", "loudness_gain_db",
+                      "loudness_shortfall_lu")
 
 # The console table's meter columns: (heading, width, which meters, key, unit).
 _CONSOLE_COLUMNS = (
@@ -27,6 +29,9 @@ _CONSOLE_COLUMNS = (
     ("out true peak", 13, "output_meters", "true_peak_dbtp", "dBTP"),
     ("in peak", 11, "input_meters", "peak_dbfs", "dBFS"),
 )
+# Its loudness columns, shown when some file's loudness was metered: (heading, width, which meters).
+_CONSOLE_LOUDNESS = (("in loudness", 11, "input_meters"), ("out loudness", 12, "output_meters"))
+BELOW_GATE = "below gate"     # a loudness below the -70 LUFS gate: silence, or shorter than one 400 ms block
 
 
 def channels_of(meters: dict | None) -> list[dict]:
@@ -60,6 +65,15 @@ def meter_figure(meters: dict | None, key: str, unit: str = "") -> Any:
     return None
 
 
+def loudness_text(meters: dict | None, key: str = "integrated_lufs", unit: str = "LUFS") -> str:
+    """A loudness figure for a console: ``-23.0 LUFS``, ``below gate`` (metered, below the gate), ``-`` (not metered)."""
+    loud = (meters or {}).get("loudness")
+    if not loud:
+        return "-"
+    value = loud.get(key)
+    return BELOW_GATE if value is None else f"{value:.1f} {unit}"
+
+
 def worst_first(files: list[dict]) -> list[dict]:
     """Files needing attention first: failed, rejected, clipped, then by output peak, loudest first."""
     def key(f: dict):
@@ -75,10 +89,13 @@ def _audio_seconds(document: dict) -> float:
 
 def console_summary(document: dict, paths: dict[str, str] | None = None, limit: int = 40) -> str:
     """A short table, worst files first, and a totals line."""
-    lines = [f"{'status':<9} " + " ".join(f"{h:>{w}}" for h, w, *_ in _CONSOLE_COLUMNS) + "  file"]
     rows = worst_first(document.get("files") or [])
+    loud = _CONSOLE_LOUDNESS if any((f.get(m) or {}).get("loudness") for f in rows
+                                    for _, _, m in _CONSOLE_LOUDNESS) else ()
+    lines = [f"{'status':<9} " + " ".join(f"{h:>{w}}" for h, w, *_ in _CONSOLE_COLUMNS + loud) + "  file"]
     for f in rows[:limit]:
         figures = " ".join(f"{fmt_db(meter_figure(f.get(m), key), unit):>{w}}" for _, w, m, key, unit in _CONSOLE_COLUMNS)
+        figures += "".join(f" {loudness_text(f.get(m)):>{w}}" for _, w, m in loud)
         lines.append(f"{f['status']:<9} {figures}  {f['relpath']}" + (f"  ({f['message']})" if f.get("message") else ""))
     if len(rows) > limit:
         lines.append(f"... and {len(rows) - limit} more in the report")
@@ -108,6 +125,8 @@ def error_lines(document: dict) -> list[str]:
             lines.append(f"{f['input']}: {word}: {message}")
         elif status == SKIPPED and message not in QUIET_SKIPS:
             lines.append(f"{f['input']}: note: skipped: {message}")
+        elif status in DELIVERED and f.get("loudness_shortfall_lu"):
+            lines.append(f"{f['input']}: note: {message}")       # delivered short of the loudness target
     return lines
 
 
@@ -131,7 +150,8 @@ def _csv_row(f: dict, headline: list[dict], fields: tuple[str, ...]) -> dict:
                 value = _db_text(value)
             row[f"{side}_{h['key']}"] = "" if value is None else value
     row.update(over_db=_db_text(f.get("over_db")), trim_db=_db_text(f.get("trim_db")),
-               gain_db=_db_text(f.get("gain_db")))
+               gain_db=_db_text(f.get("gain_db")), loudness_gain_db=_db_text(f.get("loudness_gain_db")),
+               loudness_shortfall_lu=_db_text(f.get("loudness_shortfall_lu")))
     return {k: ("" if row.get(k) is None else row.get(k)) for k in fields}
 
 
