@@ -311,3 +311,44 @@ def test_reports_show_input_and_output_loudness_and_the_gain(tmp_path, write_aud
     assert any("note:" in li and "short of the loudness target" in li for li in error_lines(doc))
     page = render_html(doc)
     assert "output loudness" in page and "loudness gain" in page
+
+
+# --- linked gain: the pieces the batch calls -------------------------------------------------------
+
+def test_linked_group_gets_one_gain_and_reaches_the_target_together(tmp_path, write_audio):
+    from chainrun.render.loudness import group_of, measure_file
+
+    loud, quiet = programme(20, seed=8), programme(20, seed=8, scale=10 ** (-8 / 20))    # 8 dB apart
+    paths = [write_audio(f"in/{n}.wav", x, RATE, "PCM_24") for n, x in (("loud", loud), ("quiet", quiet))]
+    policy = Policy(on_over="scale", target_lufs=-20.0, loudness_link="folder", true_peak_ceiling_dbtp=-1.0)
+    srcs = [probe(str(p)) for p in paths]
+    group = group_of([measure_file(s, HIGHPASS, l1_bound(HIGHPASS), policy) for s in srcs])
+    assert group.files == 2
+    out = tmp_path / "out"
+    out.mkdir()
+    results = [render_file(s, str(out / f"{n}.wav"), HIGHPASS, l1_bound(HIGHPASS), policy, f"{n}.wav",
+                           group=group) for s, n in zip(srcs, ("loud", "quiet"))]
+    assert [r.status for r in results] == ["ok", "ok"]
+    assert results[0].loudness_gain_db == results[1].loudness_gain_db            # one gain for the group
+    ys = [reread(r.output) for r in results]
+    # the files keep their 8 dB difference (analytic: one gain), so neither alone is at the target
+    assert abs((ref_lufs(ys[0]) - ref_lufs(ys[1])) - 8.0) <= 0.05
+    assert abs(ref_lufs(ys[1]) - (-20.0)) > 2.0
+    # pyloudnorm (reference library) over the two files end to end: both files are whole multiples of
+    # 100 ms, so its gating blocks are the two files' own plus three that straddle the join (~0.05 LU)
+    assert abs(ref_lufs(np.concatenate(ys)) - (-20.0)) <= 0.1
+
+
+def test_group_of_one_file_is_the_file_itself(tmp_path, write_audio):
+    from chainrun.render.loudness import group_of, measure_file
+
+    policy = Policy(on_over="scale", target_lufs=-20.0)
+    single = render(write_audio, tmp_path, programme(10, seed=10), policy, name="one.wav", outdir="single")
+    src = probe(single.input)
+    group = group_of([measure_file(src, HIGHPASS, l1_bound(HIGHPASS), policy)])
+    # analytic: the group of one file has that file's own loudness, so the gain is the same to the bit
+    assert group.integrated_lufs == pytest.approx(-20.0 - single.loudness_gain_db, abs=1e-9)
+    linked = render_file(src, str(tmp_path / "linked.wav"), HIGHPASS, l1_bound(HIGHPASS), policy, "one.wav",
+                         group=group)
+    assert linked.loudness_gain_db == single.loudness_gain_db
+    assert reread(linked.output).tobytes() == reread(single.output).tobytes()

@@ -72,7 +72,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["LoudnessMeter", "LoudnessReading", "k_weighting_sos", "channel_weights"]
+__all__ = ["LoudnessMeter", "LoudnessReading", "k_weighting_sos", "channel_weights", "integrated_of"]
 
 # ITU-R BS.1770-4 Annex 1, Table 1 (stage 1, shelving filter) and Table 2 (stage 2, high-pass),
 # both at 48 kHz: (b0, b1, b2), (1, a1, a2).
@@ -302,6 +302,31 @@ class _Histogram:
         return count, int(count.sum()), float(power.sum())
 
 
+def integrated_of(histograms) -> float | None:
+    """Integrated loudness (BS.1770-4 gating) of the gating blocks of several streams taken together.
+
+    Parameters
+    ----------
+    histograms : iterable of (numpy.ndarray, numpy.ndarray)
+        :meth:`LoudnessMeter.gating_histogram` of each stream, in a fixed order
+        (the power sums are added in that order).
+
+    Returns
+    -------
+    float or None
+        LUFS; None when no block of any stream is above the gate.  One stream
+        gives exactly its own ``integrated_lufs``.
+    """
+    total = _Histogram()
+    for count, power in histograms:
+        total.count += count
+        total.power += power
+    kept = total.kept(_REL_GATE_I)
+    if kept is None or not kept[1]:
+        return None
+    return _lufs(kept[2] / kept[1])
+
+
 class LoudnessMeter:
     """Streaming BS.1770-4 / EBU Tech 3341 / Tech 3342 loudness meter (see the module notes).
 
@@ -466,12 +491,18 @@ class LoudnessMeter:
             hist.add(z[starts % _STEP == 0])
         self._tail = e[-(_SHORT - 1):].copy()
 
+    def gating_histogram(self) -> tuple[np.ndarray, np.ndarray]:
+        """Copies of the gating-block histogram: per 0.005 LU bin, the count and the sum of mean squares.
+
+        :func:`integrated_of` combines several streams' histograms into the
+        integrated loudness of all their gating blocks together.
+        """
+        return self._blocks.count.copy(), self._blocks.power.copy()
+
     def reading(self) -> LoudnessReading:
         """The figures so far; the meter can go on being updated."""
-        integrated = lra = None
-        kept = self._blocks.kept(_REL_GATE_I)
-        if kept is not None and kept[1]:
-            integrated = _lufs(kept[2] / kept[1])
+        integrated = integrated_of([(self._blocks.count, self._blocks.power)])
+        lra = None
         kept = self._short.kept(_REL_GATE_LRA)
         if kept is not None and kept[1]:
             count, n, _ = kept

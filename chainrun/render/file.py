@@ -25,7 +25,7 @@ from ..meters import MeterBank
 from ..results import CLIPPED, FAILED, OK, FileResult
 from ..text import db as _db
 from .filter import _Filter
-from .loudness import Target
+from .loudness import Group, Target
 from .policy import DEFAULT_BLOCK, ON_OVER, Policy
 
 __all__ = ["render_file", "scan_file"]
@@ -50,7 +50,7 @@ class _Run:
 
 
 def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Policy,
-                seed_key: str, relpath: str | None = None) -> FileResult:
+                seed_key: str, relpath: str | None = None, group: Group | None = None) -> FileResult:
     """Filter one file into ``dst`` atomically.
 
     Parameters
@@ -68,6 +68,10 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         Headroom policy, ceilings, output format, block size.
     seed_key
         Seeds the dither (the file's relative path).
+    group
+        With a loudness target linked over a folder or the batch: the group's loudness and
+        headroom (:func:`chainrun.render.loudness.group_of`), which decide the gain instead of
+        the file's own.
 
     Returns
     -------
@@ -98,7 +102,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         run = _Run(src, dst, temp_path_for(dst), fmt, out_subtype, out_fs, res, in_meter, quantise, filt,
                    dict(true_peak=out_true_peak, max_regions=policy.max_regions,
                         loudness=policy.loudness or policy.target_lufs is not None, channel_mask=mask))
-        on_over = ON_OVER[policy.on_over](policy) if policy.target_lufs is None else Target(policy)
+        on_over = ON_OVER[policy.on_over](policy) if policy.target_lufs is None else Target(policy, group)
         out_meter, over = on_over.render(run)
         if on_over.refuse(res, over):
             _remove_quietly(run.tmp)
