@@ -114,6 +114,7 @@ _BIN_LU = 0.005
 _TOP_LUFS = 40.0
 _N_BINS = int(round((_TOP_LUFS - _ABS_GATE) / _BIN_LU))
 _CLAMP = 1.0e100
+_SLACK = 2.0 * np.finfo(np.float64).eps   # per-term rounding bound of a sum, with a factor 2 to spare
 
 
 def _power(lufs: float) -> float:
@@ -347,7 +348,8 @@ class LoudnessMeter:
     channels are not filtered), a square in place, a ``numpy.add.reduceat``
     over the 10 ms sub-blocks (no copy of the block: only the sub-block that
     straddles two blocks is joined) and window sums over at most 300 sub-block
-    energies per new sub-block; no per-sample Python code.  About 0.6 ms of CPU
+    energies per gating window and per window that may hold a maximum; no
+    per-sample Python code.  About 0.55 ms of CPU (0.41 of it the filter)
     per second of stereo 48 kHz audio (``benchmarks/loudness_cost.py``).
     State: the filter state, at most one sub-block of filtered samples, the
     last 299 sub-block energies and two histograms of 22,000 bins, whatever
@@ -473,22 +475,45 @@ class LoudnessMeter:
         self._windows(k0, energy)
 
     def _windows(self, k0: int, energy: np.ndarray) -> None:
-        """Momentary and short-term windows ending in the new sub-blocks ``k0 ..``."""
+        """Momentary and short-term windows ending in the new sub-blocks ``k0 ..``.
+
+        Every window's mean square that is used is summed exactly as one row (see below);
+        but only the gating windows (every 100 ms) and the windows that may hold the maximum
+        are summed so.  Which may: a running sum gives each window's mean square to within
+        a rounding bound (``_SLACK``), and a window whose estimate plus that bound is below
+        the best estimate minus its bound (or below the maximum so far) cannot be the
+        maximum.  The figures are those of summing every window.
+        """
         first = k0 - self._tail.shape[0]                          # sub-block of e[0]
         e = np.concatenate([self._tail, energy])
         k1 = first + e.shape[0]
+        running = None
         for span, hist, attr in ((_MOMENTARY, self._blocks, "_max_m"), (_SHORT, self._short, "_max_s")):
             s0 = max(k0 - span + 1, 0)                              # first new window's start
             if k1 - span < s0:
                 continue
             starts = np.arange(s0, k1 - span + 1, dtype=np.int64)
+            lens = self._edge(starts + span) - self._edge(starts)
+            gating = starts % _STEP == 0
+            if starts.size > _STEP:
+                if running is None:
+                    running = np.concatenate([[0.0], np.cumsum(e)])
+                off = starts - first
+                guess = (running[off + span] - running[off]) / lens
+                # energies are >= 0: a running sum is off by at most (its length) * eps * its total,
+                # and a row's own sum by at most (its length) * eps * that total as well
+                slack = (2 * e.shape[0] + span + 4) * _SLACK * running[-1] / lens
+                floor = max(float((guess - slack).max()), getattr(self, attr))
+                pick = gating | (guess + slack >= floor)
+                starts, lens, gating = starts[pick], lens[pick], gating[pick]
             # a C-contiguous copy, one row per window: numpy then sums each row on its own (pairwise),
             # the same way whatever the number of rows; a strided sliding view may be summed
             # column by column instead, which made the result depend on the block split
             rows = e[(starts - first)[:, np.newaxis] + np.arange(span)]
-            z = rows.sum(axis=1) / (self._edge(starts + span) - self._edge(starts))
-            setattr(self, attr, max(getattr(self, attr), float(z.max())))
-            hist.add(z[starts % _STEP == 0])
+            z = rows.sum(axis=1) / lens
+            if z.size:
+                setattr(self, attr, max(getattr(self, attr), float(z.max())))
+            hist.add(z[gating])
         self._tail = e[-(_SHORT - 1):].copy()
 
     def gating_histogram(self) -> tuple[np.ndarray, np.ndarray]:
