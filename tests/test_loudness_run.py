@@ -352,3 +352,15 @@ def test_group_of_one_file_is_the_file_itself(tmp_path, write_audio):
                          group=group)
     assert linked.loudness_gain_db == single.loudness_gain_db
     assert reread(linked.output).tobytes() == reread(single.output).tobytes()
+
+
+def test_unknown_link_is_refused_and_a_lone_linked_file_says_so(tmp_path, write_audio):
+    from chainrun.errors import BatchError
+
+    guard = SimpleNamespace(on_over="scale", ceiling_dbfs=-1.0, true_peak_ceiling_dbtp=None)
+    output = SimpleNamespace(subtype="same", dither="auto")
+    with pytest.raises(BatchError, match="allowed: file, folder, batch"):
+        Policy.from_recipe(SimpleNamespace(guard=guard, output=output, loudness={"target_lufs": -16, "link": "x"}))
+    res = render(write_audio, tmp_path, programme(5, seed=12),
+                 Policy(on_over="scale", target_lufs=-20.0, loudness_link="folder"))
+    assert res.status == "ok" and "measured on this file alone" in res.message

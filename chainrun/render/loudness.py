@@ -133,6 +133,8 @@ class Target(OnOver):
         self.short = decide_gain(res, policy.target_lufs, measured, room, policy.on_over == "reject")
         if self.group is not None and res.message:
             res.message += f" (one gain for the {self.group.link}'s {self.group.files} file(s))"
+        elif self.group is None and policy.loudness_link != "file" and res.message:
+            res.message += f" (measured on this file alone: no {policy.loudness_link} group was given)"
         if res.status == REJECTED:
             return pre, self.short
         return write_from_scratch(run, policy, 10.0 ** (res.loudness_gain_db / 20.0)), 0.0

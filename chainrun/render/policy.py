@@ -25,9 +25,10 @@ from .pipeline import _Scratch, _pipeline
 if TYPE_CHECKING:
     from ..recipe import Recipe
 
-__all__ = ["Policy", "DEFAULT_BLOCK", "MIN_BLOCK", "MAX_BLOCK", "ON_OVER", "Reject", "Clip", "Scale"]
+__all__ = ["Policy", "DEFAULT_BLOCK", "MIN_BLOCK", "MAX_BLOCK", "ON_OVER", "Reject", "Clip", "Scale", "LOUDNESS_LINKS"]
 
 DEFAULT_BLOCK = 65536
+LOUDNESS_LINKS = ("file", "folder", "batch")     # over what one loudness gain is measured
 MIN_BLOCK = 1
 MAX_BLOCK = 1 << 22
 
@@ -82,6 +83,8 @@ class Policy:
             raise BatchError(f"--block-size {block} is out of range; allowed: {MIN_BLOCK} to {MAX_BLOCK} frames")
         g, o = recipe.guard, recipe.output
         target, link = _loudness_of(recipe)
+        if link not in LOUDNESS_LINKS:
+            raise BatchError(f"loudness link {link!r} is not known; allowed: {', '.join(LOUDNESS_LINKS)}")
         return cls(on_over=on_over or g.on_over, ceiling_dbfs=g.ceiling_dbfs,
                    true_peak_ceiling_dbtp=g.true_peak_ceiling_dbtp, subtype=o.subtype, dither=o.dither,
                    block_size=block, true_peak=true_peak, loudness=loudness, target_lufs=target,
