@@ -62,12 +62,14 @@ class FileResult:
     trim_db: float | None = None         # a gain that would fit under the ceiling
     gain_db: float = 0.0                 # gain applied by the scale policy
     clipped_by_chainrun: int = 0         # samples hard-clipped by policy or quantiser
+    loudness_gain_db: float | None = None       # gain applied to reach the loudness target
+    loudness_shortfall_lu: float | None = None  # how far the ceiling kept the output below the target
     seconds: float = 0.0
     extra: dict = field(default_factory=dict)
     metadata: dict | None = None         # chunks carried, rewritten or dropped; notes (audio.metadata.carry)
 
     _RECORDED = ("status", "message", "out_format", "out_subtype", "dither", "over_db", "trim_db", "gain_db",
-                 "clipped_by_chainrun", "seconds", "metadata")
+                 "clipped_by_chainrun", "seconds", "metadata", "loudness_gain_db", "loudness_shortfall_lu")
 
     def to_record(self) -> dict:
         """What a journal keeps of a delivered file, to report it again without rendering it."""

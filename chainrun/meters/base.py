@@ -34,6 +34,7 @@ import numpy as np
 from ..text import db as _db
 from .clipping import ClippingMeter
 from .level import PeakMeter, RMSMeter
+from .loudness import LoudnessMeter, LoudnessReading
 from .truepeak import TruePeakMeter
 
 __all__ = ["Meter", "MeterBank", "MeterReading", "ChannelReading", "HEADLINE_FIELDS"]
@@ -56,10 +57,12 @@ class Meter(Protocol):
 
 
 # The standard bank's meters, in the order their headline figures are shown.
-_BANK_METERS = (PeakMeter, TruePeakMeter, RMSMeter, ClippingMeter)
+_BANK_METERS = (PeakMeter, TruePeakMeter, RMSMeter, ClippingMeter, LoudnessMeter)
 # (key, label, unit) of every headline figure, in order: the ordered union over the bank's meters.
 HEADLINE_FIELDS: tuple[tuple[str, str, str], ...] = tuple(dict.fromkeys(
     field for meter in _BANK_METERS for field in meter.HEADLINE))
+# Headline keys that are figures of the whole stream (the loudness meter's), not of each channel.
+_WHOLE_STREAM = frozenset(key for key, _, _ in LoudnessMeter.HEADLINE)
 
 
 def _json_float(value: float | None) -> float | None:
@@ -168,22 +171,31 @@ class MeterReading:
     true_peak_oversampling : int or None
         Oversampling factor of the true-peak meter (4, 2 or 1); None when
         true peak was not metered.
+    loudness : LoudnessReading or None
+        Loudness of the whole stream (BS.1770-4, EBU Tech 3341/3342), not per
+        channel; None when loudness was not metered.  Its figures are None
+        when below the gate (silence, or shorter than a window).
     """
 
     channels: tuple[ChannelReading, ...]
     frames: int
     rate: int
     true_peak_oversampling: int | None
+    loudness: LoudnessReading | None = None
 
     def headline(self) -> dict:
         """The figures of :data:`HEADLINE_FIELDS` for the whole stream, JSON-safe.
 
         A level is the loudest channel's (the largest value; None when no channel has
         one, as for silence in dB or a true peak not metered); a count is the sum over
-        the channels.
+        the channels.  A loudness figure is the whole stream's (None when not metered
+        or below the gate).
         """
         out: dict = {}
         for key, _, _ in HEADLINE_FIELDS:
+            if key in _WHOLE_STREAM:
+                out[key] = None if self.loudness is None else _json_float(getattr(self.loudness, key))
+                continue
             values = [getattr(c, key) for c in self.channels]
             if all(isinstance(v, (int, np.integer)) and not isinstance(v, bool) for v in values):
                 out[key] = int(sum(values))
@@ -193,20 +205,32 @@ class MeterReading:
         return out
 
     def to_dict(self) -> dict:
-        """The reading as JSON-safe plain types (see :meth:`ChannelReading.to_dict`), with ``headline``."""
-        return {
+        """The reading as JSON-safe plain types (see :meth:`ChannelReading.to_dict`), with ``headline``.
+
+        ``loudness`` (present only when loudness was metered) holds
+        :meth:`LoudnessReading.to_dict`: ``integrated_lufs``, ``loudness_range_lu``,
+        ``max_momentary_lufs``, ``max_short_term_lufs`` (None: below the gate) and how
+        the channels were weighted.
+        """
+        d = {
             "frames": int(self.frames),
             "rate": int(self.rate),
             "true_peak_oversampling": self.true_peak_oversampling,
             "channels": [c.to_dict() for c in self.channels],
-            "headline": self.headline(),
         }
+        if self.loudness is not None:
+            d["loudness"] = self.loudness.to_dict()
+        d["headline"] = self.headline()
+        return d
 
     @classmethod
     def from_dict(cls, d: dict) -> "MeterReading":
-        """Inverse of :meth:`to_dict` (``headline`` is derived, so it is not read)."""
+        """Inverse of :meth:`to_dict` (``headline`` is derived, so it is not read; a reading
+        written before loudness was metered has no ``loudness`` and loads with None)."""
+        loud = d.get("loudness")
         return cls(tuple(ChannelReading.from_dict(c) for c in d["channels"]), int(d["frames"]),
-                   int(d["rate"]), d["true_peak_oversampling"])
+                   int(d["rate"]), d["true_peak_oversampling"],
+                   LoudnessReading.from_dict(loud) if loud else None)
 
 
 class MeterBank:
@@ -230,6 +254,11 @@ class MeterBank:
     max_regions : int, optional
         How many clipped regions per channel to keep (>= 0, default 20); all
         are counted.
+    loudness : bool, optional
+        Also meter loudness (:class:`~chainrun.meters.loudness.LoudnessMeter`);
+        default False.
+    channel_mask : int, optional
+        WAVE_FORMAT_EXTENSIBLE speaker mask: chooses the loudness channel weights.
 
     Notes
     -----
@@ -252,7 +281,8 @@ class MeterBank:
     """
 
     def __init__(self, rate: int, channels: int, *, full_scale: float = 1.0,
-                 true_peak: bool = True, max_regions: int = 20) -> None:
+                 true_peak: bool = True, max_regions: int = 20, loudness: bool = False,
+                 channel_mask: int | None = None) -> None:
         if isinstance(rate, bool) or not isinstance(rate, (int, np.integer)) or rate <= 0:
             raise ValueError(f"rate must be a positive integer number of Hz, got {rate!r}")
         if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) or channels < 1:
@@ -270,8 +300,9 @@ class MeterBank:
         self._clipping = ClippingMeter(self._rate, self._channels, full_scale=float(full_scale),
                                        max_regions=int(max_regions))
         self._true_peak = TruePeakMeter(self._rate, self._channels) if true_peak else None
-        self._meters: tuple[Meter, ...] = tuple(m for m in (self._peak, self._true_peak, self._rms, self._clipping)
-                                                if m is not None)
+        self._loudness = LoudnessMeter(self._rate, self._channels, channel_mask) if loudness else None
+        self._meters: tuple[Meter, ...] = tuple(m for m in (self._peak, self._true_peak, self._rms, self._clipping,
+                                                            self._loudness) if m is not None)
         self._reading: MeterReading | None = None   # result() since the last non-empty update
 
     def update(self, block: np.ndarray, extremes: tuple[np.ndarray, np.ndarray] | None = None) -> None:
@@ -330,5 +361,6 @@ class MeterBank:
             clipped_regions=clip.clipped_regions[c], clipped_region_count=clip.clipped_region_count[c],
             nonfinite_samples=pk.nonfinite_samples[c]) for c in range(self._channels))
         self._reading = MeterReading(channels=chans, frames=self._frames, rate=self._rate,
-                                     true_peak_oversampling=None if tp is None else tp.oversampling)
+                                     true_peak_oversampling=None if tp is None else tp.oversampling,
+                                     loudness=None if self._loudness is None else self._loudness.reading())
         return self._reading

@@ -28,6 +28,7 @@ from ..meters import MeterBank
 from ..results import CLIPPED, FAILED, OK, FileResult
 from ..text import db as _db
 from .filter import _Filter
+from .loudness import Group, Target
 from .policy import DEFAULT_BLOCK, ON_OVER, Policy
 
 __all__ = ["render_file", "scan_file"]
@@ -53,7 +54,7 @@ class _Run:
 
 
 def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Policy,
-                seed_key: str, relpath: str | None = None) -> FileResult:
+                seed_key: str, relpath: str | None = None, group: Group | None = None) -> FileResult:
     """Filter one file into ``dst`` atomically.
 
     Parameters
@@ -71,6 +72,10 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         Headroom policy, ceilings, output format, block size.
     seed_key
         Seeds the dither (the file's relative path).
+    group
+        With a loudness target linked over a folder or the batch: the group's loudness and
+        headroom (:func:`chainrun.render.loudness.group_of`), which decide the gain instead of
+        the file's own.
 
     Returns
     -------
@@ -89,8 +94,10 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         fmt, out_subtype = output_format(src, policy.subtype, meta.extra_bytes())
         res.out_format, res.out_subtype = fmt, out_subtype
         res.dither = wants_dither(policy.dither, src.subtype, out_subtype)
+        mask = getattr(src, "channel_mask", None)
         in_meter = MeterBank(src.rate, src.channels, full_scale=full_scale(src.subtype),
-                             true_peak=policy.true_peak, max_regions=policy.max_regions)
+                             true_peak=policy.true_peak, max_regions=policy.max_regions,
+                             loudness=policy.loudness, channel_mask=mask)
         out_fs = full_scale(out_subtype)
         quantise = Quantiser(out_subtype, res.dither, seed_for(seed_key))
         filt = _Filter(sos, src.channels, bound)
@@ -98,8 +105,9 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         # output is still metered for it, only the input is not.
         out_true_peak = policy.true_peak or policy.true_peak_ceiling_dbtp is not None
         run = _Run(src, dst, temp_path_for(dst), fmt, out_subtype, out_fs, res, in_meter, quantise, filt,
-                   dict(true_peak=out_true_peak, max_regions=policy.max_regions), meta=meta)
-        on_over = ON_OVER[policy.on_over](policy)
+                   dict(true_peak=out_true_peak, max_regions=policy.max_regions,
+                        loudness=policy.loudness or policy.target_lufs is not None, channel_mask=mask), meta=meta)
+        on_over = ON_OVER[policy.on_over](policy) if policy.target_lufs is None else Target(policy, group)
         out_meter, over = on_over.render(run)
         if on_over.refuse(res, over):
             _remove_quietly(run.tmp)
@@ -174,11 +182,17 @@ def _clipped_message(at_ceiling: int, out_peak: float, policy: Policy, by_codes:
     return "; ".join(said)
 
 
-def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, relpath: str = "") -> FileResult:
-    """Meter an existing file; nothing is written. Status ok, clipped (samples at full scale) or failed."""
+def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, relpath: str = "",
+              loudness: bool = True) -> FileResult:
+    """Meter an existing file; nothing is written. Status ok, clipped (samples at full scale) or failed.
+
+    ``loudness`` meters its loudness too (BS.1770-4, channel weights from the file's
+    channel mask when it has one).
+    """
     t0 = time.perf_counter()
     res = FileResult(input=src.path, relpath=relpath or src.path, status=FAILED, source=src)
-    meter = MeterBank(src.rate, src.channels, full_scale=full_scale(src.subtype), true_peak=true_peak)
+    meter = MeterBank(src.rate, src.channels, full_scale=full_scale(src.subtype), true_peak=true_peak,
+                      loudness=loudness, channel_mask=getattr(src, "channel_mask", None))
     try:
         reader = _Blocks(src, block, meter)
         try:

@@ -26,9 +26,10 @@ from .pipeline import _Scratch, _pipeline
 if TYPE_CHECKING:
     from ..recipe import Recipe
 
-__all__ = ["Policy", "DEFAULT_BLOCK", "MIN_BLOCK", "MAX_BLOCK", "ON_OVER", "Reject", "Clip", "Scale"]
+__all__ = ["Policy", "DEFAULT_BLOCK", "MIN_BLOCK", "MAX_BLOCK", "ON_OVER", "Reject", "Clip", "Scale", "LOUDNESS_LINKS"]
 
 DEFAULT_BLOCK = 65536
+LOUDNESS_LINKS = ("file", "folder", "batch")     # over what one loudness gain is measured
 MIN_BLOCK = 1
 MAX_BLOCK = 1 << 22
 
@@ -42,6 +43,13 @@ class Policy:
     or more, decoding (with the input meters), filtering, and the output meters
     with encoding run in three threads that overlap. The batch gives a file more
     than one only when it renders that file alone. It never changes the output.
+
+    ``loudness`` meters input and output loudness (BS.1770-4); like ``true_peak``
+    it costs time and never changes the output. ``target_lufs`` (None: off) renders
+    each file to that integrated loudness with one gain, never past a ceiling
+    (:class:`Target`); ``loudness_link`` says over what the gain is measured:
+    ``file`` (each file its own), ``folder`` or ``batch`` (one gain for the group,
+    applied by the batch with :mod:`chainrun.render.loudness`).
     """
 
     on_over: str = "reject"
@@ -55,6 +63,9 @@ class Policy:
     threads: int = 1
     metadata: bool = True
     history: str = ""
+    loudness: bool = True
+    target_lufs: float | None = None
+    loudness_link: str = "file"
 
     @property
     def ceiling(self) -> float:
@@ -62,7 +73,7 @@ class Policy:
 
     @classmethod
     def from_recipe(cls, recipe: Recipe, *, on_over: str | None = None, block_size: int | None = None,
-                    true_peak: bool = True) -> "Policy":
+                    true_peak: bool = True, loudness: bool = True) -> "Policy":
         """The recipe's guard and output settings, with the command line's choices over them.
 
         Raises
@@ -74,10 +85,13 @@ class Policy:
         if not MIN_BLOCK <= block <= MAX_BLOCK:
             raise BatchError(f"--block-size {block} is out of range; allowed: {MIN_BLOCK} to {MAX_BLOCK} frames")
         g, o = recipe.guard, recipe.output
+        target, link = _loudness_of(recipe)
+        if link not in LOUDNESS_LINKS:
+            raise BatchError(f"loudness link {link!r} is not known; allowed: {', '.join(LOUDNESS_LINKS)}")
         return cls(on_over=on_over or g.on_over, ceiling_dbfs=g.ceiling_dbfs,
                    true_peak_ceiling_dbtp=g.true_peak_ceiling_dbtp, subtype=o.subtype, dither=o.dither,
-                   block_size=block, true_peak=true_peak,
-                   metadata=getattr(o, "metadata", "keep") == "keep",
+                   block_size=block, true_peak=true_peak, loudness=loudness, target_lufs=target,
+                   loudness_link=link, metadata=getattr(o, "metadata", "keep") == "keep",
                    history=f"chainrun {__version__} {getattr(recipe, 'name', '')}".strip())
 
     def output_key(self) -> dict:
@@ -89,7 +103,21 @@ class Policy:
         """
         return {"on_over": self.on_over, "ceiling_dbfs": self.ceiling_dbfs,
                 "true_peak_ceiling_dbtp": self.true_peak_ceiling_dbtp, "subtype": self.subtype,
-                "dither": self.dither, "metadata": self.metadata, "history": self.history}
+                "dither": self.dither, "metadata": self.metadata, "history": self.history,
+                "target_lufs": self.target_lufs, "loudness_link": self.loudness_link}
+
+
+def _loudness_of(recipe) -> tuple[float | None, str]:
+    """The recipe's ``loudness: {target_lufs, link}`` block as (target, link); (None, "file") without one.
+
+    Read with getattr: the block is an attribute (or a plain dict) of recipes that have it.
+    """
+    block = getattr(recipe, "loudness", None)
+    if block is None:
+        return None, "file"
+    get = block.get if isinstance(block, dict) else (lambda k, d=None: getattr(block, k, d))
+    target = get("target_lufs")
+    return (None if target is None else float(target)), str(get("link", None) or "file")
 
 
 def _over(peak: float, true_peak: float | None, policy: Policy) -> float:
@@ -217,27 +245,9 @@ class Scale(OnOver):
     """Over a ceiling: filter into a float64 scratch file, then write it scaled to fit the ceiling and the codes."""
 
     def render(self, run) -> tuple[MeterBank, float]:
-        policy, res, filt, src, quantise = self.policy, run.res, run.filt, run.src, run.quantise
+        policy, res, filt, quantise = self.policy, run.res, run.filt, run.quantise
         # Pass 1: filter to a float64 scratch file, metering the unscaled output.
-        pre = MeterBank(src.rate, src.channels, full_scale=run.out_fs, true_peak=run.meter_args["true_peak"],
-                        max_regions=0)
-        run.scratch = temp_path_for(run.dst, ".f64")
-        store = _Scratch(run.scratch, src.channels)
-        reader = _Blocks(src, policy.block_size, run.in_meter)
-        fh, write_scratch = store.writer()
-        try:
-            def pass1(item):
-                frame0, x, x_peak = item
-                return filt(x, frame0, x_peak), filt.extremes
-
-            def keep(item):
-                y, extremes = item
-                pre.update(y, extremes)
-                write_scratch(y)
-            _pipeline(reader, pass1, keep, policy.threads > 1)
-        finally:
-            reader.close()
-            fh.close()
+        pre = filter_to_scratch(run, self.policy)
         over = _over(filt.out_peak, _max_tp(pre.result()), policy)
         # Fit the ceiling and also the codes: for integer output +1.0 (0 dBFS) has no code, so
         # scaling to a 0 dBFS ceiling alone would leave the positive crests hard-clipped.
@@ -246,20 +256,59 @@ class Scale(OnOver):
         res.gain_db = _db(gain) if fit > 0 else 0.0
         res.over_db = over if over > 0 else None
         # Pass 2: scale, meter, quantise, write.
-        out_meter = MeterBank(src.rate, src.channels, full_scale=run.out_fs, **run.meter_args)
-        with _Output(run.tmp, src, run.fmt, run.out_subtype, run.meta) as out:
-            def pass2(y):
-                extremes = y.max(axis=1), y.min(axis=1)
-                out_meter.update(y, extremes)
-                return y, max(float(extremes[0].max()), -float(extremes[1].min()))
+        return write_from_scratch(run, policy, gain), over
 
-            def encode(item):
-                y, peak = item
-                out.put(quantise, y, peak=peak)
-            _pipeline(store.blocks(policy.block_size, gain), pass2, encode, policy.threads > 1)
-        _remove_quietly(run.scratch)
-        run.scratch = None
-        return out_meter, over
+
+def filter_to_scratch(run, policy: Policy, loudness: bool = False) -> MeterBank:
+    """Pass 1 of a two-pass render: read, filter and meter ``run``'s file into a float64 scratch file.
+
+    Sets ``run.scratch``; returns the meters of the filtered output (no clipped regions kept;
+    with ``loudness``, its loudness too).
+    """
+    filt, src = run.filt, run.src
+    pre = MeterBank(src.rate, src.channels, full_scale=run.out_fs, true_peak=run.meter_args["true_peak"],
+                    max_regions=0, loudness=loudness, channel_mask=run.meter_args.get("channel_mask"))
+    run.scratch = temp_path_for(run.dst, ".f64")
+    store = _Scratch(run.scratch, src.channels)
+    reader = _Blocks(src, policy.block_size, run.in_meter)
+    fh, write_scratch = store.writer()
+    try:
+        def pass1(item):
+            frame0, x, x_peak = item
+            return filt(x, frame0, x_peak), filt.extremes
+
+        def keep(item):
+            y, extremes = item
+            pre.update(y, extremes)
+            write_scratch(y)
+        _pipeline(reader, pass1, keep, policy.threads > 1)
+    finally:
+        reader.close()
+        fh.close()
+    return pre
+
+
+def write_from_scratch(run, policy: Policy, gain: float) -> MeterBank:
+    """Pass 2: read ``run.scratch`` (never the input) times ``gain`` (linear), meter, quantise, write ``run.tmp``.
+
+    Removes the scratch file; returns the output meters.
+    """
+    src, quantise = run.src, run.quantise
+    store = _Scratch(run.scratch, src.channels)
+    out_meter = MeterBank(src.rate, src.channels, full_scale=run.out_fs, **run.meter_args)
+    with _Output(run.tmp, src, run.fmt, run.out_subtype, run.meta) as out:
+        def pass2(y):
+            extremes = y.max(axis=1), y.min(axis=1)
+            out_meter.update(y, extremes)
+            return y, max(float(extremes[0].max()), -float(extremes[1].min()))
+
+        def encode(item):
+            y, peak = item
+            out.put(quantise, y, peak=peak)
+        _pipeline(store.blocks(policy.block_size, gain), pass2, encode, policy.threads > 1)
+    _remove_quietly(run.scratch)
+    run.scratch = None
+    return out_meter
 
 
 # on_over word -> what it does.

@@ -10,7 +10,8 @@ from ..results import SKIPPED, STATUSES
 from ..text import fmt_db, one_line
 from .table import channels_of, meter_figure
 
-__all__ = ["plain", "esc", "db_cell", "clipped_total", "seconds_text", "status_badge", "num_text"]
+__all__ = ["plain", "esc", "db_cell", "loudness_cell", "gain_cell", "clipped_total", "seconds_text", "status_badge",
+           "num_text"]
 
 _CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f]")
 
@@ -46,6 +47,24 @@ def db_cell(meters: dict | None, key: str) -> str:
     if value == -math.inf:
         return '<td class="num" title="silence">&minus;&infin;</td>'
     return f'<td class="num">{_fmt_db(value)}</td>'
+
+
+def loudness_cell(meters: dict | None) -> str:
+    """A table cell with a file's integrated loudness: a number, "below gate" in words, or "not measured"."""
+    loud = (meters or {}).get("loudness")
+    if not loud:
+        return '<td class="num"><span class="na" title="not measured">&ndash;</span></td>'
+    value = loud.get("integrated_lufs")
+    if value is None:
+        return '<td class="num" title="below the -70 LUFS gate: silence, or shorter than 400 ms">below gate</td>'
+    return f'<td class="num">{_fmt_db(value)}</td>'
+
+
+def gain_cell(gain: float | None) -> str:
+    """A table cell with the loudness gain applied; a dash when no loudness target was set."""
+    if gain is None:
+        return '<td class="num"><span class="na" title="no loudness target">&ndash;</span></td>'
+    return f'<td class="num">{_fmt_db(gain)}</td>'
 
 
 def _fmt_db(x: float) -> str:

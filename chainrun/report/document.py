@@ -90,6 +90,8 @@ def file_dict(r: FileResult) -> dict:
         "out_format": r.out_format, "out_subtype": r.out_subtype, "dither": r.dither if r.out_subtype else None,
         "over_db": _num(r.over_db), "trim_db": _num(r.trim_db), "gain_db": _num(r.gain_db),
         "clipped_by_chainrun": r.clipped_by_chainrun, "seconds": round(r.seconds, 4),
+        "loudness_gain_db": _num(getattr(r, "loudness_gain_db", None)),
+        "loudness_shortfall_lu": _num(getattr(r, "loudness_shortfall_lu", None)),
         "input_meters": _meters_dict(r.input_meters),
         "output_meters": _meters_dict(r.output_meters),
         "metadata": _metadata_dict(r.metadata),
@@ -112,6 +114,9 @@ def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
             "true_peak_ceiling_dbtp": b.policy.true_peak_ceiling_dbtp, "subtype": b.policy.subtype,
             "dither": b.policy.dither, "block_size": b.policy.block_size,
             "metadata": "keep" if getattr(b.policy, "metadata", True) else "drop",
+            "loudness": getattr(b.policy, "loudness", False),
+            "target_lufs": getattr(b.policy, "target_lufs", None),
+            "loudness_link": getattr(b.policy, "loudness_link", "file"),
         },
         "rates": [
             {"rate_hz": rate, "usable": d.usable, "error": d.error,

@@ -25,7 +25,8 @@ from importlib import resources
 from typing import Any, Iterable
 
 from ..results import CLIPPED, DELIVERED, STATUS_ORDER, STATUSES
-from .cells import clipped_total, db_cell, esc, num_text, plain, seconds_text, status_badge
+from .cells import (clipped_total, db_cell, esc, gain_cell, loudness_cell, num_text, plain, seconds_text,
+                    status_badge)
 from .table import channels_of, worst_first
 
 __all__ = ["render_html"]
@@ -52,7 +53,9 @@ def _header(data: dict) -> list[str]:
         rows.append(("policy", esc(
             f"on_over {pol.get('on_over')}, ceiling {pol.get('ceiling_dbfs')} dBFS"
             + (f", true-peak ceiling {tp} dBTP" if tp is not None else "")
-            + f", output subtype {pol.get('subtype')}, dither {pol.get('dither')}, block {pol.get('block_size')} frames")))
+            + f", output subtype {pol.get('subtype')}, dither {pol.get('dither')}, block {pol.get('block_size')} frames"
+            + (f", loudness target {pol['target_lufs']} LUFS (gain per {pol.get('loudness_link') or 'file'})"
+               if pol.get("target_lufs") is not None else ""))))
     rows.append(("written", esc(f"{data.get('created')} by chainrun {data.get('chainrun_version')}")))
     out = [f"<h1>chainrun report: {esc(name)}</h1>",
            '<p class="sub">Equaliser chain applied to a batch of audio files; files needing attention are listed first.</p>',
@@ -158,7 +161,10 @@ def _files_table(ordered: list[dict]) -> list[str]:
            '<th class="num">input peak <span class="unit">dBFS</span></th>'
            '<th class="num">output peak <span class="unit">dBFS</span></th>'
            '<th class="num">output true peak <span class="unit">dBTP</span></th>'
-           '<th class="num">output clipped <span class="unit">samples</span></th><th>message</th></tr></thead>', "<tbody>"]
+           '<th class="num">output clipped <span class="unit">samples</span></th>'
+           '<th class="num">input loudness <span class="unit">LUFS</span></th>'
+           '<th class="num">output loudness <span class="unit">LUFS</span></th>'
+           '<th class="num">loudness gain <span class="unit">dB</span></th><th>message</th></tr></thead>', "<tbody>"]
     seen: set[str] = set()
     for k, f in enumerate(ordered, 1):
         status = plain(f.get("status"))
@@ -184,6 +190,7 @@ def _files_table(ordered: list[dict]) -> list[str]:
             + db_cell(om, "peak_dbfs")
             + db_cell(om, "true_peak_dbtp")
             + clip_cell
+            + loudness_cell(im) + loudness_cell(om) + gain_cell(f.get("loudness_gain_db"))
             + f"<td class=\"msg\">{esc(f.get('message'))}{_metadata_line(f)}</td></tr>")
     out += ["</tbody></table></div>"]
     return out

@@ -15,13 +15,14 @@ from typing import Any
 from ..results import DELIVERED, INTERRUPTED, QUIET_SKIPS, SKIPPED, STATUS_ORDER, STATUSES
 from ..text import fmt_db, shown
 
-__all__ = ["CSV_FILE_FIELDS", "channels_of", "worst_first", "meter_figure", "console_summary", "error_lines",
-           "csv_fields", "csv_text"]
+__all__ = ["CSV_FILE_FIELDS", "channels_of", "worst_first", "meter_figure", "loudness_text", "console_summary",
+           "error_lines", "csv_fields", "csv_text", "BELOW_GATE"]
 
 # The file columns of the CSV, split where the meter columns (in_<key>, out_<key>) go.
 CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
                     "out_format", "out_subtype", "dither")
-_CSV_RESULT_FIELDS = ("over_db", "trim_db", "gain_db", "clipped_by_chainrun", "seconds")
+_CSV_RESULT_FIELDS = ("over_db", "trim_db", "gain_db", "clipped_by_chainrun", "seconds", "loudness_gain_db",
+                      "loudness_shortfall_lu")
 # The CSV's text columns (names, messages, format names): the only cells a spreadsheet could take
 # for a formula. Every other column is a number and is written as one (a dB figure of -3.01 too).
 _CSV_TEXT_FIELDS = ("input", "output", "status", "message", "format", "subtype", "out_format", "out_subtype",
@@ -36,6 +37,9 @@ _CONSOLE_COLUMNS = (
     ("out true peak", 13, "output_meters", "true_peak_dbtp", "dBTP"),
     ("in peak", 11, "input_meters", "peak_dbfs", "dBFS"),
 )
+# Its loudness columns, shown when some file's loudness was metered: (heading, width, which meters).
+_CONSOLE_LOUDNESS = (("in loudness", 11, "input_meters"), ("out loudness", 12, "output_meters"))
+BELOW_GATE = "below gate"     # a loudness below the -70 LUFS gate: silence, or shorter than one 400 ms block
 
 
 def channels_of(meters: dict | None) -> list[dict]:
@@ -69,6 +73,15 @@ def meter_figure(meters: dict | None, key: str, unit: str = "") -> Any:
     return None
 
 
+def loudness_text(meters: dict | None, key: str = "integrated_lufs", unit: str = "LUFS") -> str:
+    """A loudness figure for a console: ``-23.0 LUFS``, ``below gate`` (metered, below the gate), ``-`` (not metered)."""
+    loud = (meters or {}).get("loudness")
+    if not loud:
+        return "-"
+    value = loud.get(key)
+    return BELOW_GATE if value is None else f"{value:.1f} {unit}"
+
+
 def worst_first(files: list[dict]) -> list[dict]:
     """Files needing attention first: failed, rejected, clipped, then by output peak, loudest first."""
     def key(f: dict):
@@ -89,10 +102,13 @@ def console_summary(document: dict, paths: dict[str, str] | None = None, limit: 
     back from JSON, or report paths under a folder whose name is not UTF-8, hold raw text), so the
     summary prints on a strict UTF-8 console and no name can hold a terminal escape.
     """
-    lines = [f"{'status':<9} " + " ".join(f"{h:>{w}}" for h, w, *_ in _CONSOLE_COLUMNS) + "  file"]
     rows = worst_first(document.get("files") or [])
+    loud = _CONSOLE_LOUDNESS if any((f.get(m) or {}).get("loudness") for f in rows
+                                    for _, _, m in _CONSOLE_LOUDNESS) else ()
+    lines = [f"{'status':<9} " + " ".join(f"{h:>{w}}" for h, w, *_ in _CONSOLE_COLUMNS + loud) + "  file"]
     for f in rows[:limit]:
         figures = " ".join(f"{fmt_db(meter_figure(f.get(m), key), unit):>{w}}" for _, w, m, key, unit in _CONSOLE_COLUMNS)
+        figures += "".join(f" {loudness_text(f.get(m)):>{w}}" for _, w, m in loud)
         lines.append(f"{shown(str(f['status'])):<9} {figures}  {shown(f['relpath'])}"
                      + (f"  ({shown(f['message'])})" if f.get("message") else ""))
     if len(rows) > limit:
@@ -125,6 +141,8 @@ def error_lines(document: dict) -> list[str]:
             lines.append(f"{shown(f['input'])}: {word}: {shown(message)}")
         elif status == SKIPPED and message not in QUIET_SKIPS:
             lines.append(f"{shown(f['input'])}: note: skipped: {shown(message)}")
+        elif status in DELIVERED and f.get("loudness_shortfall_lu"):
+            lines.append(f"{shown(f['input'])}: note: {shown(message)}")    # delivered short of the loudness target
         lines.extend(shown(n) for n in (f.get("metadata") or {}).get("notes") or [])   # malformed metadata, located
     return lines
 
@@ -149,7 +167,8 @@ def _csv_row(f: dict, headline: list[dict], fields: tuple[str, ...]) -> dict:
                 value = _db_text(value)
             row[f"{side}_{h['key']}"] = "" if value is None else value
     row.update(over_db=_db_text(f.get("over_db")), trim_db=_db_text(f.get("trim_db")),
-               gain_db=_db_text(f.get("gain_db")))
+               gain_db=_db_text(f.get("gain_db")), loudness_gain_db=_db_text(f.get("loudness_gain_db")),
+               loudness_shortfall_lu=_db_text(f.get("loudness_shortfall_lu")))
     for k in _CSV_TEXT_FIELDS:
         if isinstance(row.get(k), str):
             row[k] = _csv_text_cell(row[k])
