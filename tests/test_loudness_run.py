@@ -19,7 +19,8 @@ import soundfile as sf
 from scipy import signal
 
 from chainrun.meters.loudness import LoudnessMeter
-from chainrun.render import Policy, probe, render_file, scan_file
+from chainrun.audio.reader import probe
+from chainrun.render import Policy, render_file, scan_file
 from chainrun.audio.source import Source
 from chainrun.report.document import file_dict, headline_fields
 from chainrun.report.html import render_html
