@@ -146,3 +146,8 @@ def test_dom_holds_every_file_and_status(report, tmp_path):
         assert status in text
     assert "48000 Hz: accepted by the guard" in text
     assert "8000 Hz: no chain" in text
+    # the picture's own words, parsed by the browser as SVG text: its title, verdict and the guard's figures
+    assert "<title>Response of Saltings browser check at 48000 Hz (accepted by the guard)</title>" in dom
+    assert "Saltings browser check at 48000 Hz" in text and "largest pole radius" in text
+    assert "guard limit (max_gain_db) +12 dB" in text and "max gain +" in text
+    assert "2  peak 1 kHz +4 dB Q 1 (lift <a> & b)" in text          # the key names each section, escaped

@@ -299,18 +299,27 @@ def test_clipped_below_full_scale_is_explained(tmp_path, capsys):
         assert '<th class="num">start frame</th>' in section
 
 
-# --- pictures drawn by a forked child process while this one renders ----------------------------
+# --- the response pictures: hand-made SVG from numpy, drawn when the report is written -------------
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+SMOOTH = """\
+format: 1
+name: Saltings smooth chain
+chain:
+  - {type: highpass, freq: 80, order: 2, label: rumble}
+  - {type: peak, freq: 1000, gain_db: 4, q: 1, label: lift}
+  - {type: high_shelf, freq: 6000, gain_db: -3, slope: 1, label: hiss}
+guard: {max_gain_db: 12}
+"""
 
 
-def _designed(rates):
-    """The marsh recipe and a design with its assessment per rate, as prepare() makes them."""
+def _designed(rates, path=None):
+    """A recipe and a design with its assessment per rate, as prepare() makes them."""
     from types import SimpleNamespace
 
     from chainrun import assess, design, load
 
-    recipe = load(os.path.join(ROOT, "recipes", "marsh-cleanup.yaml"))
+    recipe = load(path or os.path.join(ROOT, "recipes", "marsh-cleanup.yaml"))
     designs = {}
     for rate in rates:
         chain = design(recipe, rate)
@@ -318,26 +327,48 @@ def _designed(rates):
     return recipe, designs
 
 
-def _only_in_a_child(monkeypatch, action):
-    """Patch plot.response_svg so that ``action()`` runs first in any process but this one."""
-    from chainrun.report import plot
+def _svg_of(tmp_path, text, rate=RATE):
+    from chainrun.report.svgchart import response_svg
 
-    parent, real = os.getpid(), plot.response_svg
-
-    def patched(*args, **kwargs):
-        if os.getpid() != parent:
-            action()
-        return real(*args, **kwargs)
-
-    monkeypatch.setattr(plot, "response_svg", patched)
-    return real
+    path = tmp_path / "recipe.yaml"
+    path.write_text(text, encoding="utf-8")
+    recipe, designs = _designed([rate], str(path))
+    d = designs[rate]
+    return recipe, d.chain, d.assessment, response_svg(recipe, d.chain, d.assessment)
 
 
-def test_pictures_drawn_aside_are_those_drawn_here():
+def _xml(svg):
+    import xml.etree.ElementTree as ET
+
+    return ET.fromstring(svg)                     # xml.etree (reference parser): well-formed XML or it raises
+
+
+def _axes(root):
+    """(Hz -> x, x -> Hz, y -> dB) read back from the labelled ticks, as a reader of the picture would."""
+    def number(text):
+        text = text.replace("\u2212", "-")
+        return float(text[:-1]) * 1000 if text.endswith("k") else float(text)
+
+    xt = sorted((number(t.text), float(t.get("x"))) for t in root.iter("text") if t.get("class") == "x-tick")
+    yt = sorted((number(t.text), float(t.get("y"))) for t in root.iter("text") if t.get("class") == "y-tick")
+    assert len(xt) >= 5 and len(yt) >= 4
+    (f0, x0), (f1, x1) = xt[0], xt[-1]
+    (d0, y0), (d1, y1) = yt[0], yt[-1]
+    per_x = (np.log10(f1) - np.log10(f0)) / (x1 - x0)
+    return (lambda x: 10 ** (np.log10(f0) + (np.asarray(x) - x0) * per_x),
+            lambda y: d0 + (np.asarray(y) - y0) * (d1 - d0) / (y1 - y0),
+            (min(y0, y1), max(y0, y1)))
+
+
+def _points(d):
+    return np.array([[float(v) for v in p.split(",")] for p in re.findall(r"-?[\d.]+,-?[\d.]+", d)])
+
+
+def test_pictures_are_drawn_here_and_the_same_every_time():
     from types import SimpleNamespace
 
     from chainrun.report import pictures
-    from chainrun.report.plot import response_svg
+    from chainrun.report.svgchart import response_svg
 
     recipe, designs = _designed([44100, 48000])
     designs[8000] = SimpleNamespace(chain=None, assessment=None)           # a rate without a chain: no picture
@@ -345,89 +376,157 @@ def test_pictures_drawn_aside_are_those_drawn_here():
     assert set(got) == {44100, 48000}
     for rate in (44100, 48000):
         d = designs[rate]
-        assert got[rate].result() == response_svg(recipe, d.chain, d.assessment)
-    with pytest.raises(ChildProcessError):                                 # the child was reaped: no zombie
-        os.waitpid(got[48000].aside._pid, os.WNOHANG)
+        svg = got[rate].result()
+        assert svg.startswith("<svg") and svg.endswith("</svg>")
+        assert svg == response_svg(recipe, d.chain, d.assessment)          # deterministic: the same bytes
+        assert f'id="chainrun-plot-{rate}"' in svg                       # ids differ between rates on one page
+    assert pictures.picture_of(SimpleNamespace(pictures=got, recipe=recipe), 48000, designs[48000]) == \
+        got[48000].result()
 
 
-def test_a_failed_child_leaves_the_drawing_to_the_report(monkeypatch):
-    from types import SimpleNamespace
+def test_a_picture_that_cannot_be_drawn_is_explained_on_the_page(tmp_path, monkeypatch, capsys):
+    from chainrun.report import svgchart
 
-    from chainrun.report import pictures
+    def fail(*args, **kwargs):
+        raise RuntimeError("no ink")
 
-    def fail():
-        raise RuntimeError("the drawing child fails")
+    monkeypatch.setattr(svgchart, "response_svg", fail)
+    page, _ = run_batch(tmp_path, capsys=capsys)
+    assert "<svg" not in page
+    assert "The picture could not be drawn: RuntimeError: no ink" in page
 
-    real = _only_in_a_child(monkeypatch, fail)
-    recipe, designs = _designed([48000])
-    got = pictures.draw_pictures_aside(recipe, designs)
-    assert got[48000].result() is None
-    batch = SimpleNamespace(pictures=got, recipe=recipe)
+
+def test_the_picture_is_xml_with_a_title_and_a_label(tmp_path):
+    recipe, chain, a, svg = _svg_of(tmp_path, SMOOTH)
+    root = _xml(svg)
+    assert root.tag == "svg" and root.get("role") == "img" and root.get("class") == "response"
+    label = "Response of Saltings smooth chain at 48000 Hz (accepted by the guard)"
+    assert root.get("aria-label") == label and root.find("title").text == label
+    assert root.get("viewBox").startswith("0 0 1000 ")
+    words = " ".join(t.text or "" for t in root.iter("text"))
+    assert "accepted by the guard" in words and "REJECTED" not in words
+    assert "largest pole radius" in words and "limit 0.999999000 (1 - pole_margin 1e-06)" in words
+    assert "guard limit (max_gain_db) +12 dB" in words and "worst-case peak gain" in words
+    assert "1  highpass 80 Hz order 2 (rumble)" in words and "3  high_shelf 6 kHz -3 dB slope 1 (hiss)" in words
+    assert len([p for p in root.iter("path") if p.get("class") == "section"]) == 3   # each section beneath
+
+
+def test_a_rejected_chain_says_so_in_words():
+    from chainrun.report.svgchart import response_svg
+
+    recipe, designs = _designed([48000], os.path.join(ROOT, "recipes", "unstable-hand-typed.yaml"))
     d = designs[48000]
-    assert pictures.picture_of(batch, 48000, d) == real(recipe, d.chain, d.assessment)
+    root = _xml(response_svg(recipe, d.chain, d.assessment))
+    words = " ".join(t.text or "" for t in root.iter("text"))
+    assert "REJECTED by the guard: this chain is not applied to any audio" in words
+    assert "OUTSIDE the limit: unstable" in words                            # the pole margin, in words
+    assert "error: chain[1] iir is unstable" in words
+    assert root.get("aria-label").endswith("(REJECTED by the guard)")
 
 
-def test_a_ctrl_c_does_not_stop_the_drawing_child(monkeypatch, tmp_path):
-    # a Ctrl-C reaches the whole process group; it stops the rendering, and the report still needs its pictures
-    import signal
-    import time
+@pytest.mark.parametrize("rate", [44100, 48000, 96000])
+def test_the_curves_are_the_response_scipy_computes(tmp_path, rate):
+    from scipy import signal
 
-    from chainrun.report import pictures
+    recipe, chain, a, svg = _svg_of(tmp_path, SMOOTH, rate)
+    root = _xml(svg)
+    to_hz, to_db, (y_top, y_bottom) = _axes(root)
+    paths = {p.get("class"): [] for p in root.iter("path")}
+    for p in root.iter("path"):
+        paths[p.get("class")].append(p.get("d"))
+    curves = [("chain", chain.sos, paths["chain"][0], 0.01)]
+    rows = np.asarray(chain.rows)
+    # the faint section curves are written to 0.1 unit: about 0.02 dB at this axis' scale
+    curves += [(f"section {i}", chain.sos[rows == i], d, 0.03) for i, d in enumerate(paths["section"])]
+    for what, sos, d, tol in curves:
+        pts = _points(d)
+        inside = (pts[:, 1] > y_top) & (pts[:, 1] < y_bottom)              # points held beyond the axis are hidden
+        assert inside.sum() > 500, what
+        f = to_hz(pts[inside, 0])
+        assert f.min() < 12 and f.max() > rate / 2 * 0.99                    # 10 Hz to Nyquist
+        _, h = signal.sosfreqz(sos, worN=f, fs=rate)                        # scipy.signal (reference library)
+        np.testing.assert_allclose(to_db(pts[inside, 1]), 20 * np.log10(np.abs(h)), atol=tol, err_msg=what)
 
-    marker = tmp_path / "drawing"
 
-    def slow():
-        marker.write_text("started")        # SIGINT is already ignored by now
-        time.sleep(0.5)
+def test_the_max_gain_marker_sits_where_the_guard_found_it(tmp_path):
+    from scipy import signal
 
-    real = _only_in_a_child(monkeypatch, slow)
-    recipe, designs = _designed([48000])
-    got = pictures.draw_pictures_aside(recipe, designs)
-    deadline = time.monotonic() + 60
-    while not marker.exists() and time.monotonic() < deadline:
-        time.sleep(0.01)
-    assert marker.exists()
-    os.kill(got[48000].aside._pid, signal.SIGINT)
-    d = designs[48000]
-    assert got[48000].result() == real(recipe, d.chain, d.assessment)
+    recipe, chain, a, svg = _svg_of(tmp_path, SMOOTH)
+    root = _xml(svg)
+    to_hz, to_db, _ = _axes(root)
+    (marker,) = [p for p in root.iter("path") if p.get("class") == "max-gain"]
+    x, y = map(float, re.fullmatch(r"translate\(([-\d.]+),([-\d.]+)\)", marker.get("transform")).groups())
+    assert float(to_hz(x)) == pytest.approx(a.max_gain_hz, rel=1e-4)
+    assert float(to_db(y)) == pytest.approx(a.max_gain_db, abs=0.01)
+    f = np.geomspace(10, RATE / 2, 20000)
+    _, h = signal.sosfreqz(chain.sos, worN=f, fs=RATE)                       # scipy.signal (reference library)
+    peak = int(np.argmax(np.abs(h)))
+    assert float(to_hz(x)) == pytest.approx(f[peak], rel=2e-3)                 # the curve's highest point
+    assert float(to_db(y)) == pytest.approx(20 * np.log10(np.abs(h[peak])), abs=0.01)
+    words = " ".join(t.text or "" for t in root.iter("text"))
+    assert f"max gain +{a.max_gain_db:.2f} dB at" in words
 
 
-@pytest.mark.parametrize("workers, files", [("1", 1), ("2", 1), ("2", 3)])
-def test_the_report_gets_its_picture_from_a_child(tmp_path, monkeypatch, capsys, workers, files):
-    # one worker: drawn after the audio; two: while it renders, in this process's threads (one file) or
-    # in worker processes (several); never in this process, so matplotlib never adds to the renderer
-    from chainrun.report import pictures
+def test_text_in_the_picture_is_escaped(tmp_path):
+    hostile = 'name: "Marsh <script>alert(1)</script> & \\a\\x1b[31m co \'q\'"'
+    text = SMOOTH.replace("name: Saltings smooth chain", hostile).replace("label: lift", 'label: "<b>lift</b>"')
+    recipe, chain, a, svg = _svg_of(tmp_path, text)
+    assert "\x07" in recipe.name and "\x1b" in recipe.name                    # the recipe really holds them
+    assert "<script" not in svg and "<b>" not in svg
+    assert not re.search(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]", svg)            # XML 1.0 forbids them
+    root = _xml(svg)
+    shown = "Marsh <script>alert(1)</script> & \\x07\\x1b[31m co 'q'"
+    assert root.find("title").text == f"Response of {shown} at 48000 Hz (accepted by the guard)"
+    words = [t.text or "" for t in root.iter("text")]
+    assert f"{shown} at 48000 Hz" in words
+    assert any("<b>lift</b>" in w for w in words)
 
-    calls = []
-    real = pictures.draw_pictures_aside
 
-    def spy(recipe, designs):
-        calls.append(sorted(designs))
-        return real(recipe, designs)
+RUN_AND_LIST_MODULES = r"""
+import sys
+from chainrun.cli import main
+status = main(sys.argv[1:])
+print(sorted({m.split('.')[0] for m in sys.modules} & {'matplotlib', 'PIL', 'pyplot'}),
+      'chainrun.report.svgchart' in sys.modules, 'chainrun.report.plot' in sys.modules, status)
+"""
 
-    monkeypatch.setattr(pictures, "draw_pictures_aside", spy)
-    from chainrun.report import plot
 
-    drawn_here, parent, draw = [], os.getpid(), plot.response_svg
+@pytest.mark.parametrize("workers", ["1", "2"])
+def test_a_run_draws_its_pictures_without_matplotlib(tmp_path, workers):
+    import subprocess
+    import sys
 
-    def record(*args, **kwargs):
-        if os.getpid() == parent:
-            drawn_here.append(1)
-        return draw(*args, **kwargs)
-
-    monkeypatch.setattr(plot, "response_svg", record)
     src = tmp_path / "in"
     src.mkdir()
-    for i in range(files):
-        sf.write(src / f"take {i}.wav", sine(0.5, RATE, 0.1), RATE, subtype="PCM_24")
+    sf.write(src / "take.wav", sine(0.2, RATE, 0.1), RATE, subtype="PCM_24")
     recipe = tmp_path / "recipe.yaml"
     recipe.write_text(RECIPE, encoding="utf-8")
-    assert main(["run", str(recipe), str(src), "-o", str(tmp_path / "out"), "--workers", workers]) == 0
-    capsys.readouterr()
-    page = (tmp_path / "out" / "chainrun-report.html").read_text(encoding="utf-8")
-    assert calls == [[RATE]]
-    assert drawn_here == []                         # the child drew it; this process did not
-    assert page.count("<svg") == 1
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-c", RUN_AND_LIST_MODULES, "run", str(recipe), str(src), "-o", str(out),
+                           "--workers", workers], capture_output=True, text=True, cwd=ROOT,
+                          env={**os.environ, "PYTHONPATH": ROOT}, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.splitlines()[-1] == "[] True False 0"
+    assert (out / "chainrun-report.html").read_text(encoding="utf-8").count("<svg") == 1
+
+
+def test_drawing_a_picture_imports_nothing_but_the_standard_library(tmp_path):
+    import subprocess
+    import sys
+
+    path = os.path.join(ROOT, "recipes", "boathouse-stems.yaml")
+    code = ("import sys\n"
+            "from chainrun import assess, design, load\n"
+            f"r = load({path!r}); c = design(r, 48000); a = assess(c, r.guard, r)\n"
+            "before = set(sys.modules)\n"
+            "from chainrun.report.svgchart import response_svg\n"
+            "response_svg(r, c, a)\n"
+            "new = {m.split('.')[0] for m in set(sys.modules) - before} - {'chainrun'}\n"
+            "print(sorted(new - set(sys.stdlib_module_names)))\n")
+    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT,
+                          env={**os.environ, "PYTHONPATH": ROOT}, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.strip() == "[]"
 
 
 def test_a_rejected_file_is_not_listed_among_clipped_outputs():

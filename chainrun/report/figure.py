@@ -37,6 +37,10 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter
 
+from .response import ACCEPTED_COLOUR as _ACCEPTED_COLOUR, CHAIN_COLOUR as _CHAIN_COLOUR
+from .response import FREQ_TICKS as _FREQ_TICKS, GUIDE_COLOUR as _GUIDE_COLOUR, MINOR_TICKS as _MINOR_TICKS
+from .response import REJECTED_COLOUR as _REJECTED_COLOUR, SECTION_COLOURS as _SECTION_COLOURS
+from .response import SECTION_DASHES as _SECTION_DASHES, label_spot as _label_spot, magnitude_range as _y_range
 from .response import (describe_section, freq_grid, guard_lines, hz, literal, response_at, sections_of, signed,
                        to_db, wrapped, wrapped_phase)
 
@@ -47,21 +51,8 @@ if TYPE_CHECKING:
 
 __all__ = ["response_figure"]
 
-DEEPEST_DB = -48.0          # the magnitude axis never goes further down than this
 PNG_DPI = 100
 FIG_WIDTH_IN = 10.0         # the height follows from the number of sections and guard lines
-
-# Colour-blind-safe palette (Okabe & Ito, "Color Universal Design", 2008), darker
-# members first; each section also gets its own dash pattern and a number, so
-# nothing depends on telling colours apart.
-_SECTION_COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#8C7A00")
-_SECTION_DASHES = ("-", (0, (5, 2)), (0, (1, 1.5)), (0, (6, 2, 1, 2)), (0, (3, 1, 1, 1, 1, 1)))
-_CHAIN_COLOUR = "#1b1b1b"
-_ACCEPTED_COLOUR = "#006e4f"        # bluish green, darkened for text contrast
-_REJECTED_COLOUR = "#b34700"        # vermillion, darkened for text contrast
-_GUIDE_COLOUR = "#5a5a5a"
-_FREQ_TICKS = (10, 20, 50, 100, 200, 500, 1000, 2000, 5000, 10000, 20000, 50000, 100000, 200000)
-_MINOR_TICKS = tuple(m * 10 ** e for e in range(1, 6) for m in (3, 4, 6, 7, 8, 9))
 
 
 # --------------------------------------------------------------------------- figure
@@ -70,47 +61,6 @@ def _verdict(assessment: Assessment) -> tuple[str, str]:
     if assessment.accepted:
         return "accepted by the guard", _ACCEPTED_COLOUR
     return "REJECTED by the guard: this chain is not applied to any audio", _REJECTED_COLOUR
-
-
-def _y_range(chain_db: np.ndarray, parts, recipe: Recipe, assessment: Assessment) -> tuple[float, float]:
-    finite = np.concatenate([d[np.isfinite(d)] for d in [chain_db] + [p[2] for p in parts]])
-    data_top = float(finite.max()) if finite.size else 0.0
-    data_bottom = float(finite.min()) if finite.size else 0.0
-    top = max(data_top, 0.0)
-    for mark in (recipe.guard.max_gain_db, assessment.peak_gain_db):
-        if math.isfinite(mark) and mark <= top + 18.0:
-            top = max(top, mark)
-    top = 3.0 * math.ceil((top + 2.5) / 3.0)
-    # Deep dips (a notch's centre) run off the bottom, but never the chain as a whole: the axis
-    # reaches at least 30 dB below the chain's highest point (a chain that only attenuates a lot).
-    lowest = min(DEEPEST_DB, 6.0 * math.floor((data_top - 30.0) / 6.0))
-    bottom = max(lowest, 6.0 * math.floor((min(data_bottom, -6.0) - 2.0) / 6.0))
-    return min(bottom, top - 12.0), top
-
-
-def _label_spot(freqs: np.ndarray, db: np.ndarray, k: int, bottom: float, top: float):
-    """Where to number a section's curve: (frequency, dB, vertical offset in points or None).
-
-    At its largest boost if it boosts by 1 dB or more (or more than it cuts), else at its deepest cut;
-    a flat section (a gain) is numbered at a staggered place along the axis.
-    None means the cut runs off the bottom: number it beside the dip.
-    """
-    logf = np.log(freqs)
-    lo, hi = logf[0], logf[-1]
-    inside = (logf > lo + 0.03 * (hi - lo)) & (logf < hi - 0.03 * (hi - lo)) & np.isfinite(db)
-    if not inside.any():
-        return float(freqs[len(freqs) // 2]), 0.0, 0
-    pad = 0.05 * (top - bottom)
-    vals = np.where(inside, np.clip(db, bottom + pad, top - pad), np.nan)
-    if float(np.nanmax(vals) - np.nanmin(vals)) < 0.5:
-        x = math.exp(lo + (0.1 + 0.1 * (k % 9)) * (hi - lo))
-        j = int(np.argmin(np.abs(freqs - x)))
-        return float(freqs[j]), float(vals[j]), 9 if vals[j] >= 0 else -9
-    if float(np.nanmax(vals)) >= min(1.0, -float(np.nanmin(vals))):
-        j = int(np.nanargmax(vals))
-        return float(freqs[j]), float(vals[j]), 10
-    j = int(np.nanargmin(vals))
-    return float(freqs[j]), float(vals[j]), None if vals[j] <= bottom + pad else -10
 
 
 def response_figure(recipe: Recipe, chain: Chain, assessment: Assessment) -> Figure:

@@ -111,8 +111,9 @@ def _responses(data: dict, ordered: list[dict]) -> list[str]:
             per_rate[f["rate_hz"]] = per_rate.get(f["rate_hz"], 0) + 1
     drawn = "responses" in data          # the pictures, when the page is drawn from the batch itself
     pictures = {p.get("rate_hz"): p for p in data.get("responses") or []}
-    out.append("<p>Magnitude (top) and phase (below) of the whole chain as designed at each sample rate in the "
-               "batch, each section drawn faintly beneath, with the guard's figures written under each picture.</p>")
+    out.append("<p>Magnitude of the whole chain as designed at each sample rate in the batch, each section drawn "
+               "faintly beneath, with the guard's figures written under each picture (<code>chainrun plot</code> "
+               "draws the phase too).</p>")
     for entry in rates:
         rate = entry.get("rate_hz")
         n = per_rate.get(rate, 0)

@@ -1,6 +1,9 @@
 """The numbers and words of a response picture: frequencies, responses, the guard's figures in words.
 
-Responses come from :func:`scipy.signal.freqz_sos` (scipy is imported on first use).
+Responses come from :func:`scipy.signal.freqz_sos` (:func:`response_at`, scipy imported on first use)
+or from numpy alone (:func:`response_np`, for the report's pictures). The colours, ticks and axis range
+here are shared by the matplotlib figure (:mod:`chainrun.report.figure`) and the report's hand-made SVG
+(:mod:`chainrun.report.svgchart`); nothing here imports matplotlib.
 """
 from __future__ import annotations
 
@@ -18,11 +21,27 @@ if TYPE_CHECKING:
     from ..guard import Assessment
     from ..recipe import Recipe, Section
 
-__all__ = ["literal", "hz", "signed", "db_text", "describe_section", "freq_grid", "response_at", "to_db",
-           "sections_of", "wrapped_phase", "pole_line", "guard_lines", "wrapped", "LOWEST_HZ", "POINTS"]
+__all__ = ["literal", "hz", "signed", "db_text", "describe_section", "freq_grid", "response_at", "response_np",
+           "to_db", "sections_of", "wrapped_phase", "pole_line", "guard_lines", "wrapped", "magnitude_range",
+           "label_spot", "LOWEST_HZ", "POINTS", "DEEPEST_DB", "SECTION_COLOURS", "SECTION_DASHES", "CHAIN_COLOUR",
+           "ACCEPTED_COLOUR", "REJECTED_COLOUR", "GUIDE_COLOUR", "FREQ_TICKS", "MINOR_TICKS"]
 
 LOWEST_HZ = 10.0            # left edge of the frequency axis
 POINTS = 1500               # log-spaced frequencies, plus each section's own freq
+DEEPEST_DB = -48.0          # the magnitude axis never goes further down than this
+
+# Colour-blind-safe palette (Okabe & Ito, "Color Universal Design", 2008), darker
+# members first; each section also gets its own dash pattern and a number, so
+# nothing depends on telling colours apart. Dashes are matplotlib's (offset, (on, off, ...))
+# in line widths.
+SECTION_COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#8C7A00")
+SECTION_DASHES = ("-", (0, (5, 2)), (0, (1, 1.5)), (0, (6, 2, 1, 2)), (0, (3, 1, 1, 1, 1, 1)))
+CHAIN_COLOUR = "#1b1b1b"
+ACCEPTED_COLOUR = "#006e4f"         # bluish green, darkened for text contrast
+REJECTED_COLOUR = "#b34700"         # vermillion, darkened for text contrast
+GUIDE_COLOUR = "#5a5a5a"
+FREQ_TICKS = (10, 20, 50, 100, 200, 500, 1000, 2000, 5000, 10000, 20000, 50000, 100000, 200000)
+MINOR_TICKS = tuple(m * 10 ** e for e in range(1, 6) for m in (3, 4, 6, 7, 8, 9))
 
 
 # --------------------------------------------------------------------------- text helpers
@@ -79,12 +98,14 @@ def describe_section(section: Section) -> str:
 
 # --------------------------------------------------------------------------- numbers
 
-def freq_grid(chain: Chain, recipe: Recipe, assessment: Assessment) -> np.ndarray:
+def freq_grid(chain: Chain, recipe: Recipe, assessment: Assessment, points: int = POINTS) -> np.ndarray:
+    """``points`` log-spaced frequencies from 10 Hz (or a tenth of Nyquist) to Nyquist, with each
+    section's own ``freq`` and the guard's max-gain frequency added, sorted."""
     nyq = chain.rate / 2.0
     lo = min(LOWEST_HZ, nyq / 10.0)
     extra = [float(s.params["freq"]) for s in recipe.sections if "freq" in s.params]
     extra.append(float(assessment.max_gain_hz))
-    f = np.concatenate([np.geomspace(lo, nyq, POINTS), [x for x in extra if lo < x < nyq]])
+    f = np.concatenate([np.geomspace(lo, nyq, points), [x for x in extra if lo < x < nyq]])
     return np.unique(f)
 
 
@@ -95,6 +116,23 @@ def response_at(sos: np.ndarray, freqs: np.ndarray, rate: int) -> np.ndarray:
     with warnings.catch_warnings(), np.errstate(all="ignore"):
         warnings.simplefilter("ignore")
         _, h = signal.freqz_sos(sos, worN=freqs, fs=rate)
+    return h
+
+
+def response_np(sos: np.ndarray, freqs: np.ndarray, rate: int) -> np.ndarray:
+    """Complex response of a cascade at ``freqs`` Hz, from numpy alone.
+
+    Each row's ``H(z) = (b0 + b1 z^-1 + b2 z^-2) / (a0 + a1 z^-1 + a2 z^-2)`` is evaluated
+    on the unit circle, ``z^-1 = exp(-j 2 pi f / rate)``, and the rows are multiplied.
+    A pole on the unit circle gives ``inf`` or ``nan`` there, without a warning.
+    """
+    sos = np.atleast_2d(np.asarray(sos, dtype=float))
+    zi = np.exp(-2j * np.pi * np.asarray(freqs, dtype=float) / rate)
+    zi2 = zi * zi
+    h = np.ones(zi.shape, dtype=complex)
+    with np.errstate(all="ignore"):
+        for b0, b1, b2, a0, a1, a2 in sos:
+            h *= (b0 + b1 * zi + b2 * zi2) / (a0 + a1 * zi + a2 * zi2)
     return h
 
 
@@ -113,6 +151,48 @@ def sections_of(recipe: Recipe, chain: Chain) -> list[tuple[int, Section, np.nda
         if mine.size:
             out.append((i, section, chain.sos[mine]))
     return out
+
+
+def magnitude_range(chain_db: np.ndarray, parts, recipe: Recipe, assessment: Assessment) -> tuple[float, float]:
+    """(bottom, top) of the magnitude axis in dB for the chain and its sections' ``(i, section, dB)``."""
+    finite = np.concatenate([d[np.isfinite(d)] for d in [chain_db] + [p[2] for p in parts]])
+    data_top = float(finite.max()) if finite.size else 0.0
+    data_bottom = float(finite.min()) if finite.size else 0.0
+    top = max(data_top, 0.0)
+    for mark in (recipe.guard.max_gain_db, assessment.peak_gain_db):
+        if math.isfinite(mark) and mark <= top + 18.0:
+            top = max(top, mark)
+    top = 3.0 * math.ceil((top + 2.5) / 3.0)
+    # Deep dips (a notch's centre) run off the bottom, but never the chain as a whole: the axis
+    # reaches at least 30 dB below the chain's highest point (a chain that only attenuates a lot).
+    lowest = min(DEEPEST_DB, 6.0 * math.floor((data_top - 30.0) / 6.0))
+    bottom = max(lowest, 6.0 * math.floor((min(data_bottom, -6.0) - 2.0) / 6.0))
+    return min(bottom, top - 12.0), top
+
+
+def label_spot(freqs: np.ndarray, db: np.ndarray, k: int, bottom: float, top: float):
+    """Where to number a section's curve: (frequency, dB, vertical offset in points or None).
+
+    At its largest boost if it boosts by 1 dB or more (or more than it cuts), else at its deepest cut;
+    a flat section (a gain) is numbered at a staggered place along the axis.
+    None means the cut runs off the bottom: number it beside the dip.
+    """
+    logf = np.log(freqs)
+    lo, hi = logf[0], logf[-1]
+    inside = (logf > lo + 0.03 * (hi - lo)) & (logf < hi - 0.03 * (hi - lo)) & np.isfinite(db)
+    if not inside.any():
+        return float(freqs[len(freqs) // 2]), 0.0, 0
+    pad = 0.05 * (top - bottom)
+    vals = np.where(inside, np.clip(db, bottom + pad, top - pad), np.nan)
+    if float(np.nanmax(vals) - np.nanmin(vals)) < 0.5:
+        x = math.exp(lo + (0.1 + 0.1 * (k % 9)) * (hi - lo))
+        j = int(np.argmin(np.abs(freqs - x)))
+        return float(freqs[j]), float(vals[j]), 9 if vals[j] >= 0 else -9
+    if float(np.nanmax(vals)) >= min(1.0, -float(np.nanmin(vals))):
+        j = int(np.nanargmax(vals))
+        return float(freqs[j]), float(vals[j]), 10
+    j = int(np.nanargmin(vals))
+    return float(freqs[j]), float(vals[j]), None if vals[j] <= bottom + pad else -10
 
 
 def wrapped_phase(h: np.ndarray) -> np.ndarray:
