@@ -8,9 +8,9 @@ from __future__ import annotations
 
 import csv
 import io
+import dataclasses
 import json
 import math
-from dataclasses import dataclass
 from types import SimpleNamespace
 
 import numpy as np
@@ -21,7 +21,6 @@ from scipy import signal
 from chainrun.meters.loudness import LoudnessMeter
 from chainrun.audio.reader import probe
 from chainrun.render import Policy, render_file, scan_file
-from chainrun.audio.source import Source
 from chainrun.report.document import file_dict, headline_fields
 from chainrun.report.html import render_html
 from chainrun.report.table import console_summary, csv_text, error_lines
@@ -190,16 +189,10 @@ def test_a_file_shorter_than_one_block_gets_no_gain(tmp_path, write_audio):
     assert "below gate" in render_html(doc)
 
 
-@dataclass(frozen=True)
-class MaskedSource(Source):
-    """A Source that carries a WAVE_FORMAT_EXTENSIBLE channel mask."""
-
-    channel_mask: int | None = None
-
-
 def _with_mask(mask):
+    """The probed Source with another WAVE_FORMAT_EXTENSIBLE channel mask (as the header would give it)."""
     def make(src):
-        return MaskedSource(**{k: getattr(src, k) for k in Source.__dataclass_fields__}, channel_mask=mask)
+        return dataclasses.replace(src, channel_mask=mask)
     return make
 
 
