@@ -186,7 +186,94 @@ def discover(inputs: list[str], outdir: str | None) -> Plan:
     return plan
 
 
-def _walk(top: str, add, plan: Plan, out_real: str | None = None, prefix: str = "", base: str | None = None) -> None:
+NO_ROW = "no row of the plan matches it; not rendered"
+
+
+def _fixed_part(pattern: str) -> str:
+    """The leading folders of a pattern that hold no wildcard: where to look for its files."""
+    fixed = []
+    for part in pattern.split("/"):
+        if any(c in part for c in "*?["):
+            break
+        fixed.append(part)
+    return "/".join(fixed)
+
+
+def discover_plan(plan, outdir: str | None) -> Plan:
+    """Find the files a batch plan (:class:`chainrun.recipe.plan.BatchPlan`) names, each tied to its row's recipe.
+
+    The folders its patterns start from are searched (as folder arguments are); each file found
+    is named by its path relative to the plan's folder and rendered by the first row that
+    matches it (``Job.recipe``). A file found there that no row matches is skipped, saying so.
+    OUTDIR may lie inside the plan's folder: it is passed over, never searched. A row matching
+    no file, or only files an earlier row takes, is a warning (``Plan.warnings``).
+
+    Raises
+    ------
+    BatchError
+        If an input folder lies inside OUTDIR.
+    """
+    from ..recipe.plan import match
+
+    found = Plan()
+    add = _Collector(found, outdir)
+    out_real = add.out_real
+    root = plan.root
+    rows = [(row, tuple(p + "/**" if os.path.isdir(os.path.join(root, p)) else p for p in row.patterns))
+            for row in plan.rows]
+    starts: list[str] = []
+    for _, patterns in rows:
+        for p in patterns:
+            start = os.path.normpath(os.path.join(root, _fixed_part(p)))
+            if start not in starts:
+                starts.append(start)
+    # Search each folder once: one inside another is searched with it.
+    folders = [s for s in starts if os.path.isdir(s)]
+    folders = [f for f in folders if not any(o != f and _inside(f, o) for o in folders)]
+    candidates: list[tuple[str, str]] = []
+
+    def collect(path: str, rel: str) -> None:
+        candidates.append((path, rel))
+
+    for folder in folders:
+        if out_real is not None and _inside(folder, out_real):
+            raise BatchError(f"{folder}: error: this input lies inside the output folder {outdir}; "
+                             "choose an output folder outside every input")
+        _walk(folder, collect, found, out_real, base=root, pass_over_outdir=True)
+    for start in starts:
+        if os.path.isfile(start) and not any(_inside(start, f) for f in folders):
+            candidates.append((start, os.path.relpath(start, root)))
+    hits = [0] * len(rows)
+    taken = [0] * len(rows)
+    seen: set[str] = set()
+    for path, rel in candidates:
+        if rel in seen:
+            continue
+        seen.add(rel)
+        first = None
+        for k, (row, patterns) in enumerate(rows):
+            if any(match(p, rel) for p in patterns):
+                hits[k] += 1
+                if first is None:
+                    first = k
+                    taken[k] += 1
+        if first is None:
+            found.skipped.append(_skip(path, rel, NO_ROW))
+        else:
+            add(path, rel, rows[first][0].recipe)
+    for k, (row, _) in enumerate(rows):
+        shown = ", ".join(f"'{p}'" for p in row.patterns)
+        if not hits[k]:
+            found.warnings.append(f"{row.where}: warning: {row.title} inputs {shown} match no file; "
+                                  "patterns are relative to the plan's folder")
+        elif not taken[k]:
+            found.warnings.append(f"{row.where}: warning: {row.title} inputs {shown} match only files an earlier "
+                                  "row takes; the first row matching a file renders it")
+    return found
+
+
+def _walk(top: str, add, plan: Plan, out_real: str | None = None, prefix: str = "", base: str | None = None,
+          pass_over_outdir: bool = False) -> None:
     """Find the files under ``top``; each is named by its path relative to ``base`` (default ``top``) under ``prefix``."""
     base = top if base is None else base
 
@@ -225,6 +312,8 @@ def _walk(top: str, add, plan: Plan, out_real: str | None = None, prefix: str = 
                     continue
                 key = (est.st_dev, est.st_ino)
                 if out_real is not None and _inside(path, out_real):
+                    if pass_over_outdir and os.path.realpath(path) == out_real:
+                        continue
                     plan.skipped.append(_skip(path, rel, "a link into the output folder; outputs are not read "
                                                          "as inputs, not searched"))
                     continue
