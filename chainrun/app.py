@@ -25,7 +25,7 @@ from .render import Policy, scan_file
 from .results import FileResult
 
 __all__ = ["DEFAULT_RATES", "RECIPE_SUFFIXES", "PLOT_SUFFIXES", "find_recipes", "check_recipe", "check", "cores",
-           "RunOutcome", "run", "scan", "plot"]
+           "RunOutcome", "refuse_recipe_inputs", "run", "scan", "plot"]
 
 DEFAULT_RATES = (44100, 48000, 96000)
 RECIPE_SUFFIXES = (".yaml", ".yml")
@@ -95,12 +95,43 @@ def check_recipe(path: str, rates: tuple[int, ...]) -> dict:
 def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES) -> list[dict]:
     """Check every recipe named or found in the folders named (see :func:`check_recipe`); writes nothing.
 
+    A batch plan among them (a YAML file whose top level has ``batch:``) stands for every recipe it
+    names: each is checked once, its entry carrying ``"plan"``. A plan that cannot be loaded is an
+    entry of its own, rejected, with the located error.
+
     Raises
     ------
     BatchError
         If a path does not exist, or no recipe is found.
     """
-    return [check_recipe(p, rates) for p in find_recipes(paths)]
+    from .recipe.plan import is_plan, load_plan
+
+    entries: list[dict] = []
+    done: set[str] = set()
+
+    def add(path: str, plan: str | None = None) -> None:
+        real = os.path.realpath(path)
+        if real in done:
+            return
+        done.add(real)
+        entry = check_recipe(path, rates)
+        if plan is not None:
+            entry["plan"] = plan
+        entries.append(entry)
+
+    for p in find_recipes(paths):
+        if not is_plan(p):
+            add(p)
+            continue
+        try:
+            plan = load_plan(p)
+        except RecipeError as exc:
+            entries.append({"path": p, "plan": p, "accepted": False, "errors": [str(exc)], "warnings": [],
+                            "rates": []})
+            continue
+        for recipe in plan.recipes:
+            add(recipe.path, p)
+    return entries
 
 
 # --------------------------------------------------------------------------- run
@@ -159,15 +190,36 @@ def _write_reports(result: BatchResult, report: str | None, command: list[str] |
     return paths, errors
 
 
-def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | None = None,
+def refuse_recipe_inputs(inputs: list[str]) -> None:
+    """Refuse a recipe file named among the audio inputs (a second recipe is a plan's job), before any audio.
+
+    Raises
+    ------
+    BatchError
+        Naming the first input with a recipe suffix (.yaml, .yml) that is not a folder.
+    """
+    for arg in inputs:
+        if os.fspath(arg).lower().endswith(RECIPE_SUFFIXES) and not os.path.isdir(arg):
+            raise BatchError(f"{arg}: error: a recipe among the inputs; a run takes one recipe, then audio files "
+                             "and folders. To give different inputs different recipes, write a batch plan and "
+                             "run 'chainrun run --plan PLAN.yaml -o OUTDIR'; no audio was touched")
+
+
+def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers: int | None = None,
         block_size: int | None = None, on_over: str | None = None, report: str | None = None,
-        true_peak: bool = True, redo: bool = False, progress=None, command: list[str] | None = None) -> RunOutcome:
+        true_peak: bool = True, redo: bool = False, progress=None, command: list[str] | None = None,
+        plan=None) -> RunOutcome:
     """Filter ``inputs`` (files and folders) into ``outdir`` with ``recipe``, and write the reports.
 
     Parameters
     ----------
     recipe
-        A loaded :class:`~chainrun.recipe.Recipe`, or the path of a recipe file.
+        A loaded :class:`~chainrun.recipe.Recipe`, or the path of a recipe file; None with ``plan``.
+    plan
+        A batch plan (:class:`chainrun.recipe.plan.BatchPlan`, or the path of a plan file) instead of
+        ``recipe`` and ``inputs`` (which must then be None and empty): each file is rendered by the
+        recipe of the first row matching it, each recipe with its own guard and output policy
+        (``block_size``, ``on_over`` and ``true_peak`` apply to all of them).
     workers
         Cores to keep busy (default: all this process may use, at most 64).
     block_size, on_over, true_peak
@@ -190,6 +242,16 @@ def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | 
         For a usage problem, before any audio is touched (the output folder held by another run, a
         recipe rejected at every rate in the batch, an input inside OUTDIR...).
     """
+    if plan is not None:
+        if recipe is not None or inputs:
+            raise BatchError("--plan names the recipes and the inputs; give either a plan, or a recipe and "
+                             "inputs, not both; no audio was touched")
+        if isinstance(plan, (str, os.PathLike)):
+            from .recipe.plan import load_plan
+
+            plan = load_plan(plan)
+    else:
+        refuse_recipe_inputs(inputs)
     if isinstance(recipe, (str, os.PathLike)):
         recipe = load(os.fspath(recipe))
     if workers is None:
@@ -198,9 +260,10 @@ def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | 
         raise BatchError(f"--workers {workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
     if report:
         _check_report_folder(report)
-    policy = Policy.from_recipe(recipe, on_over=on_over, block_size=block_size, true_peak=true_peak)
-    with claimed(recipe, inputs, outdir, policy) as (prep, notes):
-        pictures: dict = {}
+    recipes = [recipe] if plan is None else list(plan.recipes)
+    policies = [Policy.from_recipe(r, on_over=on_over, block_size=block_size, true_peak=true_peak) for r in recipes]
+    with claimed(recipe, inputs, outdir, policies[0], plan=plan, policies=policies) as (prep, notes):
+        pictures: list[dict] = [{} for _ in recipes]
         if progress is not None and hasattr(progress, "start"):
             progress.start(len(prep.work))
         try:
@@ -209,15 +272,18 @@ def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | 
             # core) the child runs after the audio; with more, while the audio renders: it is started
             # before the pipeline threads or the worker processes exist.
             if workers > 1:
-                pictures.update(_pictures_aside(recipe, prep.designs))
+                for drawn, r, designs in zip(pictures, recipes, prep.recipe_designs):
+                    drawn.update(_pictures_aside(r, designs))
             result = execute(prep, workers=workers, progress=progress, resume=not redo)
         finally:
             if progress is not None and hasattr(progress, "close"):
                 progress.close()
         if workers == 1:
-            pictures.update(_pictures_aside(recipe, prep.designs))
+            for drawn, r, designs in zip(pictures, recipes, prep.recipe_designs):
+                drawn.update(_pictures_aside(r, designs))
         result.notes[:0] = notes
-        result.pictures = pictures
+        result.pictures = pictures[0]
+        result.recipe_pictures = pictures
         paths, errors = _write_reports(result, report, command, outdir)
     return RunOutcome(result, paths, errors)
 

@@ -1,8 +1,14 @@
 """Discovery: find the audio under the inputs and map each file to its path inside OUTDIR.
 
-The output tree mirrors the input: a folder argument's files keep their path
-relative to that folder; a file argument lands at the top of OUTDIR. Nothing
-is ever written outside OUTDIR, and OUTDIR may not lie inside an input folder.
+The output tree mirrors the input: with one folder argument, its files keep their path
+relative to that folder; with several, each folder's files go under that folder's own
+name in OUTDIR (``cardA/TAKE001.WAV``, ``cardB/TAKE001.WAV``; a name met twice gets
+``-2``, ``-3``...), so equal names in different folders are all delivered. A file
+argument lands at the top of OUTDIR, however many are given. Nothing is ever written
+outside OUTDIR, and OUTDIR may not lie inside an input folder.
+
+:func:`discover_plan` does the same for a batch plan: every file under the folders its
+rows name, mirrored relative to the plan's folder, each tied to the first row matching it.
 """
 from __future__ import annotations
 
@@ -15,7 +21,7 @@ from ..fsutil import TEMP_TAG
 from ..results import FAILED, MAC_METADATA, NOT_AUDIO, SKIPPED, FileResult
 from ..text import reason as _reason
 
-__all__ = ["Job", "Plan", "discover", "AUDIO_EXTENSIONS"]
+__all__ = ["Job", "Plan", "discover", "discover_plan", "root_names", "AUDIO_EXTENSIONS"]
 
 # Extensions taken as audio without looking inside (lower case).
 AUDIO_EXTENSIONS = frozenset({
@@ -33,6 +39,7 @@ class Job:
     input: str
     relpath: str
     output: str
+    recipe: int = 0          # which of the batch's recipes renders it (a plan's row order; 0 otherwise)
 
 
 @dataclass
@@ -41,6 +48,7 @@ class Plan:
 
     jobs: list[Job] = field(default_factory=list)
     skipped: list[FileResult] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
 
 
 def _inside(path: str, folder: str) -> bool:
@@ -71,10 +79,72 @@ def _fail(path: str, rel: str, why: str) -> FileResult:
     return FileResult(input=path, relpath=rel, status=FAILED, message=why)
 
 
+class _Collector:
+    """Adds found files to a :class:`Plan`: once each, never out of OUTDIR, no two on one output name."""
+
+    def __init__(self, plan: Plan, outdir: str | None):
+        self.plan, self.outdir = plan, outdir
+        self.out_real = os.path.realpath(outdir) if outdir is not None else None
+        self.seen_inputs: dict[str, str] = {}
+        self.seen_outputs: dict[str, str] = {}
+
+    def __call__(self, path: str, rel: str, recipe: int = 0) -> None:
+        plan, outdir, out_real = self.plan, self.outdir, self.out_real
+        real = os.path.realpath(path)
+        if out_real is not None and _inside(real, out_real):
+            plan.skipped.append(_skip(path, rel, f"a link into the output folder {outdir}; outputs are not "
+                                                 "read as inputs"))
+            return
+        if real in self.seen_inputs:
+            plan.skipped.append(_skip(path, rel, f"the same file as {self.seen_inputs[real]}; rendered once"))
+            return
+        if out_real is None:
+            self.seen_inputs[real] = path
+            plan.jobs.append(Job(path, rel, "", recipe))
+            return
+        output = os.path.normpath(os.path.join(outdir, rel))
+        if not _inside(os.path.dirname(output), out_real) or os.path.isabs(rel) or rel.startswith(".."):
+            plan.skipped.append(_fail(path, rel, "its output name would leave OUTDIR (through a link in the "
+                                                 "output folder); not rendered"))
+            return
+        key = os.path.normcase(output)
+        if key in self.seen_outputs:
+            plan.skipped.append(_fail(path, rel, f"its output name collides with that of {self.seen_outputs[key]}; "
+                                                 "rename one of them"))
+            return
+        self.seen_inputs[real], self.seen_outputs[key] = path, path
+        plan.jobs.append(Job(path, rel, output, recipe))
+
+
+def _check_folder(arg: str, outdir: str | None, out_real: str | None) -> None:
+    if out_real is not None and _inside(out_real, arg):
+        raise BatchError(f"{outdir}: error: the output folder lies inside the input folder {arg}; "
+                         "choose an output folder outside every input")
+    if out_real is not None and _inside(arg, out_real):
+        raise BatchError(f"{arg}: error: this input lies inside the output folder {outdir}; "
+                         "choose an output folder outside every input")
+
+
+def root_names(folders: list[str]) -> list[str]:
+    """The folder each input folder mirrors under when several are given: its own name, ``-2``... when met again."""
+    names: list[str] = []
+    used: set[str] = set()
+    for folder in folders:
+        base = os.path.basename(os.path.normpath(os.path.abspath(folder))) or "root"
+        name, n = base, 1
+        while os.path.normcase(name) in used:
+            n += 1
+            name = f"{base}-{n}"
+        used.add(os.path.normcase(name))
+        names.append(name)
+    return names
+
+
 def discover(inputs: list[str], outdir: str | None) -> Plan:
     """Find the audio under ``inputs`` and map each file to a path inside ``outdir``.
 
-    With ``outdir`` None (scanning), files are only found, not mapped.
+    With ``outdir`` None (scanning), files are only found, not mapped. With several
+    folders among ``inputs``, each one's files go under its own name (:func:`root_names`).
 
     Raises
     ------
@@ -83,47 +153,18 @@ def discover(inputs: list[str], outdir: str | None) -> Plan:
         input inside OUTDIR).
     """
     plan = Plan()
-    out_real = os.path.realpath(outdir) if outdir is not None else None
-    seen_inputs: dict[str, str] = {}
-    seen_outputs: dict[str, str] = {}
-
-    def add(path: str, rel: str) -> None:
-        real = os.path.realpath(path)
-        if out_real is not None and _inside(real, out_real):
-            plan.skipped.append(_skip(path, rel, f"a link into the output folder {outdir}; outputs are not "
-                                                 "read as inputs"))
-            return
-        if real in seen_inputs:
-            plan.skipped.append(_skip(path, rel, f"the same file as {seen_inputs[real]}; rendered once"))
-            return
-        if out_real is None:
-            seen_inputs[real] = path
-            plan.jobs.append(Job(path, rel, ""))
-            return
-        output = os.path.normpath(os.path.join(outdir, rel))
-        if not _inside(os.path.dirname(output), out_real) or os.path.isabs(rel) or rel.startswith(".."):
-            plan.skipped.append(_fail(path, rel, "its output name would leave OUTDIR (through a link in the "
-                                                 "output folder); not rendered"))
-            return
-        key = os.path.normcase(output)
-        if key in seen_outputs:
-            plan.skipped.append(_fail(path, rel, f"its output name collides with that of {seen_outputs[key]}; "
-                                                 "rename one of them"))
-            return
-        seen_inputs[real], seen_outputs[key] = path, path
-        plan.jobs.append(Job(path, rel, output))
-
+    add = _Collector(plan, outdir)
+    out_real = add.out_real
     for arg in inputs:
         if not os.path.lexists(arg):
             raise BatchError(f"{arg}: error: no such file or folder")
+    folders = [i for i, arg in enumerate(inputs) if os.path.isdir(arg)]
+    names = root_names([inputs[i] for i in folders]) if len(folders) > 1 else []
+    prefixes = dict(zip(folders, names))
+    for i, arg in enumerate(inputs):
         if os.path.isdir(arg):
-            if out_real is not None and _inside(out_real, arg):
-                raise BatchError(f"{outdir}: error: the output folder lies inside the input folder {arg}; "
-                                 "choose an output folder outside every input")
-            if out_real is not None and _inside(arg, out_real):
-                raise BatchError(f"{arg}: error: this input lies inside the output folder {outdir}; "
-                                 "choose an output folder outside every input")
-            _walk(arg, add, plan, out_real)
+            _check_folder(arg, outdir, out_real)
+            _walk(arg, add, plan, out_real, prefix=prefixes.get(i, ""))
         else:
             if out_real is not None and _inside(arg, out_real):
                 raise BatchError(f"{arg}: error: this input lies inside the output folder {outdir}; "
@@ -145,7 +186,101 @@ def discover(inputs: list[str], outdir: str | None) -> Plan:
     return plan
 
 
-def _walk(top: str, add, plan: Plan, out_real: str | None = None) -> None:
+NO_ROW = "no row of the plan matches it; not rendered"
+
+
+def _fixed_part(pattern: str) -> str:
+    """The leading folders of a pattern that hold no wildcard: where to look for its files."""
+    fixed = []
+    for part in pattern.split("/"):
+        if any(c in part for c in "*?["):
+            break
+        fixed.append(part)
+    return "/".join(fixed)
+
+
+def discover_plan(plan, outdir: str | None) -> Plan:
+    """Find the files a batch plan (:class:`chainrun.recipe.plan.BatchPlan`) names, each tied to its row's recipe.
+
+    The folders its patterns start from are searched (as folder arguments are); each file found
+    is named by its path relative to the plan's folder and rendered by the first row that
+    matches it (``Job.recipe``). A file found there that no row matches is skipped, saying so.
+    OUTDIR may lie inside the plan's folder: it is passed over, never searched. A row matching
+    no file, or only files an earlier row takes, is a warning (``Plan.warnings``).
+
+    Raises
+    ------
+    BatchError
+        If an input folder lies inside OUTDIR.
+    """
+    from ..recipe.plan import match
+
+    found = Plan()
+    add = _Collector(found, outdir)
+    out_real = add.out_real
+    root = plan.root
+    rows = [(row, tuple(p + "/**" if os.path.isdir(os.path.join(root, p)) else p for p in row.patterns))
+            for row in plan.rows]
+    starts: list[str] = []
+    for _, patterns in rows:
+        for p in patterns:
+            start = os.path.normpath(os.path.join(root, _fixed_part(p)))
+            if start not in starts:
+                starts.append(start)
+    # Search each folder once: one inside another is searched with it.
+    folders = [s for s in starts if os.path.isdir(s)]
+    folders = [f for f in folders if not any(o != f and _inside(f, o) for o in folders)]
+    candidates: list[tuple[str, str]] = []
+
+    def collect(path: str, rel: str) -> None:
+        candidates.append((path, rel))
+
+    for folder in folders:
+        if out_real is not None and _inside(folder, out_real):
+            raise BatchError(f"{folder}: error: this input lies inside the output folder {outdir}; "
+                             "choose an output folder outside every input")
+        _walk(folder, collect, found, out_real, base=root, pass_over_outdir=True)
+    for start in starts:
+        if os.path.isfile(start) and not any(_inside(start, f) for f in folders):
+            candidates.append((start, os.path.relpath(start, root)))
+    hits = [0] * len(rows)
+    taken = [0] * len(rows)
+    seen: set[str] = set()
+    for path, rel in candidates:
+        if rel in seen:
+            continue
+        seen.add(rel)
+        first = None
+        for k, (row, patterns) in enumerate(rows):
+            if any(match(p, rel) for p in patterns):
+                hits[k] += 1
+                if first is None:
+                    first = k
+                    taken[k] += 1
+        if first is None:
+            found.skipped.append(_skip(path, rel, NO_ROW))
+        else:
+            add(path, rel, rows[first][0].recipe)
+    for k, (row, _) in enumerate(rows):
+        shown = ", ".join(f"'{p}'" for p in row.patterns)
+        if not hits[k]:
+            found.warnings.append(f"{row.where}: warning: {row.title} inputs {shown} match no file; "
+                                  "patterns are relative to the plan's folder")
+        elif not taken[k]:
+            found.warnings.append(f"{row.where}: warning: {row.title} inputs {shown} match only files an earlier "
+                                  "row takes; the first row matching a file renders it")
+    return found
+
+
+def _walk(top: str, add, plan: Plan, out_real: str | None = None, prefix: str = "", base: str | None = None,
+          pass_over_outdir: bool = False) -> None:
+    """Find the files under ``top``; each is named by its path relative to ``base`` (default ``top``) under ``prefix``."""
+    base = top if base is None else base
+
+    def relpath(path: str) -> str:
+        rel = os.path.relpath(path, base)
+        return os.path.join(prefix, rel) if prefix else rel
+
     visited: set[tuple[int, int]] = set()
     st = os.stat(top)
     visited.add((st.st_dev, st.st_ino))
@@ -156,14 +291,14 @@ def _walk(top: str, add, plan: Plan, out_real: str | None = None) -> None:
             with os.scandir(folder) as it:
                 entries = sorted(it, key=lambda e: e.name)
         except OSError as exc:
-            rel = os.path.relpath(folder, top)
+            rel = relpath(folder)
             plan.skipped.append(_fail(folder, rel, f"folder cannot be listed: {_reason(exc)}; "
                                                    "the files in it were not rendered"))
             continue
         subfolders = []
         for e in entries:
             path = e.path
-            rel = os.path.relpath(path, top)
+            rel = relpath(path)
             try:
                 is_dir = e.is_dir(follow_symlinks=True)
             except OSError:
@@ -177,6 +312,8 @@ def _walk(top: str, add, plan: Plan, out_real: str | None = None) -> None:
                     continue
                 key = (est.st_dev, est.st_ino)
                 if out_real is not None and _inside(path, out_real):
+                    if pass_over_outdir and os.path.realpath(path) == out_real:
+                        continue
                     plan.skipped.append(_skip(path, rel, "a link into the output folder; outputs are not read "
                                                          "as inputs, not searched"))
                     continue

@@ -17,9 +17,9 @@ from ..audio.reader import cut_short, probe
 from ..render import Policy
 from ..results import FAILED, REJECTED, FileResult
 from ..text import fault, reason as _reason
-from .discover import Job, discover
+from .discover import Job, discover, discover_plan
 
-__all__ = ["RateDesign", "Prepared", "prepare", "probe_job", "design_fault", "design_and_assess", "design_rates"]
+__all__ = ["RateDesign", "Prepared", "prepare", "probe_job", "design_fault", "design_and_assess", "design_rates", "prepare_plan"]
 
 
 @dataclass(frozen=True)
@@ -107,7 +107,12 @@ def design_rates(recipe: Recipe, rates: set[int]) -> dict[int, RateDesign]:
 
 @dataclass
 class Prepared:
-    """A batch ready to render: what to do with each file, decided before any audio is read."""
+    """A batch ready to render: what to do with each file, decided before any audio is read.
+
+    ``recipes``, ``policies`` and ``recipe_designs`` (rate -> design) hold one entry per recipe of the
+    batch, indexed by ``Job.recipe``; ``recipe``, ``policy`` and ``designs`` are the first (the only one
+    outside a plan).
+    """
 
     recipe: Recipe
     policy: Policy
@@ -116,6 +121,20 @@ class Prepared:
     work: list[tuple[Job, Source]]
     results: list[FileResult]       # already decided: skipped, unreadable, rejected at their rate
     refused: list[tuple[Job, FileResult]] = field(default_factory=list)   # those rejected at their rate
+    recipes: list[Recipe] = field(default_factory=list)
+    policies: list[Policy] = field(default_factory=list)
+    recipe_designs: list[dict[int, RateDesign]] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    plan_path: str | None = None
+
+    def __post_init__(self):
+        self.recipes = self.recipes or [self.recipe]
+        self.policies = self.policies or [self.policy]
+        self.recipe_designs = self.recipe_designs or [self.designs]
+
+    def design_for(self, job: Job, rate: int) -> RateDesign:
+        """The design that renders ``job`` (its recipe's, at ``rate``)."""
+        return self.recipe_designs[job.recipe][rate]
 
 
 def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> Prepared:
@@ -130,7 +149,25 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
     raw = check_raw_sections(recipe)
     if raw:
         raise BatchError(f"{raw[0]}; no audio was touched")
-    plan = discover(inputs, outdir)
+    return _prepare([recipe], [policy], discover(inputs, outdir), outdir)
+
+
+def prepare_plan(plan, outdir: str, policies: list[Policy]) -> Prepared:
+    """:func:`prepare` for a batch plan (:class:`chainrun.recipe.plan.BatchPlan`), one policy per recipe.
+
+    Every recipe is checked and designed at every rate in the batch before any audio is read.
+    """
+    for recipe in plan.recipes:
+        raw = check_raw_sections(recipe)
+        if raw:
+            raise BatchError(f"{raw[0]}; no audio was touched")
+    found = discover_plan(plan, outdir)
+    prep = _prepare(list(plan.recipes), list(policies), found, outdir)
+    prep.warnings, prep.plan_path = list(found.warnings), plan.path
+    return prep
+
+
+def _prepare(recipes: list[Recipe], policies: list[Policy], plan, outdir: str) -> Prepared:
     results = list(plan.skipped)
     probed: list[tuple[Job, Source]] = []
     for job in plan.jobs:
@@ -139,19 +176,22 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
             results.append(src)
             continue
         probed.append((job, src))
-    designs = design_rates(recipe, {src.rate for _, src in probed})
+    rates = {src.rate for _, src in probed}
+    designs = [design_rates(recipe, rates) for recipe in recipes]
     work, refused = [], []
     for job, src in probed:
-        d = designs[src.rate]
+        d = designs[job.recipe][src.rate]
         if d.usable:
             work.append((job, src))
         else:
-            r = FileResult(job.input, job.relpath, REJECTED, f"the recipe cannot be used at {src.rate} Hz: "
+            which = "the recipe" if len(recipes) == 1 else f"the recipe {recipes[job.recipe].path}"
+            r = FileResult(job.input, job.relpath, REJECTED, f"{which} cannot be used at {src.rate} Hz: "
                            f"{d.error}", source=src)
             refused.append((job, r))
             results.append(r)
     if probed and not work:
-        first = next(iter(designs.values()))
+        first = next(d for ds in designs for d in ds.values() if not d.usable)
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "
-                         f"({', '.join(map(str, designs))} Hz); no audio was touched")
-    return Prepared(recipe, policy, outdir, designs, work, results, refused)
+                         f"({', '.join(map(str, sorted(rates)))} Hz); no audio was touched")
+    return Prepared(recipes[0], policies[0], outdir, designs[0], work, results, refused,
+                    recipes, policies, designs)

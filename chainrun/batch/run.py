@@ -23,7 +23,7 @@ from ..text import reason as _reason
 from .discover import Job
 from .executors import Executor, InlineExecutor, PoolExecutor, Task
 from .outdir import Journal, claim_outdir, clean_leftovers
-from .plan import Prepared, RateDesign, prepare
+from .plan import Prepared, RateDesign, prepare, prepare_plan
 
 __all__ = ["BatchResult", "MAX_WORKERS", "job_key", "choose_executor", "execute", "claimed", "run_batch"]
 
@@ -41,6 +41,18 @@ class BatchResult:
     interrupted: bool = False
     notes: list[str] = field(default_factory=list)
     pictures: dict = field(default_factory=dict)      # rate -> Future of the report's response picture
+    # One entry per recipe of the batch (a plan's, indexed by Job.recipe); the first is recipe/policy/designs.
+    recipes: list[Recipe] = field(default_factory=list)
+    policies: list[Policy] = field(default_factory=list)
+    recipe_designs: list[dict[int, RateDesign]] = field(default_factory=list)
+    recipe_of: dict[str, int] = field(default_factory=dict)   # input path -> its recipe's index
+    recipe_pictures: list[dict] = field(default_factory=list)  # per recipe: rate -> picture (plans)
+    plan_path: str | None = None
+
+    def __post_init__(self):
+        self.recipes = self.recipes or [self.recipe]
+        self.policies = self.policies or [self.policy]
+        self.recipe_designs = self.recipe_designs or [self.designs]
 
     def count(self, status: str) -> int:
         return sum(r.status == status for r in self.results)
@@ -85,11 +97,13 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     journal = Journal(prep.outdir)
     if journal.problem:
         notes.append(f"the resume journal cannot be read ({journal.problem}); every file is rendered")
-    key = job_key(prep.recipe, prep.policy)
+    if prep.warnings:
+        notes.extend(prep.warnings)
+    keys = [job_key(recipe, policy) for recipe, policy in zip(prep.recipes, prep.policies)]
 
     todo = []
     for job, src in prep.work:
-        entry = journal.finished(job.relpath, key, job.input, job.output) if resume else None
+        entry = journal.finished(job.relpath, keys[job.recipe], job.input, job.output) if resume else None
         try:
             r = FileResult.from_record(entry.result, job.input, job.relpath, job.output, src) if entry else None
         except Exception:      # an entry that matches but cannot be read back: render the file again
@@ -107,7 +121,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
 
     if executor is None:
         executor = choose_executor(workers, len(todo))
-    policy = replace(prep.policy, threads=executor.threads)
+    policies = [replace(p, threads=executor.threads) for p in prep.policies]
     journal_failed: list[str] = []
     accounted: set[str] = set()
 
@@ -117,7 +131,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
         _note_earlier_output(job, r)
         if r.status in DELIVERED and not journal_failed:
             try:
-                journal.record(job.relpath, key, job.input, job.output, r.to_record())
+                journal.record(job.relpath, keys[job.recipe], job.input, job.output, r.to_record())
             except OSError as exc:      # the file is delivered; only a later run's resume is affected
                 journal_failed.append(f"{journal.path}: {_reason(exc)}")
         results.append(r)
@@ -129,8 +143,8 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
     tasks = []
     for job, src in todo:
-        d = prep.designs[src.rate]
-        tasks.append(Task(job, src, d.chain.sos, d.assessment.peak_gain, policy))
+        d = prep.design_for(job, src.rate)
+        tasks.append(Task(job, src, d.chain.sos, d.assessment.peak_gain, policies[job.recipe]))
     interrupted = executor.run(tasks, finished)
     notes.extend(executor.notes)
     if journal_failed:
@@ -147,8 +161,10 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
             results.append(FileResult(job.input, job.relpath, FAILED, INTERRUPTED, source=src))
     order = {job.input: i for i, (job, _) in enumerate(prep.work)}
     results.sort(key=lambda r: (order.get(r.input, -1), r.relpath))
+    recipe_of = {job.input: job.recipe for job, _ in prep.work} | {job.input: job.recipe for job, _ in prep.refused}
     return BatchResult(prep.recipe, prep.policy, prep.outdir, prep.designs, results,
-                       time.perf_counter() - t0, interrupted, notes)
+                       time.perf_counter() - t0, interrupted, notes, recipes=prep.recipes, policies=prep.policies,
+                       recipe_designs=prep.recipe_designs, recipe_of=recipe_of, plan_path=prep.plan_path)
 
 
 def _note_earlier_output(job: Job, r: FileResult) -> None:
@@ -170,16 +186,19 @@ def _note_earlier_output(job: Job, r: FileResult) -> None:
 
 
 @contextlib.contextmanager
-def claimed(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> Iterator[tuple[Prepared, list[str]]]:
+def claimed(recipe: Recipe | None, inputs: list[str], outdir: str, policy: Policy | None, *, plan=None,
+            policies: list[Policy] | None = None) -> Iterator[tuple[Prepared, list[str]]]:
     """Prepare the batch, then hold OUTDIR while the body runs: yields the prepared batch and the notes of
     taking OUTDIR (a lock taken over, leftovers removed). The start of every run, with or without reports.
+    With ``plan`` (a :class:`chainrun.recipe.plan.BatchPlan`), its rows and ``policies`` (one per recipe)
+    take the place of ``recipe``, ``inputs`` and ``policy``.
 
     Raises
     ------
     BatchError
         From :func:`~.plan.prepare` or :func:`~.outdir.claim_outdir`, before any audio is read.
     """
-    prep = prepare(recipe, inputs, outdir, policy)
+    prep = prepare(recipe, inputs, outdir, policy) if plan is None else prepare_plan(plan, outdir, policies)
     lock, notes = claim_outdir(outdir)
     try:
         yield prep, notes

@@ -20,15 +20,18 @@ from ..recipe import RecipeError
 from .common import EXIT_NOT_OK, EXIT_USAGE, UsageError, _err, _positive, _rate
 
 def _check_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("recipes", nargs="+", metavar="RECIPE_OR_DIR", help="recipe files or folders searched for *.yaml")
+    p.add_argument("recipes", nargs="+", metavar="RECIPE_OR_DIR",
+                   help="recipe files or folders searched for *.yaml; a batch plan stands for every recipe it names")
     p.add_argument("--rate", type=_rate, action="append", metavar="HZ",
                    help="sample rate to check; repeat for several (default: 44100, 48000, 96000)")
     p.add_argument("--json", action="store_true", help="print results as JSON on stdout")
 
 
 def _run_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("recipe", metavar="RECIPE")
-    p.add_argument("inputs", nargs="+", metavar="INPUT", help="audio files or folders (searched recursively)")
+    p.add_argument("recipe", nargs="?", metavar="RECIPE", help="the recipe (not with --plan)")
+    p.add_argument("inputs", nargs="*", metavar="INPUT", help="audio files or folders (searched recursively)")
+    p.add_argument("--plan", metavar="PLAN", help="a batch plan (YAML) naming inputs and the recipe of each, "
+                                                  "instead of RECIPE and INPUT")
     p.add_argument("-o", "--outdir", required=True, metavar="OUTDIR", help="output folder (created if needed)")
     p.add_argument("--workers", type=_positive("--workers"), metavar="N",
                    help=f"cores to keep busy (default: all, here {cores()}): N files at once in separate "

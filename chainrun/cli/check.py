@@ -16,6 +16,8 @@ def _print_check(entry: dict) -> None:
     title = f"{shown(entry['path'])}"
     if "name" in entry:
         title += f"  \"{shown(entry['name'])}\"  {entry['sections']} section(s)"
+    if entry.get("plan") and entry["plan"] != entry["path"]:
+        title += f"  (named by the plan {shown(entry['plan'])})"
     print(title)
     if entry["rates"]:
         print(f"  {'rate':>9}  {'biquads':>7}  {'max pole radius':>15}  {'60 dB decay':>11}  "

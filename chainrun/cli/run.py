@@ -4,7 +4,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ..app import run
+from ..app import refuse_recipe_inputs, run
 from ..batch.run import MAX_WORKERS
 from ..recipe import RecipeError, load
 from ..results import FAILED, INTERRUPTED
@@ -46,19 +46,38 @@ def main(args: argparse.Namespace) -> int:
     if args.workers is not None and args.workers > MAX_WORKERS:
         _err(f"--workers {args.workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
         return EXIT_USAGE
+    plan = recipe = None
+    if args.plan is not None:
+        if args.recipe is not None:
+            _err("chainrun run: error: --plan names the recipes and the inputs; give either --plan PLAN or "
+                 "RECIPE INPUT..., not both; see 'chainrun run --help'")
+            return EXIT_USAGE
+    elif args.recipe is None or not args.inputs:
+        _err("chainrun run: error: the following arguments are required: RECIPE, INPUT (or --plan PLAN); "
+             "see 'chainrun run --help'")
+        return EXIT_USAGE
+    else:
+        refuse_recipe_inputs(args.inputs)
     try:
-        recipe = load(args.recipe)
+        if args.plan is not None:
+            from ..recipe.plan import load_plan
+
+            plan = load_plan(args.plan)
+            warnings = [w for r in plan.recipes for w in r.warnings]
+        else:
+            recipe = load(args.recipe)
+            warnings = list(recipe.warnings)
     except RecipeError as exc:
         _err(f"{exc}; no audio was touched")
         return EXIT_USAGE
-    for line in recipe.warnings:
+    for line in dict.fromkeys(warnings):
         _err(line)
-    outcome = run(recipe, args.inputs, args.outdir, workers=args.workers, block_size=args.block_size,
+    outcome = run(recipe, args.inputs, args.outdir, plan=plan, workers=args.workers, block_size=args.block_size,
                   on_over=args.on_over, report=args.report, true_peak=not args.no_true_peak, redo=args.redo,
                   progress=_Progress(sys.stderr.isatty()), command=["chainrun"] + args.argv)
     result = outcome.result
     for note in result.notes:
-        _err(f"chainrun: note: {note}")
+        _err(note if ": warning: " in note else f"chainrun: note: {note}")    # a plan's located warnings as they are
     document = files_document(result)
     print(console_summary(document, outcome.report_paths))
     for line in error_lines(document):

@@ -32,7 +32,7 @@ _FALLBACK_HEADLINE = (
 )
 
 # Keys the HTML page needs that are not written to the JSON report (they hold the live batch's pictures).
-VIEW_ONLY = ("outdir", "responses")
+VIEW_ONLY = ("outdir", "responses", "recipe_responses")
 
 
 def _num(x: Any) -> Any:
@@ -100,6 +100,50 @@ def file_dict(r: FileResult) -> dict:
     return d
 
 
+def _policy_dict(policy) -> dict:
+    return {"on_over": policy.on_over, "ceiling_dbfs": policy.ceiling_dbfs,
+            "true_peak_ceiling_dbtp": policy.true_peak_ceiling_dbtp, "subtype": policy.subtype,
+            "dither": policy.dither, "block_size": policy.block_size,
+            "metadata": "keep" if getattr(policy, "metadata", True) else "drop",
+            "loudness": getattr(policy, "loudness", False),
+            "target_lufs": getattr(policy, "target_lufs", None),
+            "loudness_link": getattr(policy, "loudness_link", "file")}
+
+
+def _rates_list(designs: dict) -> list[dict]:
+    return [{"rate_hz": rate, "usable": d.usable, "error": d.error,
+             "chain": d.chain.to_dict() if d.chain else None,
+             "assessment": d.assessment.to_dict() if d.assessment else None}
+            for rate, d in sorted(designs.items())]
+
+
+def _plan_part(b: BatchResult) -> dict:
+    """A plan run's own keys: ``plan`` (its path) and ``recipes`` (each with its policy and its designs per rate);
+    ``recipe``/``recipe_digest``/``policy``/``rates`` are then the first recipe's. Empty outside a plan."""
+    if b.plan_path is None:
+        return {}
+    return {"plan": shown(b.plan_path), "recipes": [
+        {"index": i, "name": r.name, "path": shown(r.path), "digest": r.digest, "recipe": r.to_dict(),
+         "policy": _policy_dict(p), "rates": _rates_list(d),
+         "files": sum(b.recipe_of.get(f.input) == i for f in b.results)}
+        for i, (r, p, d) in enumerate(zip(b.recipes, b.policies, b.recipe_designs))]}
+
+
+def _files(b: BatchResult) -> list[dict]:
+    """Every file's dict; in a plan run each also names its recipe (``recipe_name``, ``recipe_path``)."""
+    files = []
+    for r in b.results:
+        d = file_dict(r)
+        if b.plan_path is not None:
+            i = b.recipe_of.get(r.input)
+            recipe = b.recipes[i] if i is not None else None
+            d["recipe_index"] = i
+            d["recipe_name"] = recipe.name if recipe else None
+            d["recipe_path"] = shown(recipe.path) if recipe else None
+        files.append(d)
+    return files
+
+
 def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
     """The whole batch as JSON-safe data: recipe, designs per rate, files, summary (the JSON report)."""
     return {
@@ -109,25 +153,13 @@ def batch_dict(b: BatchResult, command: list[str] | None = None) -> dict:
         "command": command,
         "recipe": b.recipe.to_dict(),
         "recipe_digest": b.recipe.digest,
-        "policy": {
-            "on_over": b.policy.on_over, "ceiling_dbfs": b.policy.ceiling_dbfs,
-            "true_peak_ceiling_dbtp": b.policy.true_peak_ceiling_dbtp, "subtype": b.policy.subtype,
-            "dither": b.policy.dither, "block_size": b.policy.block_size,
-            "metadata": "keep" if getattr(b.policy, "metadata", True) else "drop",
-            "loudness": getattr(b.policy, "loudness", False),
-            "target_lufs": getattr(b.policy, "target_lufs", None),
-            "loudness_link": getattr(b.policy, "loudness_link", "file"),
-        },
-        "rates": [
-            {"rate_hz": rate, "usable": d.usable, "error": d.error,
-             "chain": d.chain.to_dict() if d.chain else None,
-             "assessment": d.assessment.to_dict() if d.assessment else None}
-            for rate, d in sorted(b.designs.items())
-        ],
+        "policy": _policy_dict(b.policy),
+        "rates": _rates_list(b.designs),
+        **_plan_part(b),
         "summary": _summary(b),
         "notes": list(b.notes),
         "headline_fields": headline_fields(),
-        "files": [file_dict(r) for r in b.results],
+        "files": _files(b),
     }
 
 
@@ -142,7 +174,7 @@ def _summary(b: BatchResult) -> dict:
 
 def files_document(b: BatchResult) -> dict:
     """The part of the document that the console summary and the stderr lines read: summary, files."""
-    return {"summary": _summary(b), "headline_fields": headline_fields(), "files": [file_dict(r) for r in b.results]}
+    return {"summary": _summary(b), "headline_fields": headline_fields(), "files": _files(b)}
 
 
 def with_pictures(document: dict, b: BatchResult) -> dict:
@@ -153,10 +185,23 @@ def with_pictures(document: dict, b: BatchResult) -> dict:
     response picture as inline SVG, or why it could not be drawn. Waits for
     pictures drawn aside (``BatchResult.pictures``) and draws the missing ones.
     """
+    extra = {"outdir": b.outdir, "responses": _responses(b, b.designs)}
+    if b.plan_path is not None:        # a plan: each recipe's pictures, as "recipe_responses"[index]
+        from types import SimpleNamespace
+
+        extra["recipe_responses"] = [
+            _responses(SimpleNamespace(recipe=r, pictures=(b.recipe_pictures[i] if i < len(b.recipe_pictures)
+                                                           else {})), designs)
+            for i, (r, designs) in enumerate(zip(b.recipes, b.recipe_designs))]
+    return {**document, **extra}
+
+
+def _responses(b, designs: dict) -> list[dict]:
+    """``{"rate_hz", "svg", "error"}`` for each designed rate of ``designs`` (``b``: its recipe and pictures)."""
     from .pictures import picture_of
 
     responses = []
-    for rate, d in sorted(b.designs.items()):
+    for rate, d in sorted(designs.items()):
         if d.chain is None or d.assessment is None:
             continue
         svg = error = None
@@ -165,4 +210,4 @@ def with_pictures(document: dict, b: BatchResult) -> dict:
         except Exception as exc:   # a picture that cannot be drawn must not cost the report
             error = f"{type(exc).__name__}: {exc}"
         responses.append({"rate_hz": rate, "svg": svg, "error": error})
-    return {**document, "outdir": b.outdir, "responses": responses}
+    return responses

@@ -43,12 +43,18 @@ def _header(data: dict) -> list[str]:
     rows = [
         ("recipe", f'{esc(name)} <span class="sub">({esc(recipe.get("path"))})</span>'),
         ("recipe digest", f'<code>{esc(data.get("recipe_digest"))}</code>'),
+    ] if not data.get("plan") else [
+        ("plan", f'<code>{esc(data["plan"])}</code>'),
+        ("recipes", "; ".join(f'{esc(r.get("name"))} <span class="sub">({esc(r.get("path"))})</span>'
+                              for r in data.get("recipes") or [])),
+    ]
+    rows += [
         ("command", f"<code>{esc(shlex.join(map(plain, command)))}</code>" if command else '<span class="na">&ndash;</span>'),
     ]
     if data.get("outdir") is not None:
         rows.append(("output folder", f"<code>{esc(data['outdir'])}</code>"))
     pol = data.get("policy") or {}
-    if pol:
+    if pol and not data.get("plan"):          # a plan's policies are each recipe's, shown with it
         tp = pol.get("true_peak_ceiling_dbtp")
         rows.append(("policy", esc(
             f"on_over {pol.get('on_over')}, ceiling {pol.get('ceiling_dbfs')} dBFS"
@@ -99,8 +105,35 @@ def _summary(data: dict, ordered: list[dict]) -> list[str]:
     return out
 
 
-def _responses(data: dict, ordered: list[dict]) -> list[str]:
-    out = ['<h2 id="responses">The chain at each sample rate</h2>']
+def _plan_views(data: dict, ordered: list[dict]):
+    """For a plan's report: (title, anchor prefix, the data of one recipe as a one-recipe page sees it, its files)."""
+    responses = data.get("recipe_responses")
+    for entry in data.get("recipes") or []:
+        i = entry.get("index")
+        view = {**data, "recipe": entry.get("recipe"), "rates": entry.get("rates"), "policy": entry.get("policy")}
+        view.pop("responses", None)
+        if responses is not None and i is not None and i < len(responses):
+            view["responses"] = responses[i]
+        files = [f for f in ordered if f.get("recipe_index") == i]
+        yield f"{entry.get('name')} ({entry.get('path')})", f"r{i}-", view, files
+
+
+def _plan_responses(data: dict, ordered: list[dict]) -> list[str]:
+    out = ['<h2 id="responses">Each recipe\'s chain at each sample rate</h2>']
+    for title, prefix, view, files in _plan_views(data, ordered):
+        out += _responses(view, files, prefix, heading=f"<h3>{esc(title)}</h3>")
+    return out
+
+
+def _plan_recipes(data: dict, ordered: list[dict]) -> list[str]:
+    out = ['<h2 id="recipe">The recipes as resolved</h2>']
+    for _, _, view, _ in _plan_views(data, ordered):
+        out += _recipe(view, level=3)
+    return out
+
+
+def _responses(data: dict, ordered: list[dict], prefix: str = "", heading: str | None = None) -> list[str]:
+    out = ['<h2 id="responses">The chain at each sample rate</h2>'] if heading is None else [heading]
     rates = data.get("rates") or []
     if not rates:
         out.append("<p>No audio file was read, so the chain was not designed at any rate.</p>")
@@ -119,14 +152,14 @@ def _responses(data: dict, ordered: list[dict]) -> list[str]:
         n = per_rate.get(rate, 0)
         a = entry.get("assessment") or {}
         if entry.get("chain") is None or (drawn and entry.get("assessment") is None):
-            out.append(f'<h3 id="rate-{esc(rate)}">{esc(rate)} Hz: no chain</h3>')
+            out.append(f'<h3 id="{prefix}rate-{esc(rate)}">{esc(rate)} Hz: no chain</h3>')
             out.append(f'<p><span class="verdict-rejected">The recipe cannot be designed at {esc(rate)} Hz</span>, '
                        f"so the {n} file(s) at this rate were rejected: {esc(entry.get('error'))}</p>")
             continue
         accepted = bool(a.get("accepted"))
         verdict = ('<span class="verdict-accepted">accepted by the guard</span>' if accepted else
                    '<span class="verdict-rejected">REJECTED by the guard; not applied to any file</span>')
-        out.append(f'<h3 id="rate-{esc(rate)}">{esc(rate)} Hz: {verdict}</h3>')
+        out.append(f'<h3 id="{prefix}rate-{esc(rate)}">{esc(rate)} Hz: {verdict}</h3>')
         out.append("<figure>")
         picture = pictures.get(rate) or {}
         if not drawn:
@@ -153,12 +186,12 @@ def _responses(data: dict, ordered: list[dict]) -> list[str]:
     return out
 
 
-def _files_table(ordered: list[dict]) -> list[str]:
+def _files_table(ordered: list[dict], with_recipe: bool = False) -> list[str]:
     out = ['<h2 id="files">Files, those needing attention first</h2>',
            f"<p>{len(ordered)} file(s): failed, rejected and clipped first, then ok files by output peak, "
            "loudest first, and skipped files last. Levels are the loudest channel's.</p>",
            '<div class="wrap"><table id="file-table">',
-           '<thead><tr><th class="num">#</th><th>file</th><th>status</th>'
+           '<thead><tr><th class="num">#</th><th>file</th>' + ("<th>recipe</th>" if with_recipe else "") + '<th>status</th>'
            '<th class="num">input peak <span class="unit">dBFS</span></th>'
            '<th class="num">output peak <span class="unit">dBFS</span></th>'
            '<th class="num">output true peak <span class="unit">dBTP</span></th>'
@@ -186,7 +219,8 @@ def _files_table(ordered: list[dict]) -> list[str]:
         out.append(
             f"<tr{anchor} class=\"row-{esc(status)}\"><td class=\"num\">{k}</td>"
             f"<td class=\"file\"{title}>{esc(f.get('relpath') or f.get('input'))}</td>"
-            f"<td>{status_badge(status)}</td>"
+            + (f'<td title="{esc(f.get("recipe_path"))}">{esc(f.get("recipe_name"))}</td>' if with_recipe else "")
+            +             f"<td>{status_badge(status)}</td>"
             + db_cell(im, "peak_dbfs")
             + db_cell(om, "peak_dbfs")
             + db_cell(om, "true_peak_dbtp")
@@ -281,9 +315,11 @@ def _param_text(section: dict) -> str:
     return ", ".join(parts)
 
 
-def _recipe(data: dict) -> list[str]:
+def _recipe(data: dict, level: int = 2) -> list[str]:
     recipe = data.get("recipe") or {}
-    out = ['<h2 id="recipe">The recipe as resolved</h2>',
+    head = ('<h2 id="recipe">The recipe as resolved</h2>' if level == 2 else
+            f"<h3>{esc(recipe.get('name'))}</h3>")
+    out = [head,
            f"<p><strong>{esc(recipe.get('name'))}</strong> from <code>{esc(recipe.get('path'))}</code>"]
     includes = recipe.get("includes") or []
     if includes:
@@ -298,7 +334,7 @@ def _recipe(data: dict) -> list[str]:
     policy = data.get("policy") or {}
     for title, key in (("guard", "guard"), ("output", "output")):
         block = recipe.get(key) or {}
-        out.append(f"<h3>{title}</h3><dl class=\"meta\">")
+        out.append(f"<h{level + 1}>{title}</h{level + 1}><dl class=\"meta\">")
         for k, v in block.items():
             note = ""
             if k in policy and k != "dither" and policy[k] != v and not (k == "subtype" and v == "same"):
@@ -376,10 +412,11 @@ def render_html(data: dict) -> str:
                 '<a href="#recipe">Recipe</a></p></nav>')
     body.append("</header><main>")
     body += _summary(data, ordered)
-    body += _files_table(ordered)
+    plan = bool(data.get("plan"))
+    body += _files_table(ordered, with_recipe=plan)
     body += _regions(ordered)
-    body += _responses(data, ordered)
-    body += _recipe(data)
+    body += _plan_responses(data, ordered) if plan else _responses(data, ordered)
+    body += _plan_recipes(data, ordered) if plan else _recipe(data)
     body.append("</main>")
     body.append(f"<footer><p>Written by chainrun {esc(data.get('chainrun_version'))} on {esc(data.get('created'))}. "
                 "This page is self-contained: it loads nothing from any network. The same figures are in "

@@ -119,9 +119,9 @@ def _grid(ax: _Axes, lo: float, nyq: float) -> list[str]:
     ticks = _y_ticks(ax.bottom, ax.top)
     out += [f'<line x1="{LEFT}" y1="{_num(ax.y(v))}" x2="{RIGHT}" y2="{_num(ax.y(v))}"/>' for v in ticks if v != 0]
     out.append("</g>")
-    out.append(f'<g font-size="12" fill="#333" text-anchor="middle">')
+    out.append('<g font-size="12" fill="#333" text-anchor="middle">')
     out += [_text(ax.x(t), bottom_y + 17, _freq_text(t), ' class="x-tick"') for t in major]
-    out.append(f'</g><g font-size="12" fill="#333" text-anchor="end" dominant-baseline="central">')
+    out.append('</g><g font-size="12" fill="#333" text-anchor="end" dominant-baseline="central">')
     out += [_text(LEFT - 7, ax.y(v), _tick_text(v), ' class="y-tick"') for v in ticks]
     out.append("</g>")
     out.append(_text(18, TOP + HEIGHT / 2, "magnitude (dB)",
