@@ -13,6 +13,7 @@ from ..design import Chain, design
 from ..errors import AudioError, BatchError
 from ..guard import Assessment, assess, check_raw_sections
 from ..recipe import Recipe, RecipeError
+from ..recipe.channels import channels_misfit
 from ..audio.reader import cut_short, probe
 from ..render import Policy
 from ..results import FAILED, REJECTED, FileResult
@@ -143,13 +144,19 @@ def prepare(recipe: Recipe, inputs: list[str], outdir: str, policy: Policy) -> P
     work, refused = [], []
     for job, src in probed:
         d = designs[src.rate]
-        if d.usable:
+        misfit = channels_misfit(recipe, src.channels) if d.usable else None
+        if d.usable and not misfit:
             work.append((job, src))
         else:
-            r = FileResult(job.input, job.relpath, REJECTED, f"the recipe cannot be used at {src.rate} Hz: "
-                           f"{d.error}", source=src)
+            why = (f"the recipe cannot be used at {src.rate} Hz: {d.error}" if not d.usable else
+                   f"the recipe cannot be used on this file's {src.channels} channel(s): {misfit}")
+            r = FileResult(job.input, job.relpath, REJECTED, why, source=src)
             refused.append((job, r))
             results.append(r)
+    if probed and not work and all(d.usable for d in designs.values()):
+        first_job, first = refused[0]
+        raise BatchError(f"{first_job.input}: {first.message}; the recipe's channels fit no file in the batch; "
+                         "no audio was touched")
     if probed and not work:
         first = next(iter(designs.values()))
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "

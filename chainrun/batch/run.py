@@ -130,7 +130,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     tasks = []
     for job, src in todo:
         d = prep.designs[src.rate]
-        tasks.append(Task(job, src, d.chain.sos, d.assessment.peak_gain, policy))
+        tasks.append(Task(job, src, d.chain.filters, d.assessment.peak_gain, policy))
     interrupted = executor.run(tasks, finished)
     notes.extend(executor.notes)
     if journal_failed:

@@ -11,7 +11,7 @@ from ..section_types import CHANNEL_WORDS, MAX_TRACK
 from .model import Section
 from .yaml import _describe, _Node
 
-__all__ = ["read_channels", "one_kind_of_channels", "channels_text"]
+__all__ = ["read_channels", "one_kind_of_channels", "channels_text", "channels_misfit"]
 
 
 def read_channels(node: _Node, name: str) -> tuple[int, ...] | str:
@@ -55,3 +55,19 @@ def one_kind_of_channels(sections: list[Section]) -> None:
 
 def channels_text(channels: tuple[int, ...] | str) -> str:
     return channels if isinstance(channels, str) else "[" + ", ".join(map(str, channels)) + "]"
+
+
+def channels_misfit(recipe, channels: int) -> str | None:
+    """Why the recipe's ``channels:`` cannot be applied to a file of ``channels`` channels (one
+    located line), or None if they can (always, for a recipe without ``channels``)."""
+    for s in recipe.sections:
+        if s.channels is None:
+            continue
+        if isinstance(s.channels, str):
+            if channels != 2:
+                return (f"{s.locate('channels')}: error: chain[{s.index}].channels {s.channels} needs a "
+                        f"two-channel file; this one has {channels} channel(s)")
+        elif max(s.channels) > channels:
+            return (f"{s.locate('channels')}: error: chain[{s.index}].channels names track {max(s.channels)}; "
+                    f"this file has {channels} channel(s); allowed: tracks 1 to {channels}")
+    return None
