@@ -9,6 +9,11 @@ convention of scipy.signal and the Audio EQ Cookbook::
 
 Here the frequencies are checked against Nyquist at the rate used, and a design that
 over- or underflows becomes a located :class:`~chainrun.recipe.RecipeError`.
+
+A recipe whose sections name ``channels`` is designed as one cascade per channel path
+(:class:`Path`): the sections a path runs are, top to bottom, every section without
+``channels`` and every section naming that path's tracks (or mid, or side). A recipe
+without ``channels`` has one path, the whole chain, and filters every channel with it.
 """
 from __future__ import annotations
 
@@ -20,7 +25,40 @@ from .errors import RecipeError
 from .recipe import Recipe, Section
 from .section_types import SECTIONS
 
-__all__ = ["Chain", "design", "design_section"]
+__all__ = ["Chain", "Path", "design", "design_section", "MIDSIDE", "TRACKS", "EVERY"]
+
+EVERY, TRACKS, MIDSIDE = "every", "tracks", "midside"       # how a chain routes channels
+_IDENTITY = np.array([[1.0, 0.0, 0.0, 1.0, 0.0, 0.0]])       # a path no section touches: passes unchanged
+
+
+@dataclass(frozen=True, eq=False)
+class Path:
+    """One channel path of a chain: the cascade some channels (or mid, or side) run through.
+
+    Attributes
+    ----------
+    key : str
+        ``"all"`` (a chain without channels), ``"mid"``, ``"side"``, the tracks it filters
+        (``"2"``, ``"1,3"``) or ``"other"`` (the tracks no section names).
+    title : str
+        For people: ``every channel``, ``track 2``, ``tracks 1, 3``, ``other tracks``, ``mid``, ``side``.
+    tracks : tuple of int
+        The 1-based tracks it filters (empty for ``all``, ``other``, ``mid`` and ``side``).
+    sos, labels, rows
+        As in :class:`Chain`, for this path's sections only. A path no section touches is
+        one identity row (``rows == (-1,)``): it passes its channels unchanged, exactly.
+    """
+
+    key: str
+    title: str
+    tracks: tuple[int, ...]
+    sos: np.ndarray
+    labels: tuple[str, ...]
+    rows: tuple[int, ...]
+
+    def to_dict(self) -> dict:
+        return {"key": self.key, "title": self.title, "labels": list(self.labels),
+                "sos": [[float(v) for v in row] for row in self.sos]}
 
 
 @dataclass(frozen=True, eq=False)
@@ -38,16 +76,43 @@ class Chain:
         One label per row, naming the recipe section it came from.
     rows : tuple of int
         For each row, the index of its section in ``Recipe.sections``.
+    routing : str
+        ``EVERY``: one cascade, ``sos``, for every channel (a recipe without ``channels``);
+        ``TRACKS``: one path per group of tracks; ``MIDSIDE``: a two-channel file encoded to
+        mid and side, each filtered by its path, and decoded back.
+    paths : tuple of Path
+        The distinct paths, empty when ``routing`` is ``EVERY``. Then ``sos`` holds every
+        section's rows in recipe order, which is no single filter: ``paths`` are.
     """
 
     rate: int
     sos: np.ndarray
     labels: tuple[str, ...]
     rows: tuple[int, ...]
+    routing: str = EVERY
+    paths: tuple[Path, ...] = ()
+
+    @property
+    def cascades(self) -> tuple[Path, ...]:
+        """Every distinct path; for a chain without channels, the whole chain as the one path ``all``."""
+        return self.paths or (Path("all", "every channel", (), self.sos, self.labels, self.rows),)
+
+    @property
+    def filters(self):
+        """What the renderer applies: ``sos`` for a chain without channels, else the chain itself."""
+        return self.sos if self.routing == EVERY else self
+
+    def path_of_track(self, track: int) -> Path:
+        """The path that filters 1-based ``track`` (``TRACKS`` routing)."""
+        return next((p for p in self.paths if track in p.tracks),
+                    next(p for p in self.paths if p.key == "other"))
 
     def to_dict(self) -> dict:
-        return {"rate": self.rate, "labels": list(self.labels),
-                "sos": [[float(v) for v in row] for row in self.sos]}
+        out = {"rate": self.rate, "labels": list(self.labels),
+               "sos": [[float(v) for v in row] for row in self.sos]}
+        if self.paths:
+            out.update(routing=self.routing, paths=[p.to_dict() for p in self.paths])
+        return out
 
 
 def design_section(section: Section, rate: float) -> np.ndarray:
@@ -111,4 +176,34 @@ def design(recipe: Recipe, rate: int) -> Chain:
         labels.extend(section.title if n == 1 else f"{section.title} [{k + 1}/{n}]" for k in range(n))
         rows.extend([i] * n)
     sos = np.ascontiguousarray(np.vstack(blocks), dtype=np.float64)
-    return Chain(int(rate), sos, tuple(labels), tuple(rows))
+    routing, paths = _paths(recipe, sos, labels, rows)
+    return Chain(int(rate), sos, tuple(labels), tuple(rows), routing, paths)
+
+
+def _path(key: str, title: str, tracks: tuple[int, ...], chosen: list[int], sos: np.ndarray,
+          labels: list[str], rows: list[int]) -> Path:
+    """The path through the sections ``chosen`` (indices into the recipe, in order)."""
+    mine = [r for r, i in enumerate(rows) if i in set(chosen)]
+    if not mine:
+        return Path(key, title, tracks, _IDENTITY.copy(), ("no section: passes unchanged",), (-1,))
+    return Path(key, title, tracks, np.ascontiguousarray(sos[mine]), tuple(labels[r] for r in mine),
+                tuple(rows[r] for r in mine))
+
+
+def _paths(recipe: Recipe, sos: np.ndarray, labels: list[str], rows: list[int]) -> tuple[str, tuple[Path, ...]]:
+    """How the recipe routes channels, and its distinct paths (none for a recipe without ``channels``)."""
+    chans = [s.channels for s in recipe.sections]
+    if all(c is None for c in chans):
+        return EVERY, ()
+    if any(isinstance(c, str) for c in chans):
+        return MIDSIDE, tuple(_path(word, word, (), [i for i, c in enumerate(chans) if c in (None, word)],
+                                    sos, labels, rows) for word in ("mid", "side"))
+    named = sorted({t for c in chans if c is not None for t in c})
+    groups: dict[tuple[int, ...], list[int]] = {}        # sections run -> the tracks that run them
+    for t in named:
+        groups.setdefault(tuple(i for i, c in enumerate(chans) if c is None or t in c), []).append(t)
+    paths = [_path(",".join(map(str, ts)), ("track " if len(ts) == 1 else "tracks ") + ", ".join(map(str, ts)),
+                   tuple(ts), list(chosen), sos, labels, rows) for chosen, ts in groups.items()]
+    paths.append(_path("other", "other tracks", (), [i for i, c in enumerate(chans) if c is None],
+                       sos, labels, rows))
+    return TRACKS, tuple(paths)

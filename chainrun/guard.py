@@ -32,21 +32,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .design import Chain
+from .design import MIDSIDE, Chain
+from .impulse import _impulse, _midside_l1
 from .recipe import Guard, Location, Recipe
 from .section_types import raw_sections
 
-__all__ = ["Problem", "Assessment", "assess", "response_db", "check_raw_sections"]
+__all__ = ["Problem", "Assessment", "PathAssessment", "assess", "response_db", "check_raw_sections"]
 
 GRID_POINTS = 4096          # log-spaced frequencies between LOWEST_HZ and Nyquist
 LOWEST_HZ = 1.0
 FLOOR_DB = -300.0           # gains below this (a notch's exact zero) read as this
-IMPULSE_BLOCK = 1 << 16     # impulse response computed in blocks of this many samples
-IMPULSE_CAP = 1 << 27       # ... up to this many samples
-IMPULSE_WORK = 1 << 29      # ... and this many row-samples (rows x samples); then the tail is bounded
-TAIL_REL = 1e-10            # the run stops once the tail's bound is below this fraction of the sum
-_EPS = float(np.finfo(np.float64).eps)
-_CHUNK = 64                 # decay time resolution, samples
 
 
 @dataclass(frozen=True)
@@ -82,6 +77,7 @@ class Assessment:
     peak_gain: float
     peak_gain_exact: bool
     problems: tuple[Problem, ...]
+    paths: tuple = ()             # PathAssessment per channel path; empty for a chain without channels
 
     @property
     def accepted(self) -> bool:
@@ -103,7 +99,7 @@ class Assessment:
             "worst_case_peak_gain": num(self.peak_gain), "worst_case_peak_gain_db": num(self.peak_gain_db),
             "worst_case_exact": self.peak_gain_exact,
             "problems": [p.to_dict() for p in self.problems],
-        }
+        } | ({"paths": [p.to_dict() for p in self.paths]} if self.paths else {})
 
 
 def response_db(sos: np.ndarray, freqs: np.ndarray, rate: float) -> np.ndarray:
@@ -192,118 +188,34 @@ def _extremes(sos: np.ndarray, rate: float, extra_hz: list[float]) -> tuple[floa
     return hi_db, hi_hz, lo_db, lo_hz
 
 
-def _tail_factors(sos: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Per row, what :func:`_zero_input_l1` needs: ``||u||_1``, ``w`` and ``1 - r``.
+@dataclass(frozen=True)
+class PathAssessment:
+    """The guard's figures for one channel path of a chain (see :class:`chainrun.design.Path`)."""
 
-    ``u`` is the impulse response of ``1 / (1 + a1 z^-1 + a2 z^-2)``, ``u[n] = sum_j p1^j p2^(n-j)``
-    over the poles, so ``||u||_1 <= 1 / ((1 - |p1|)(1 - |p2|))``, whatever the poles (equal ones
-    too). That product is taken from the coefficients without finding roots: ``(1 - r)**2`` with
-    ``1 - r = (1 - a2) / (1 + sqrt(a2))`` for a complex pair, ``D(1) D(-1) / (1 + |p1| + |p2| + |a2|)``
-    for real poles (``D`` the denominator), so that a pole near 1 costs no cancellation; each is
-    too large for the other kind, so both are taken where rounding could mistake one for the
-    other (the smaller is kept). For a
-    complex pair ``|u[n]| = r^n |sin((n+1) theta)| / sin(theta)`` also gives ``r / (w (1 - r))``,
-    with ``w = r sin(theta) = sqrt(4 a2 - a1**2) / 2`` taken low by its rounding error.
-    """
-    a1, a2 = sos[:, 4] / sos[:, 3], sos[:, 5] / sos[:, 3]
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        disc = a1 * a1 - 4.0 * a2
-        pair = disc < 0.0
-        root_a2 = np.sqrt(np.abs(a2))
-        one_minus_r = np.where(pair, (1.0 - a2) / (1.0 + root_a2), np.nan)
-        moduli = np.where(a2 >= 0.0, np.maximum(np.abs(a1), 2.0 * root_a2), np.sqrt(np.abs(disc)))
-        real = ((1.0 + a1) + a2) * ((1.0 - a1) + a2) / (1.0 + moduli + np.abs(a2))
-        # a double pole may read as a pair or as real by rounding: then the smaller one is kept
-        prod = np.where(a2 >= 0.0, np.fmin(((1.0 - a2) / (1.0 + root_a2)) ** 2, real), real)
-        u_l1 = np.where(prod > 0.0, 1.0 / prod, np.inf)
-        w = np.sqrt(np.maximum(-disc - 8.0 * _EPS * (a1 * a1 + 4.0 * np.abs(a2)), 0.0)) / 2.0
-        usable = pair & (w > 0.0) & (one_minus_r > 0.0)
-        u_l1 = np.where(usable, np.minimum(u_l1, root_a2 / (w * one_minus_r)), u_l1)
-    return a1, u_l1, np.where(usable, w, 0.0), np.where(usable, one_minus_r, np.nan)
+    key: str
+    title: str
+    rows: int
+    max_pole_radius: float
+    decay_s: float
+    decay_exact: bool
+    max_gain_db: float
+    max_gain_hz: float
+    min_gain_db: float
+    min_gain_hz: float
+    peak_gain: float
+    peak_gain_exact: bool
 
-
-def _zero_input_l1(z: np.ndarray, factors: tuple[np.ndarray, ...]) -> np.ndarray:
-    """Per row, an upper bound of ``sum_n |e[n]|`` for the row left to ring from state ``z``.
-
-    In the transposed direct form (scipy.signal.sosfilt's) a row with state ``(z1, z2)`` and no
-    input rings ``e[n] = z1 u[n] + z2 u[n-1]``, so ``||e||_1 <= (|z1| + |z2|) ||u||_1``. For a
-    complex pair ``e[n] = 2 Re(c p^n)`` also gives ``2|c| / (1 - r)``, with
-    ``2|c| = sqrt((z2 - a1 z1 / 2)**2 / w**2 + z1**2)``; the smaller of the two is kept.
-    """
-    a1, u_l1, w, one_minus_r = factors
-    z1, z2 = z[:, 0], z[:, 1]
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        bound = (np.abs(z1) + np.abs(z2)) * u_l1
-        modal = np.sqrt(((z2 - 0.5 * a1 * z1) / w) ** 2 + z1 ** 2) / one_minus_r
-        bound = np.where(w > 0.0, np.fmin(bound, modal), bound)
-    return np.where((z1 == 0.0) & (z2 == 0.0), 0.0, bound)
-
-
-def _cascade_tail(zi: np.ndarray, factors: tuple[np.ndarray, ...], row_l1: np.ndarray) -> float:
-    """Upper bound of ``sum_{n >= N} |h[n]|`` from the cascade's state ``zi`` after ``N`` samples.
-
-    With no input left, row ``k``'s output from ``N`` on is its own ringing ``e_k`` plus its
-    response to the row before: ``||out_k||_1 <= ||e_k||_1 + ||h_k||_1 ||out_{k-1}||_1``.
-    """
-    ring = _zero_input_l1(zi, factors)
-    tail = 0.0
-    for k in range(len(ring)):
-        tail = float(ring[k]) + float(row_l1[k]) * tail
-    return tail if math.isfinite(tail) else math.inf
-
-
-def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool, float, bool]:
-    """L1 norm of the impulse response, bounded from above, and the 60 dB decay time.
-
-    The response is run block by block with carried state (scipy.signal.sosfilt, float64) and
-    ``sum |h[n]|`` summed; after each block the rest, ``sum_{n >= N} |h[n]|``, is bounded from the
-    state by :func:`_cascade_tail`, without diagonalising anything, so repeated and near-equal
-    poles are bounded as safely as any. The run stops when that bound is below ``TAIL_REL`` of the
-    sum (the figure is then exact for every purpose: ``exact``) or after ``IMPULSE_CAP`` samples or
-    ``IMPULSE_WORK`` row-samples; the bound is added in either case, so the figure is never below
-    the L1 norm. A last factor ``1 + kappa`` allows for float64 rounding in the run and the sums,
-    ``kappa = S eps (16 + 4 / (1 - r_max))`` for S rows (a first-order allowance, not a proof).
-    The figure is ``inf`` only when no finite bound was found.
-    """
-    from scipy import signal              # imported on first use: see chainrun/__init__.py
-    sos = np.asarray(sos, dtype=np.float64)
-    factors = _tail_factors(sos)
-    after_impulse = np.stack([sos[:, 1] - sos[:, 4] * sos[:, 0], sos[:, 2] - sos[:, 5] * sos[:, 0]], axis=1)
-    row_l1 = np.abs(sos[:, 0]) + _zero_input_l1(after_impulse, factors)
-    cap = min(IMPULSE_CAP, max(IMPULSE_BLOCK, IMPULSE_WORK // max(len(sos), 1) // IMPULSE_BLOCK * IMPULSE_BLOCK))
-    zi = np.zeros((len(sos), 2))
-    impulse = np.zeros(IMPULSE_BLOCK)
-    impulse[0] = 1.0
-    silence = np.zeros(IMPULSE_BLOCK)
-    sums: list[float] = []
-    peak, n, tail = 0.0, 0, math.inf
-    chunk_max: list[np.ndarray] = []
-    with np.errstate(over="ignore", invalid="ignore"):
-        while True:
-            y, zi = signal.sosfilt(sos, impulse if n == 0 else silence, zi=zi)
-            ay = np.abs(y)
-            sums.append(float(ay.sum()))
-            peak = max(peak, float(ay.max()))
-            chunk_max.append(ay.reshape(-1, _CHUNK).max(axis=1))
-            n += IMPULSE_BLOCK
-            total = math.fsum(sums)
-            if not math.isfinite(total):
-                break
-            tail = _cascade_tail(zi, factors, row_l1)
-            if tail <= TAIL_REL * total or n >= cap:
-                break
-    exact = math.isfinite(total) and tail <= TAIL_REL * total
-    kappa = len(sos) * _EPS * (16.0 + 4.0 / (1.0 - r_max))
-    bound = (total + tail) * (1.0 + kappa)
-    if not math.isfinite(bound):
-        bound, exact = math.inf, False
-    env = np.concatenate(chunk_max)
-    above = np.nonzero(env >= peak * 1e-3)[0]
-    decay_samples = (above[-1] + 1) * _CHUNK if above.size else 0
-    decay = float(decay_samples) / rate
-    if not exact and r_max < 1.0:
-        decay = max(decay, math.log(1e-3) / math.log(r_max) / rate)
-    return bound, exact, decay, exact
+    def to_dict(self) -> dict:
+        def num(x):
+            return None if x is None or not math.isfinite(x) else float(x)
+        return {"key": self.key, "title": self.title, "rows": self.rows,
+                "max_pole_radius": num(self.max_pole_radius),
+                "decay_60db_s": num(self.decay_s), "decay_exact": self.decay_exact,
+                "max_gain_db": num(self.max_gain_db), "max_gain_hz": num(self.max_gain_hz),
+                "min_gain_db": num(self.min_gain_db), "min_gain_hz": num(self.min_gain_hz),
+                "worst_case_peak_gain": num(self.peak_gain),
+                "worst_case_peak_gain_db": num(20.0 * math.log10(self.peak_gain) if self.peak_gain > 0 else -math.inf),
+                "worst_case_exact": self.peak_gain_exact}
 
 
 def assess(chain: Chain, guard: Guard, recipe: Recipe | None = None) -> Assessment:
@@ -322,14 +234,43 @@ def assess(chain: Chain, guard: Guard, recipe: Recipe | None = None) -> Assessme
     Returns
     -------
     Assessment
-        ``accepted`` is False when any problem is an error.
+        ``accepted`` is False when any problem is an error. For a chain with channel
+        paths, every path is assessed (``paths``) and each figure is the worst over the
+        paths; ``peak_gain`` is the largest worst-case peak gain of any output channel
+        (for mid/side, :func:`_midside_l1`).
     """
-    sos, rate = chain.sos, chain.rate
     problems: list[Problem] = check_raw_sections(recipe) if recipe is not None else []
+    if not chain.paths:
+        p = _assess_path(chain.sos, chain.labels, chain.rows, chain.rate, guard, recipe, problems, "")
+        return Assessment(rate=chain.rate, rows=len(chain.sos), max_pole_radius=p.max_pole_radius,
+                          decay_s=p.decay_s, decay_exact=p.decay_exact, max_gain_db=p.max_gain_db,
+                          max_gain_hz=p.max_gain_hz, min_gain_db=p.min_gain_db, min_gain_hz=p.min_gain_hz,
+                          peak_gain=p.peak_gain, peak_gain_exact=p.peak_gain_exact, problems=tuple(problems))
+    paths = [_assess_path(p.sos, p.labels, p.rows, chain.rate, guard, recipe, problems, p.title, p.key)
+             for p in chain.paths]
+    peak, peak_exact = max(p.peak_gain for p in paths), all(p.peak_gain_exact for p in paths)
+    if chain.routing == MIDSIDE and math.isfinite(peak):
+        r_max = max(p.max_pole_radius for p in paths)
+        peak, peak_exact = _midside_l1(chain.paths[0].sos, chain.paths[1].sos, r_max)
+    hi = max(paths, key=lambda p: p.max_gain_db)
+    lo = min(paths, key=lambda p: p.min_gain_db)
+    slow = max(paths, key=lambda p: p.decay_s)
+    return Assessment(rate=chain.rate, rows=len(chain.sos), max_pole_radius=max(p.max_pole_radius for p in paths),
+                      decay_s=slow.decay_s, decay_exact=slow.decay_exact, max_gain_db=hi.max_gain_db,
+                      max_gain_hz=hi.max_gain_hz, min_gain_db=lo.min_gain_db, min_gain_hz=lo.min_gain_hz,
+                      peak_gain=peak, peak_gain_exact=peak_exact, problems=tuple(problems), paths=tuple(paths))
+
+
+def _assess_path(sos: np.ndarray, labels, rows, rate: int, guard: Guard, recipe: Recipe | None,
+                 problems: list[Problem], title: str, key: str = "all") -> PathAssessment:
+    """Assess one cascade; its problems are added to ``problems`` (``title`` names the path in them)."""
     sections = recipe.sections if recipe is not None else None
+    at = f"at {rate} Hz on {title}" if title else f"at {rate} Hz"
 
     def where_of_row(row: int) -> Location | None:
-        return sections[chain.rows[row]].where if sections is not None else None
+        if sections is None or rows[row] < 0:
+            return None
+        return sections[rows[row]].where
 
     radii = pole_radii(sos)
     worst_row = int(np.argmax(radii))
@@ -339,11 +280,12 @@ def assess(chain: Chain, guard: Guard, recipe: Recipe | None = None) -> Assessme
     if unstable and not any(p.severity == "error" for p in problems):
         problems.append(Problem(
             "error",
-            f"at {rate} Hz {chain.labels[worst_row]} has a pole at radius {r_max:.9g}; allowed: inside "
+            f"{at} {labels[worst_row]} has a pole at radius {r_max:.9g}; allowed: inside "
             f"{limit:.9g} (1 - guard.pole_margin)",
             where_of_row(worst_row)))
 
-    extra = [s.params["freq"] for s in sections if "freq" in s.params] if sections else []
+    extra = [sections[i].params["freq"] for i in sorted(set(rows)) if i >= 0 and "freq" in sections[i].params] \
+        if sections else []
     hi_db, hi_hz, lo_db, lo_hz = _extremes(sos, rate, extra)
 
     if unstable:
@@ -354,7 +296,7 @@ def assess(chain: Chain, guard: Guard, recipe: Recipe | None = None) -> Assessme
     if not unstable and not math.isfinite(l1):
         problems.append(Problem(
             "error",
-            f"at {rate} Hz the chain's worst-case peak gain cannot be bounded: {chain.labels[worst_row]} has a "
+            f"{at} the chain's worst-case peak gain cannot be bounded: {labels[worst_row]} has a "
             f"pole at radius {r_max:.9g} and no finite bound on sum |h[n]| was found (the response rings too "
             "long or overflows float64); allowed: a chain whose worst-case peak gain has a finite bound "
             "(poles further inside the unit circle, gains within float64's range)",
@@ -366,20 +308,19 @@ def assess(chain: Chain, guard: Guard, recipe: Recipe | None = None) -> Assessme
             contrib = [(response_db(sos[[r]], [hi_hz], rate)[0], r) for r in range(len(sos))]
             best_db, best_row = max(contrib)
             where = where_of_row(best_row)
-            culprit = f"; {sections[chain.rows[best_row]].title} contributes {best_db:+.1f} dB there"
+            culprit = (f"; {sections[rows[best_row]].title} contributes {best_db:+.1f} dB there"
+                       if rows[best_row] >= 0 else "")
         else:
             culprit = ""
         problems.append(Problem(
             "error",
-            f"at {rate} Hz the chain's gain reaches {hi_db:+.2f} dB at {hi_hz:.1f} Hz, above "
+            f"{at} the chain's gain reaches {hi_db:+.2f} dB at {hi_hz:.1f} Hz, above "
             f"guard.max_gain_db {guard.max_gain_db:g} dB{culprit}",
             where))
     if not unstable and decay > guard.max_decay_s:
         problems.append(Problem(
             "warning",
-            f"at {rate} Hz the impulse response takes {decay:.2f} s to fall 60 dB, longer than "
-            f"guard.max_decay_s {guard.max_decay_s:g} s ({chain.labels[worst_row]} rings longest)",
+            f"{at} the impulse response takes {decay:.2f} s to fall 60 dB, longer than "
+            f"guard.max_decay_s {guard.max_decay_s:g} s ({labels[worst_row]} rings longest)",
             where_of_row(worst_row)))
-    return Assessment(rate=rate, rows=len(sos), max_pole_radius=r_max, decay_s=decay, decay_exact=decay_exact,
-                      max_gain_db=hi_db, max_gain_hz=hi_hz, min_gain_db=lo_db, min_gain_hz=lo_hz,
-                      peak_gain=l1, peak_gain_exact=l1_exact, problems=tuple(problems))
+    return PathAssessment(key, title, len(sos), r_max, decay, decay_exact, hi_db, hi_hz, lo_db, lo_hz, l1, l1_exact)

@@ -25,8 +25,8 @@ import numpy as np
 from . import designers
 from .errors import Location, RecipeError
 
-__all__ = ["SectionType", "SECTIONS", "SECTION_TYPES", "describe", "param_text", "raw_sections",
-           "MAX_ORDER", "MAX_ABS_GAIN_DB", "MAX_BW_OCTAVES", "MAX_IIR_COEFF", "MIN_FREQ_HZ"]
+__all__ = ["SectionType", "SECTIONS", "SECTION_TYPES", "COMMON_KEYS", "describe", "param_text", "raw_sections",
+           "MAX_ORDER", "MAX_TRACK", "CHANNEL_WORDS", "MAX_ABS_GAIN_DB", "MAX_BW_OCTAVES", "MAX_IIR_COEFF", "MIN_FREQ_HZ"]
 
 # Limits of one section's parameters (the recipe loader's readers apply them).
 MAX_ORDER = 8                     # Butterworth order and raw iir order
@@ -34,6 +34,12 @@ MAX_ABS_GAIN_DB = 120.0           # |gain_db| of a single section
 MAX_BW_OCTAVES = 10.0             # bandwidth in octaves
 MAX_IIR_COEFF = 1e9               # |b[i] / a[0]| and |a[i] / a[0]| of a raw iir section
 MIN_FREQ_HZ = 1e-3                # lowest section frequency; below it the designs underflow to nonsense
+MAX_TRACK = 64                    # highest track number a section's ``channels`` may name
+
+# Keys every section type takes, whatever its type: ``channels`` (which channels the section
+# filters: a list of 1-based track numbers, or one of CHANNEL_WORDS for a two-channel file).
+COMMON_KEYS = ("channels",)
+CHANNEL_WORDS = ("mid", "side")
 
 Rule = Callable[[dict, str, Mapping[str, Location]], None]
 Designer = Callable[[Mapping[str, Any], float], np.ndarray]
@@ -161,7 +167,8 @@ class SectionType:
     name : str
         The ``type:`` a recipe writes.
     required, optional : tuple of str
-        Keys a section of this type must / may give (besides ``type`` and ``label``).
+        Keys a section of this type must / may give (besides ``type``, ``label`` and the
+        ``COMMON_KEYS`` every type takes).
     rule : callable
         ``rule(params, name, where)`` checks the combination of keys, fills defaults.
     designer : callable
@@ -190,8 +197,8 @@ class SectionType:
 
     @property
     def keys(self) -> tuple[str, ...]:
-        """Every key a section of this type may write."""
-        return ("type", "label") + self.required + self.optional
+        """Every key a section of this type may write (the keys every type takes last)."""
+        return ("type", "label") + self.required + self.optional + COMMON_KEYS
 
     def describe(self, params: Mapping[str, Any]) -> str:
         """Short parameter text, e.g. ``1.2 kHz +3 dB Q 0.7``."""

@@ -500,7 +500,7 @@ def _slow_chains(draw):
 @given(sos=_slow_chains())
 def test_l1_bound_from_a_short_run_is_finite_and_above_the_l1_norm(sos):
     # The run is cut to one block, so the figure rests on the bound of the tail from the state left.
-    import chainrun.guard as guard_module
+    import chainrun.impulse as guard_module
     chain = Chain(rate=48000, sos=sos, labels=tuple("r" * len(sos)), rows=tuple(range(len(sos))))
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(guard_module, "IMPULSE_CAP", guard_module.IMPULSE_BLOCK)

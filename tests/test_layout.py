@@ -18,7 +18,7 @@ FLOORS = {
     "chainrun.designers": 2, "chainrun.audio": 2, "chainrun.meters": 2,
     "chainrun.section_types": 3,
     "chainrun.recipe": 4,
-    "chainrun.design": 5,
+    "chainrun.design": 5, "chainrun.impulse": 5,
     "chainrun.guard": 6,
     "chainrun.results": 7,
     "chainrun.render": 8,

@@ -13,6 +13,7 @@ from ..design import Chain, design
 from ..errors import AudioError, BatchError
 from ..guard import Assessment, assess, check_raw_sections
 from ..recipe import Recipe, RecipeError
+from ..recipe.channels import channels_misfit
 from ..audio.reader import cut_short, probe
 from ..render import Policy
 from ..results import FAILED, REJECTED, FileResult
@@ -181,14 +182,20 @@ def _prepare(recipes: list[Recipe], policies: list[Policy], plan, outdir: str) -
     work, refused = [], []
     for job, src in probed:
         d = designs[job.recipe][src.rate]
-        if d.usable:
+        misfit = channels_misfit(recipes[job.recipe], src.channels) if d.usable else None
+        if d.usable and not misfit:
             work.append((job, src))
         else:
             which = "the recipe" if len(recipes) == 1 else f"the recipe {recipes[job.recipe].path}"
-            r = FileResult(job.input, job.relpath, REJECTED, f"{which} cannot be used at {src.rate} Hz: "
-                           f"{d.error}", source=src)
+            why = (f"{which} cannot be used at {src.rate} Hz: {d.error}" if not d.usable else
+                   f"{which} cannot be used on this file's {src.channels} channel(s): {misfit}")
+            r = FileResult(job.input, job.relpath, REJECTED, why, source=src)
             refused.append((job, r))
             results.append(r)
+    if probed and not work and all(d.usable for ds in designs for d in ds.values()):
+        first_job, first = refused[0]
+        raise BatchError(f"{first_job.input}: {first.message}; the recipe's channels fit no file in the batch; "
+                         "no audio was touched")
     if probed and not work:
         first = next(d for ds in designs for d in ds.values() if not d.usable)
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "

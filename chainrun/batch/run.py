@@ -144,7 +144,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     tasks = []
     for job, src in todo:
         d = prep.design_for(job, src.rate)
-        tasks.append(Task(job, src, d.chain.sos, d.assessment.peak_gain, policies[job.recipe]))
+        tasks.append(Task(job, src, d.chain.filters, d.assessment.peak_gain, policies[job.recipe]))
     interrupted = executor.run(tasks, finished)
     notes.extend(executor.notes)
     if journal_failed:

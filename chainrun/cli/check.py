@@ -12,6 +12,16 @@ from ..text import fmt_db, shown
 from .common import EXIT_NOT_OK, EXIT_OK, _err
 
 
+def _cells(r: dict) -> str:
+    """The figure columns of one rate's (or one channel path's) row."""
+    radius = f"{r['max_pole_radius']:.9f}" if r["max_pole_radius"] is not None else "-"
+    decay = "-" if r["decay_60db_s"] is None else (
+        f"{'' if r['decay_exact'] else '>'}{r['decay_60db_s']:.3f} s")
+    gain = "-" if r["max_gain_db"] is None else f"{r['max_gain_db']:+.2f} dB @ {r['max_gain_hz']:.0f} Hz"
+    peak = fmt_db(r["worst_case_peak_gain_db"] if r["worst_case_peak_gain_db"] is not None else math.inf)
+    return f"{r['rows']:>7}  {radius:>15}  {decay:>11}  {gain:>22}  {peak:>15}"
+
+
 def _print_check(entry: dict) -> None:
     title = f"{shown(entry['path'])}"
     if "name" in entry:
@@ -27,12 +37,9 @@ def _print_check(entry: dict) -> None:
             if r.get("rows") is None:
                 print(f"  {r['rate']:>6} Hz  {'-':>7}  {'-':>15}  {'-':>11}  {'-':>22}  {'-':>15}  {verdict}")
                 continue
-            radius = f"{r['max_pole_radius']:.9f}" if r["max_pole_radius"] is not None else "-"
-            decay = "-" if r["decay_60db_s"] is None else (
-                f"{'' if r['decay_exact'] else '>'}{r['decay_60db_s']:.3f} s")
-            gain = "-" if r["max_gain_db"] is None else f"{r['max_gain_db']:+.2f} dB @ {r['max_gain_hz']:.0f} Hz"
-            peak = fmt_db(r["worst_case_peak_gain_db"] if r["worst_case_peak_gain_db"] is not None else math.inf)
-            print(f"  {r['rate']:>6} Hz  {r['rows']:>7}  {radius:>15}  {decay:>11}  {gain:>22}  {peak:>15}  {verdict}")
+            print(f"  {r['rate']:>6} Hz  {_cells(r)}  {verdict}")
+            for p in r.get("paths") or ():          # a chain with channel paths: one row per path
+                print(f"  {'':>9}  {_cells(p)}  {p['title']}")
     for line in entry["errors"] + entry["warnings"]:
         _err(line)
 

@@ -3,7 +3,8 @@
 * :mod:`.yaml` — located safe YAML: every value remembers its file, line and column;
 * :mod:`.model` — :class:`Section`, :class:`Guard`, :class:`Output`, :class:`Recipe`;
 * :mod:`.loader` — :func:`load` (a file), :func:`loads` (text), :func:`from_dict` (a mapping),
-  includes and the merge of guard and output along them.
+  includes and the merge of guard and output along them;
+* :mod:`.channels` — a section's ``channels:`` (track numbers, or mid / side).
 
 Section types come from the catalogue, :mod:`chainrun.section_types`.
 """

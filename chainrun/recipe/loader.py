@@ -22,6 +22,7 @@ import yaml
 
 from ..errors import Location, RecipeError
 from ..section_types import MAX_ABS_GAIN_DB, MAX_BW_OCTAVES, MAX_ORDER, MIN_FREQ_HZ, SECTION_TYPES, SECTIONS
+from .channels import one_kind_of_channels, read_channels
 from .model import _GUARD_KEYS, Guard, Output, Recipe, Section
 from .yaml import (MAX_FILE_BYTES, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer, _mapping,
                    _Node, _number, _read_text, _text)
@@ -90,7 +91,9 @@ def _section(node: _Node, index: int, path: str) -> Section:
     if row.order is not None:
         params["order"] = _integer(entries["order"][1], f"{name}.order", *row.order) if "order" in entries else 2
     row.rule(params, name, where)
-    return Section(kind, MappingProxyType(params), node.where, MappingProxyType(where), index, label)
+    channels = read_channels(entries["channels"][1], f"{name}.channels") if "channels" in entries else None
+    return Section(kind, MappingProxyType(params), node.where, MappingProxyType(where), index, label,
+                   channels=channels)
 
 
 # --------------------------------------------------------------------------- recipe
@@ -267,6 +270,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
 def _recipe(path: str, text: str | None = None) -> Recipe:
     """The recipe at ``path`` (whose text is ``text`` if given), includes resolved."""
     top = _load_file(path, (), None, text)
+    one_kind_of_channels(top.sections)
     entries = top.entries
     name = _text(entries["name"][1], "name") if "name" in entries else os.path.splitext(os.path.basename(path))[0]
     if "notes" in entries:

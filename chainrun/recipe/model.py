@@ -26,7 +26,10 @@ class Section:
     ``params`` holds the section's numeric parameters with defaults filled in
     (``order``; ``slope`` for second-order shelves); ``where`` the location of
     the section itself and ``param_where`` the location of each given key.
-    ``index`` is the position in the file it was written in.
+    ``index`` is the position in the file it was written in. ``channels`` is the
+    channels the section filters: None (every channel), a sorted tuple of distinct
+    1-based track numbers, or ``"mid"`` / ``"side"`` (a two-channel file's
+    mid = (L + R) / 2 or side = (L - R) / 2).
     """
 
     kind: str
@@ -36,6 +39,7 @@ class Section:
     index: int
     label: str = ""
     origin: str = ""          # for a section of an included recipe: that file, as the include named it
+    channels: tuple[int, ...] | str | None = None
 
     def locate(self, key: str | None = None) -> Location:
         """Location of ``key`` if it was written, else of the section."""
@@ -53,6 +57,8 @@ class Section:
     def to_dict(self) -> dict:
         out: dict[str, Any] = {"type": self.kind}
         out.update({k: (list(v) if isinstance(v, tuple) else v) for k, v in self.params.items()})
+        if self.channels is not None:       # only then: a recipe without channels keeps its digest
+            out["channels"] = list(self.channels) if isinstance(self.channels, tuple) else self.channels
         if self.label:
             out["label"] = self.label
         out["from"] = str(self.where)

@@ -1,10 +1,17 @@
-"""Filtering one file's blocks: sosfilt with the state carried, and the runtime guard."""
+"""Filtering one file's blocks: sosfilt with the state carried, and the runtime guard.
+
+A chain without channel paths filters every channel with its one cascade. A chain with paths
+(:class:`chainrun.design.Chain`, ``routing`` TRACKS) filters each group of tracks with its own
+cascade and state; a MIDSIDE chain encodes the two channels to ``M = (L + R) / 2`` and
+``S = (L - R) / 2`` in float64, filters each, and decodes ``L = M + S``, ``R = M - S``.
+"""
 from __future__ import annotations
 
 import math
 
 import numpy as np
 
+from ..design import EVERY, MIDSIDE
 from ..errors import AudioError
 
 __all__ = ["_Filter"]
@@ -23,36 +30,74 @@ class _Filter:
     FLUSH_PERIOD = 65536
     DENORMAL_FLOOR = 1e-200
 
-    def __init__(self, sos: np.ndarray, channels: int, bound: float):
+    def __init__(self, sos, channels: int, bound: float):
+        """``sos``: one cascade (S x 6) for every channel, or a Chain with channel paths
+        (``Chain.filters``); ``bound``: the guard's worst-case peak gain of any output channel."""
         from scipy.signal import sosfilt      # imported on first use: see chainrun/__init__.py
         self._sosfilt = sosfilt
-        self.sos = np.array(sos, dtype=np.float64)
-        self.zi = np.zeros((len(self.sos), channels, 2))
+        self.routing = getattr(sos, "routing", EVERY)
         self.bound = bound
         self.in_peak = 0.0
         self.out_peak = 0.0
         self.block_peak = 0.0
+        if self.routing == EVERY:
+            self.sos = np.array(getattr(sos, "sos", sos), dtype=np.float64)
+            self.zi = np.zeros((len(self.sos), channels, 2))
+            return
+        chain = sos
+        if self.routing == MIDSIDE:
+            if channels != 2:
+                raise AudioError(f"the recipe's mid/side sections need a two-channel file; this one has {channels}")
+            groups = [(p, [k]) for k, p in enumerate(chain.paths)]     # mid, side: rows 0 and 1 of the M/S pair
+        else:
+            if channels < max(t for p in chain.paths for t in p.tracks):
+                raise AudioError(f"the recipe names track {max(t for p in chain.paths for t in p.tracks)}; "
+                                 f"this file has {channels} channel(s)")
+            keys = [chain.path_of_track(c + 1).key for c in range(channels)]
+            groups = [(p, [c for c in range(channels) if keys[c] == p.key]) for p in chain.paths]
+        # per path: its cascade, its rows of the block, its carried state
+        self._paths = [(np.array(p.sos, dtype=np.float64), np.array(rows), np.zeros((len(p.sos), len(rows), 2)))
+                       for p, rows in groups if rows]
 
     def _filter(self, x: np.ndarray, frame0: int) -> np.ndarray:
         n, period = x.shape[-1], self.FLUSH_PERIOD
         end = frame0 + n
         boundary = (frame0 // period + 1) * period        # first flush point after frame0
         if boundary >= end:                               # none inside the block (the usual case)
-            y, self.zi = self._sosfilt(self.sos, x, axis=-1, zi=self.zi)
+            y = self._apply(x)
             if boundary == end:
                 self._flush()
             return y
         y = np.empty_like(x)
         start = 0
         for stop in list(range(boundary - frame0, n, period)) + [n]:
-            y[:, start:stop], self.zi = self._sosfilt(self.sos, x[:, start:stop], axis=-1, zi=self.zi)
+            y[:, start:stop] = self._apply(x[:, start:stop])
             if (frame0 + stop) % period == 0:
                 self._flush()
             start = stop
         return y
 
+    def _apply(self, x: np.ndarray) -> np.ndarray:
+        """One stretch of frames through the cascade(s), the state carried."""
+        if self.routing == EVERY:
+            y, self.zi = self._sosfilt(self.sos, x, axis=-1, zi=self.zi)
+            return y
+        if self.routing == MIDSIDE:
+            x = np.stack([(x[0] + x[1]) * 0.5, (x[0] - x[1]) * 0.5])     # M, S
+        y = np.empty_like(x)
+        for k, (sos, rows, zi) in enumerate(self._paths):
+            y[rows], zi_new = self._sosfilt(sos, x[rows], axis=-1, zi=zi)
+            self._paths[k] = (sos, rows, zi_new)
+        if self.routing == MIDSIDE:
+            y = np.stack([y[0] + y[1], y[0] - y[1]])                     # L = M + S, R = M - S
+        return y
+
     def _flush(self) -> None:
-        self.zi[np.abs(self.zi) < self.DENORMAL_FLOOR] = 0.0
+        if self.routing == EVERY:
+            self.zi[np.abs(self.zi) < self.DENORMAL_FLOOR] = 0.0
+            return
+        for _, _, zi in self._paths:
+            zi[np.abs(zi) < self.DENORMAL_FLOOR] = 0.0
 
     def __call__(self, x: np.ndarray, frame0: int, x_peak: float) -> np.ndarray:
         """Filter one block; ``x_peak`` is max |x| of the block (the reader has it already)."""

@@ -2,7 +2,7 @@
 
 One figure per chain at one sample rate:
 
-* top panel: magnitude of the whole chain in dB over a logarithmic frequency
+* top panel: magnitude of the whole chain (of each channel path, one dash pattern each) in dB over a logarithmic frequency
   axis from 10 Hz to Nyquist (thick dark line), each recipe section drawn
   faintly beneath it (the rows of a section, grouped by ``Chain.rows``,
   multiplied together), numbered on the curve and named in the key; the
@@ -54,8 +54,27 @@ __all__ = ["response_figure"]
 PNG_DPI = 100
 FIG_WIDTH_IN = 10.0         # the height follows from the number of sections and guard lines
 
+_PATH_DASHES = ("-", (0, (7, 2.5)), (0, (1.5, 1.5)), (0, (7, 2, 1.5, 2)))   # one per channel path
 
 # --------------------------------------------------------------------------- figure
+
+def _on(section) -> str:
+    """`` on track 2`` / `` on mid`` for a section with ``channels``, else nothing."""
+    c = section.channels
+    if c is None:
+        return ""
+    return f" on {c}" if isinstance(c, str) else f" on track{'s' if len(c) > 1 else ''} {', '.join(map(str, c))}"
+
+
+def _path_lines(assessment: Assessment) -> list[str]:
+    """One line per channel path: its own max gain and worst-case peak gain (none for a chain without paths)."""
+    out = []
+    for p in assessment.paths:
+        out.append(f"path {p.title}: max gain {signed(p.max_gain_db)} dB at {hz(p.max_gain_hz)}; worst-case peak "
+                   f"gain {signed(20 * math.log10(p.peak_gain)) if 0 < p.peak_gain < math.inf else 'unbounded'}"
+                   f"{' dB' if 0 < p.peak_gain < math.inf else ''}")
+    return out
+
 
 def _verdict(assessment: Assessment) -> tuple[str, str]:
     if assessment.accepted:
@@ -90,21 +109,23 @@ def response_figure(recipe: Recipe, chain: Chain, assessment: Assessment) -> Fig
     rate = chain.rate
     nyq = rate / 2.0
     freqs = freq_grid(chain, recipe, assessment)
-    h = response_at(chain.sos, freqs, rate)
-    chain_db = to_db(h)
+    # one thick curve for the whole chain, or one per channel path (each its own dash pattern)
+    curves = [(p.title, response_at(p.sos, freqs, rate)) for p in chain.paths] or \
+        [("whole chain", response_at(chain.sos, freqs, rate))]
+    chain_db = np.concatenate([to_db(h) for _, h in curves])
     parts = [(i, s, to_db(response_at(rows, freqs, rate))) for i, s, rows in sections_of(recipe, chain)]
     verdict, verdict_colour = _verdict(assessment)
     bottom, top = _y_range(chain_db, parts, recipe, assessment)
     unstable = assessment.max_pole_radius > 1.0 - recipe.guard.pole_margin
 
     footer = []
-    for line in guard_lines(recipe, assessment):
+    for line in guard_lines(recipe, assessment) + _path_lines(assessment):
         footer.extend(wrapped(line, 118))
     if np.any(chain_db[np.isfinite(chain_db)] < bottom):
         footer.append(f"(the magnitude axis stops at {bottom:g} dB; deeper dips, such as a notch's centre, "
                       "run off its lower edge)")
 
-    n_key = len(parts) + 1
+    n_key = len(parts) + len(curves)
     key_rows = math.ceil(n_key / 2)
     # Layout in inches, top to bottom: header, magnitude, phase, axis label, key, guard figures.
     header_in, mag_in, gap_in, phase_in, xlabel_in = 0.85, 3.7, 0.15, 1.45, 0.62
@@ -129,7 +150,9 @@ def response_figure(recipe: Recipe, chain: Chain, assessment: Assessment) -> Fig
     fig.text(left, frac(0.6), verdict, fontsize=11, weight="bold", color=verdict_colour, va="center")
 
     # --- sections, faint, beneath the whole chain
-    handles = [Line2D([], [], color=_CHAIN_COLOUR, lw=2.4, label="whole chain")]
+    handles = [Line2D([], [], color=_CHAIN_COLOUR, lw=2.4, ls=_PATH_DASHES[k % len(_PATH_DASHES)],
+                      label=title if len(curves) == 1 else f"path: {literal(title)}")
+               for k, (title, _) in enumerate(curves)]
     for k, (i, section, db) in enumerate(parts):
         colour = _SECTION_COLOURS[k % len(_SECTION_COLOURS)]
         dash = _SECTION_DASHES[(k + k // len(_SECTION_COLOURS)) % len(_SECTION_DASHES)]
@@ -140,8 +163,10 @@ def response_figure(recipe: Recipe, chain: Chain, assessment: Assessment) -> Fig
                     weight="bold", ha="center", va="center", zorder=6,
                     bbox=dict(boxstyle="circle,pad=0.2", fc="white", ec=colour, lw=0.8, alpha=0.92))
         handles.append(Line2D([], [], color=colour, lw=1.4, ls=dash,
-                              label=f"{i + 1}  {literal(describe_section(section))}"))
-    ax.plot(freqs, np.clip(chain_db, bottom - 10, top + 10), color=_CHAIN_COLOUR, lw=2.4, zorder=5)
+                              label=f"{i + 1}  {literal(describe_section(section))}{_on(section)}"))
+    for k, (_, h) in enumerate(curves):
+        ax.plot(freqs, np.clip(to_db(h), bottom - 10, top + 10), color=_CHAIN_COLOUR, lw=2.4,
+                ls=_PATH_DASHES[k % len(_PATH_DASHES)], zorder=5)
     ax.axhline(0.0, color=_GUIDE_COLOUR, lw=0.8, zorder=1)
 
     # --- guard limit, worst-case peak gain, max-gain point
@@ -187,10 +212,12 @@ def response_figure(recipe: Recipe, chain: Chain, assessment: Assessment) -> Fig
     ax.tick_params(labelbottom=False)
 
     # --- phase
-    axp.plot(freqs, wrapped_phase(h), color=_CHAIN_COLOUR, lw=1.6)
+    for k, (_, h) in enumerate(curves):
+        axp.plot(freqs, wrapped_phase(h), color=_CHAIN_COLOUR, lw=1.6, ls=_PATH_DASHES[k % len(_PATH_DASHES)])
     axp.set_ylim(-200, 200)
     axp.yaxis.set_major_locator(FixedLocator([-180, -90, 0, 90, 180]))
-    axp.set_ylabel("phase (degrees)\nwhole chain, wrapped", fontsize=9)
+    axp.set_ylabel("phase (degrees)\n" + ("whole chain" if len(curves) == 1 else "each path") + ", wrapped",
+                   fontsize=9)
     axp.set_xlabel(f"frequency (Hz), logarithmic, {hz(freqs[0])} to Nyquist ({hz(nyq)})")
     for a in (ax, axp):
         a.grid(True, which="major", color="#e0e0e0", lw=0.7)
