@@ -202,7 +202,6 @@ def test_html_report_shows_c1_and_bidi_characters_escaped(tmp_path, write_audio,
     assert "tide\\u202e pass\\u009b2J" in text and "marsh\\u2066take.wav" in text and "trim\\u200f" in text
 
 
-@pytest.mark.xfail(strict=True, reason="response pictures (report/plot.py, report/response.py) not yet patched")
 def test_html_response_pictures_show_c1_and_bidi_characters_escaped(tmp_path, write_audio, run_cli):
     page = _html_page(tmp_path, write_audio, run_cli)
     pictures = "".join(re.findall(r"<svg\b.*?</svg>", page, flags=re.S))
