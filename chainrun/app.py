@@ -11,6 +11,7 @@ OUTDIR lock, journal and resume, the same executors, the same reports.
 """
 from __future__ import annotations
 
+import contextlib
 import os
 from dataclasses import dataclass, field
 from typing import Callable
@@ -160,7 +161,8 @@ def _write_reports(result: BatchResult, report: str | None, command: list[str] |
 
 def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | None = None,
         block_size: int | None = None, on_over: str | None = None, report: str | None = None,
-        true_peak: bool = True, redo: bool = False, progress=None, command: list[str] | None = None) -> RunOutcome:
+        true_peak: bool = True, redo: bool = False, progress=None, command: list[str] | None = None,
+        cluster: str | None = None) -> RunOutcome:
     """Filter ``inputs`` (files and folders) into ``outdir`` with ``recipe``, and write the reports.
 
     Parameters
@@ -180,6 +182,9 @@ def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | 
         ``start(total_files)`` and ``close()``, they are called before the first file and after the last.
     command
         The command line recorded in the report.
+    cluster
+        Render each file on a Dask cluster instead (:mod:`chainrun.batch.cluster`): a scheduler's address
+        (``tcp://host:port``), or ``local:N`` for N worker processes started here; ``workers`` is then unused.
 
     Raises
     ------
@@ -197,9 +202,20 @@ def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | 
         raise BatchError(f"--workers {workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
     if report:
         _check_report_folder(report)
+    executor = None
+    if cluster is not None:
+        from .batch.cluster import ClusterExecutor, dask_missing
+
+        executor = ClusterExecutor(cluster)      # a malformed address is refused here, before OUTDIR is taken
+        if dask_missing():
+            raise BatchError(dask_missing())
     policy = Policy.from_recipe(recipe, on_over=on_over, block_size=block_size, true_peak=true_peak)
-    with claimed(recipe, inputs, outdir, policy) as (prep, notes):
+    with claimed(recipe, inputs, outdir, policy) as (prep, notes), contextlib.ExitStack() as stack:
         pictures: dict = {}
+        if executor is not None:
+            # Drawn before the cluster's client starts its threads; this process only waits while files render.
+            pictures.update(_pictures_aside(recipe, prep.designs))
+            stack.enter_context(executor.open(prep.outdir, prep.work[0][0].input if prep.work else None))
         if progress is not None and hasattr(progress, "start"):
             progress.start(len(prep.work))
         try:
@@ -207,13 +223,13 @@ def run(recipe: Recipe | str, inputs: list[str], outdir: str, *, workers: int | 
             # matplotlib's memory nor its use of the GIL is ever the renderer's. With one worker (one
             # core) the child runs after the audio; with more, while the audio renders: it is started
             # before the pipeline threads or the worker processes exist.
-            if workers > 1:
+            if workers > 1 and executor is None:
                 pictures.update(_pictures_aside(recipe, prep.designs))
-            result = execute(prep, workers=workers, progress=progress, resume=not redo)
+            result = execute(prep, workers=workers, progress=progress, resume=not redo, executor=executor)
         finally:
             if progress is not None and hasattr(progress, "close"):
                 progress.close()
-        if workers == 1:
+        if workers == 1 and executor is None:
             pictures.update(_pictures_aside(recipe, prep.designs))
         result.notes[:0] = notes
         result.pictures = pictures
