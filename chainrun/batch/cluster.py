@@ -46,7 +46,7 @@ EXTRA = "pip install 'chainrun[cluster]'"
 LOCAL_PREFIX = "local:"
 MAX_LOCAL_WORKERS = 64
 CONNECT_TIMEOUT_S = 20.0     # to reach a scheduler, and to wait for its first worker
-GONE_TIMEOUT_S = 10.0        # a lost scheduler is given this long to come back before the run ends
+GONE_TIMEOUT_S = 10.0        # after Ctrl-C, how long the files already rendering are given to stop
 _POLL_S = 0.25               # how often the client looks for Ctrl-C while it waits for results
 _WATCH_S = 1.0               # a worker's long poll of the stop event
 
@@ -147,7 +147,7 @@ def _worker_sees(outdir: str, lock_path: str, lock_text: str, first_input: str |
             size = os.stat(first_input).st_size
         except OSError:
             return f"does not see the input {first_input}"
-        if size != first_size:
+        if first_size is not None and size != first_size:
             return f"sees another file at {first_input} ({size} bytes, not {first_size})"
     return None
 
@@ -180,6 +180,7 @@ class ClusterExecutor:
         self.notes: list[str] = []
         self.client = None
         self.cluster = None
+        self._log_levels: dict[str, int] = {}
         self._kind, self._local_workers = parse_address(address)
 
     # ---------------------------------------------------------------- connect
@@ -198,8 +199,7 @@ class ClusterExecutor:
         import dask
         from distributed import Client
 
-        for name in ("distributed", "tornado"):          # Dask's own log lines are not the user's
-            logging.getLogger(name).setLevel(logging.CRITICAL)
+        self._quiet_logs()
         try:
             if self._kind == "local":
                 from distributed import LocalCluster
@@ -240,7 +240,10 @@ class ClusterExecutor:
         except OSError:
             lock_text = ""
         first = os.path.abspath(first_input) if first_input else None
-        size = os.stat(first).st_size if first else None
+        try:
+            size = os.stat(first).st_size if first else None
+        except OSError:
+            size = None
         try:
             answers = self.client.run(_worker_sees, outdir, lock_path, lock_text, first, size, __version__)
         except Exception as exc:
@@ -251,6 +254,17 @@ class ClusterExecutor:
                 raise BatchError(f"--cluster {self.address}: error: worker {worker} {why}; inputs and OUTDIR must "
                                  "be on storage every worker sees under the same paths; no audio was touched")
 
+    def _quiet_logs(self) -> None:
+        """Dask's own log lines (a worker restarted, a lost connection) are not the user's: the notes say it."""
+        import distributed  # noqa: F401  (configures its loggers)
+
+        names = ["distributed", "tornado"] + [n for n in logging.root.manager.loggerDict
+                                              if n.startswith(("distributed.", "tornado."))]
+        for name in names:
+            logger = logging.getLogger(name)
+            self._log_levels.setdefault(name, logger.level)
+            logger.setLevel(logging.CRITICAL + 1)
+
     def close(self) -> None:
         """Disconnect; close the local cluster if this executor started it."""
         for thing in (self.client, self.cluster):
@@ -260,6 +274,9 @@ class ClusterExecutor:
                 except Exception:       # a scheduler already gone: nothing left to close
                     pass
         self.client = self.cluster = None
+        for name, level in self._log_levels.items():
+            logging.getLogger(name).setLevel(level)
+        self._log_levels.clear()
 
     def __enter__(self) -> "ClusterExecutor":
         return self
@@ -333,6 +350,9 @@ class ClusterExecutor:
                         done, _ = wait(list(pending), timeout=_POLL_S, return_when="FIRST_COMPLETED")
                     except TimeoutError:
                         done = set()
+                    except Exception:            # futures cancelled: the scheduler went away
+                        done = {f for f in pending if f.done()}
+                        gone = True
                     for fut in done:
                         if fut.status == "cancelled" or self._gone():
                             gone = True
