@@ -137,7 +137,7 @@ def _worker_sees(outdir: str, lock_path: str, lock_text: str, first_input: str |
         with open(lock_path, encoding="utf-8", errors="replace") as fh:
             seen = fh.read()
     except OSError:
-        seen = None
+        seen = ""
     if seen != lock_text:
         return f"sees another folder at OUTDIR ({outdir}: not the one this run holds)"
     if not os.access(outdir, os.W_OK | os.X_OK):
