@@ -11,6 +11,7 @@ OUTDIR lock, journal and resume, the same executors, the same reports.
 """
 from __future__ import annotations
 
+import contextlib
 import os
 from dataclasses import dataclass, field
 from typing import Callable
@@ -164,13 +165,6 @@ def _check_report_folder(report: str) -> None:
                          "folder); no audio was touched")
 
 
-def _pictures_aside(recipe: Recipe, designs: dict) -> dict:
-    """Start drawing the report's response pictures in a forked child (matplotlib, away from the audio)."""
-    from .report.pictures import draw_pictures_aside
-
-    return draw_pictures_aside(recipe, designs)
-
-
 def _write_reports(result: BatchResult, report: str | None, command: list[str] | None,
                    outdir: str) -> tuple[dict[str, str], list[str]]:
     from .report.write import ReportError, write_reports
@@ -208,7 +202,7 @@ def refuse_recipe_inputs(inputs: list[str]) -> None:
 def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers: int | None = None,
         block_size: int | None = None, on_over: str | None = None, report: str | None = None,
         true_peak: bool = True, redo: bool = False, progress=None, command: list[str] | None = None,
-        plan=None) -> RunOutcome:
+        plan=None, cluster: str | None = None) -> RunOutcome:
     """Filter ``inputs`` (files and folders) into ``outdir`` with ``recipe``, and write the reports.
 
     Parameters
@@ -233,6 +227,9 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
         ``start(total_files)`` and ``close()``, they are called before the first file and after the last.
     command
         The command line recorded in the report.
+    cluster
+        Render each file on a Dask cluster instead (:mod:`chainrun.batch.cluster`): a scheduler's address
+        (``tcp://host:port``), or ``local:N`` for N worker processes started here; ``workers`` is then unused.
 
     Raises
     ------
@@ -260,30 +257,27 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
         raise BatchError(f"--workers {workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
     if report:
         _check_report_folder(report)
+    executor = None
+    if cluster is not None:
+        from .batch.cluster import ClusterExecutor, dask_missing
+
+        executor = ClusterExecutor(cluster)      # a malformed address is refused here, before OUTDIR is taken
+        if dask_missing():
+            raise BatchError(dask_missing())
     recipes = [recipe] if plan is None else list(plan.recipes)
     policies = [Policy.from_recipe(r, on_over=on_over, block_size=block_size, true_peak=true_peak) for r in recipes]
-    with claimed(recipe, inputs, outdir, policies[0], plan=plan, policies=policies) as (prep, notes):
-        pictures: list[dict] = [{} for _ in recipes]
+    with claimed(recipe, inputs, outdir, policies[0], plan=plan, policies=policies) as (prep, notes), \
+            contextlib.ExitStack() as stack:
+        if executor is not None:
+            stack.enter_context(executor.open(prep.outdir, prep.work[0][0].input if prep.work else None))
         if progress is not None and hasattr(progress, "start"):
             progress.start(len(prep.work))
         try:
-            # The report's pictures (matplotlib) are drawn by a forked child process, so that neither
-            # matplotlib's memory nor its use of the GIL is ever the renderer's. With one worker (one
-            # core) the child runs after the audio; with more, while the audio renders: it is started
-            # before the pipeline threads or the worker processes exist.
-            if workers > 1:
-                for drawn, r, designs in zip(pictures, recipes, prep.recipe_designs):
-                    drawn.update(_pictures_aside(r, designs))
-            result = execute(prep, workers=workers, progress=progress, resume=not redo)
+            result = execute(prep, workers=workers, progress=progress, resume=not redo, executor=executor)
         finally:
             if progress is not None and hasattr(progress, "close"):
                 progress.close()
-        if workers == 1:
-            for drawn, r, designs in zip(pictures, recipes, prep.recipe_designs):
-                drawn.update(_pictures_aside(r, designs))
-        result.notes[:0] = notes
-        result.pictures = pictures[0]
-        result.recipe_pictures = pictures
+        result.notes[:0] = notes              # the response pictures are drawn with the report (SVG, milliseconds)
         paths, errors = _write_reports(result, report, command, outdir)
     return RunOutcome(result, paths, errors)
 

@@ -18,7 +18,6 @@ import sys
 import unicodedata
 
 import numpy as np
-import pytest
 
 from chainrun.text import one_line, shown
 

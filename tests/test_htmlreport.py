@@ -372,16 +372,13 @@ def test_pictures_are_drawn_here_and_the_same_every_time():
 
     recipe, designs = _designed([44100, 48000])
     designs[8000] = SimpleNamespace(chain=None, assessment=None)           # a rate without a chain: no picture
-    got = pictures.draw_pictures_aside(recipe, designs)
-    assert set(got) == {44100, 48000}
     for rate in (44100, 48000):
         d = designs[rate]
-        svg = got[rate].result()
+        svg = pictures.picture_of(recipe, d)
         assert svg.startswith("<svg") and svg.endswith("</svg>")
         assert svg == response_svg(recipe, d.chain, d.assessment)          # deterministic: the same bytes
+        assert svg == pictures.picture_of(recipe, d)
         assert f'id="chainrun-plot-{rate}"' in svg                       # ids differ between rates on one page
-    assert pictures.picture_of(SimpleNamespace(pictures=got, recipe=recipe), 48000, designs[48000]) == \
-        got[48000].result()
 
 
 def test_a_picture_that_cannot_be_drawn_is_explained_on_the_page(tmp_path, monkeypatch, capsys):

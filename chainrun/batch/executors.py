@@ -14,9 +14,9 @@ The protocol (:class:`Executor`) is small on purpose:
   that died, say), filled during ``run``.
 
 :class:`InlineExecutor` renders in this process, one file after the other, each with the pipeline
-threads; :class:`PoolExecutor` renders one file per forked worker process. A cluster executor (Dask,
-say) is one more class with the same three members: it ships each task to a node running
-:func:`render_task`, and passes Ctrl-C on to its workers as :class:`PoolExecutor` does.
+threads; :class:`PoolExecutor` renders one file per forked worker process. The cluster executor
+(:class:`~.cluster.ClusterExecutor`, Dask) is one more class with the same three members: it ships each
+task to a worker running :func:`_render_in_worker`, and passes Ctrl-C on to its workers through a stop event.
 """
 from __future__ import annotations
 

@@ -40,13 +40,11 @@ class BatchResult:
     seconds: float
     interrupted: bool = False
     notes: list[str] = field(default_factory=list)
-    pictures: dict = field(default_factory=dict)      # rate -> Future of the report's response picture
     # One entry per recipe of the batch (a plan's, indexed by Job.recipe); the first is recipe/policy/designs.
     recipes: list[Recipe] = field(default_factory=list)
     policies: list[Policy] = field(default_factory=list)
     recipe_designs: list[dict[int, RateDesign]] = field(default_factory=list)
     recipe_of: dict[str, int] = field(default_factory=dict)   # input path -> its recipe's index
-    recipe_pictures: list[dict] = field(default_factory=list)  # per recipe: rate -> picture (plans)
     plan_path: str | None = None
 
     def __post_init__(self):

@@ -49,6 +49,10 @@ def _run_arguments(p: argparse.ArgumentParser) -> None:
                         "true_peak_ceiling_dbtp")
     p.add_argument("--redo", action="store_true",
                    help="render every file again, even those an earlier run already delivered unchanged")
+    p.add_argument("--cluster", metavar="ADDRESS",
+                   help="render each file on a Dask cluster: tcp://HOST:PORT (a running scheduler) or local:N "
+                        "(N worker processes here); inputs and OUTDIR must be on storage every worker sees. "
+                        "Needs pip install 'chainrun[cluster]'")
 
 
 def _scan_arguments(p: argparse.ArgumentParser) -> None:

@@ -74,7 +74,8 @@ def main(args: argparse.Namespace) -> int:
         _err(line)
     outcome = run(recipe, args.inputs, args.outdir, plan=plan, workers=args.workers, block_size=args.block_size,
                   on_over=args.on_over, report=args.report, true_peak=not args.no_true_peak, redo=args.redo,
-                  progress=_Progress(sys.stderr.isatty()), command=["chainrun"] + args.argv)
+                  progress=_Progress(sys.stderr.isatty()), command=["chainrun"] + args.argv,
+                  cluster=args.cluster)
     result = outcome.result
     for note in result.notes:
         _err(note if ": warning: " in note else f"chainrun: note: {note}")    # a plan's located warnings as they are

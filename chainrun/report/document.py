@@ -182,22 +182,16 @@ def with_pictures(document: dict, b: BatchResult) -> dict:
 
     ``outdir`` is the batch's output folder; ``responses`` has, for each rate
     whose chain was designed and assessed, ``{"rate_hz", "svg", "error"}``: the
-    response picture as inline SVG, or why it could not be drawn. Waits for
-    pictures drawn aside (``BatchResult.pictures``) and draws the missing ones.
+    response picture as inline SVG, or why it could not be drawn.
     """
-    extra = {"outdir": b.outdir, "responses": _responses(b, b.designs)}
+    extra = {"outdir": b.outdir, "responses": _responses(b.recipe, b.designs)}
     if b.plan_path is not None:        # a plan: each recipe's pictures, as "recipe_responses"[index]
-        from types import SimpleNamespace
-
-        extra["recipe_responses"] = [
-            _responses(SimpleNamespace(recipe=r, pictures=(b.recipe_pictures[i] if i < len(b.recipe_pictures)
-                                                           else {})), designs)
-            for i, (r, designs) in enumerate(zip(b.recipes, b.recipe_designs))]
+        extra["recipe_responses"] = [_responses(r, designs) for r, designs in zip(b.recipes, b.recipe_designs)]
     return {**document, **extra}
 
 
-def _responses(b, designs: dict) -> list[dict]:
-    """``{"rate_hz", "svg", "error"}`` for each designed rate of ``designs`` (``b``: its recipe and pictures)."""
+def _responses(recipe, designs: dict) -> list[dict]:
+    """``{"rate_hz", "svg", "error"}`` for each designed rate of ``designs``."""
     from .pictures import picture_of
 
     responses = []
@@ -206,7 +200,7 @@ def _responses(b, designs: dict) -> list[dict]:
             continue
         svg = error = None
         try:
-            svg = picture_of(b, rate, d)
+            svg = picture_of(recipe, d)
         except Exception as exc:   # a picture that cannot be drawn must not cost the report
             error = f"{type(exc).__name__}: {exc}"
         responses.append({"rate_hz": rate, "svg": svg, "error": error})
