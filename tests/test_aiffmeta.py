@@ -16,7 +16,7 @@ import pytest
 import soundfile as sf
 
 from chainrun.audio.metadata import aiff as am
-from chainrun.audio.metadata.riff import MetaError
+from chainrun.audio.metadata.common import MetaError
 
 RATE = 48000
 

@@ -12,7 +12,7 @@ import pytest
 import soundfile as sf
 
 from chainrun.audio.metadata import flac as fm
-from chainrun.audio.metadata.riff import MetaError
+from chainrun.audio.metadata.common import MetaError
 
 mutagen_flac = pytest.importorskip("mutagen.flac")
 RATE = 48000

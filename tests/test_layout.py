@@ -119,3 +119,10 @@ def test_no_import_circle():
     for n in sorted(graph):
         if n not in state and (cycle := visit(n)):
             raise AssertionError("import circle: " + " -> ".join(cycle))
+
+
+def test_no_module_over_the_size_limit():
+    # DEVELOPERS.md: no module over ~400 lines; "about" allows a tenth more, and no more.
+    long = {str(p.relative_to(PKG.parent)): n for p in PKG.rglob("*.py")
+            if (n := len(p.read_text(encoding="utf-8").splitlines())) > 440}
+    assert not long, f"modules over ~400 lines: {long}"

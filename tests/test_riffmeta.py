@@ -16,6 +16,8 @@ import soundfile as sf
 
 from chainrun.audio.metadata import bext as bx
 from chainrun.audio.metadata import riff as rm
+from chainrun.audio.metadata import riff_write as rw
+from chainrun.audio.metadata.common import MetaError, Reservation
 
 wavinfo = pytest.importorskip("wavinfo")
 
@@ -85,11 +87,11 @@ def render(src, out, fmt="WAV", subtype="PCM_24", keep=True, block=256, loudness
     x = pcm24(src, layout)
     f = sf.SoundFile(out, "w", RATE, channels, subtype, format=fmt)
     sf._snd.sf_command(f._file, 0x1050, sf._ffi.NULL, 0)      # SFC_SET_ADD_PEAK_CHUNK off, as chainrun
-    res = rm.prepare_output(f, carry)
+    res = rw.prepare_output(f, carry)
     for i in range(0, len(x), block):
         f.write(x[i:i + block])
     f.close()
-    changes = rm.finish_output(out, res, carry, bx.coding_history_row(RATE, channels, 24, "chainrun 0.1.0 Marsh"),
+    changes = rw.finish_output(out, res, carry, bx.coding_history_row(RATE, channels, 24, "chainrun 0.1.0 Marsh"),
                                loudness)
     return carry, changes
 
@@ -252,7 +254,7 @@ def test_rf64_past_4gib_gets_64_bit_riff_size(tmp_path):
         pytest.skip("the file system does not keep sparse files")
     src = source(tmp_path, after=INFO)
     carry = rm.plan_carry(rm.read_layout(src))
-    rm.finish_output(out, rm.Reservation(0), carry)
+    rw.finish_output(out, Reservation(0), carry)
     size = os.path.getsize(out)
     with open(out, "rb") as fh:
         fh.seek(20)
@@ -269,8 +271,8 @@ def test_riff_that_would_pass_4gib_is_refused(tmp_path):
     if not _sparse(out, head, len(head) + data + 1):
         pytest.skip("the file system does not keep sparse files")
     carry = rm.plan_carry(rm.read_layout(source(tmp_path, after=INFO)))
-    with pytest.raises(rm.MetaError, match="passes 4 GiB; it must be written as RF64"):
-        rm.finish_output(out, rm.Reservation(0), carry)
+    with pytest.raises(MetaError, match="passes 4 GiB; it must be written as RF64"):
+        rw.finish_output(out, Reservation(0), carry)
 
 
 def test_extensible_channel_mask_and_valid_bits_kept(tmp_path):
@@ -365,5 +367,5 @@ def test_w64_layout_is_read_and_nothing_carried(tmp_path):
 def test_not_a_wav_file(tmp_path):
     p = tmp_path / "x.wav"
     p.write_bytes(b"FORM\0\0\0\4AIFF")
-    with pytest.raises(rm.MetaError, match=r"x\.wav: error: not a WAV, RF64, BW64 or W64 file"):
+    with pytest.raises(MetaError, match=r"x\.wav: error: not a WAV, RF64, BW64 or W64 file"):
         rm.read_layout(str(p))

@@ -72,6 +72,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .gating import _GATE_POWER, _REL_GATE_LRA, _Histogram, _lufs, integrated_of
 from .weighting import channel_weights, k_weighting_sos
 
 __all__ = ["LoudnessMeter", "LoudnessReading", "k_weighting_sos", "channel_weights", "integrated_of"]
@@ -80,28 +81,8 @@ _SUB_PER_S = 100          # sub-blocks per second (10 ms)
 _MOMENTARY = 40           # sub-blocks in a momentary window / gating block (400 ms)
 _SHORT = 300              # sub-blocks in a short-term window (3 s)
 _STEP = 10                # sub-blocks between gating blocks and between LRA windows (100 ms)
-_OFFSET = -0.691          # BS.1770-4 Annex 1, eq. 2
-_ABS_GATE = -70.0         # LUFS, BS.1770-4 and Tech 3342
-_REL_GATE_I = -10.0       # LU, BS.1770-4
-_REL_GATE_LRA = -20.0     # LU, Tech 3342
-_BIN_LU = 0.005
-_TOP_LUFS = 40.0
-_N_BINS = int(round((_TOP_LUFS - _ABS_GATE) / _BIN_LU))
 _CLAMP = 1.0e100
 _SLACK = 2.0 * np.finfo(np.float64).eps   # per-term rounding bound of a sum, with a factor 2 to spare
-
-
-def _power(lufs: float) -> float:
-    """Mean square whose loudness is ``lufs``."""
-    return 10.0 ** ((lufs - _OFFSET) / 10.0)
-
-
-def _lufs(power: float) -> float:
-    return _OFFSET + 10.0 * math.log10(power)
-
-
-_EDGES = np.array([_power(_ABS_GATE + i * _BIN_LU) for i in range(_N_BINS)])   # lower edges
-_GATE_POWER = _EDGES[0]
 
 
 @dataclass(frozen=True)
@@ -156,64 +137,6 @@ class LoudnessReading:
         return cls(opt(d["integrated_lufs"]), opt(d["loudness_range_lu"]), opt(d["max_momentary_lufs"]),
                    opt(d["max_short_term_lufs"]), tuple(float(g) for g in d["channel_weights"]),
                    str(d["weights_note"]), int(d["frames"]), int(d["nonfinite_samples"]))
-
-
-class _Histogram:
-    """Counts and power sums of windows above -70 LUFS, in bins 0.005 LU wide (see module notes)."""
-
-    def __init__(self) -> None:
-        self.count = np.zeros(_N_BINS, dtype=np.int64)
-        self.power = np.zeros(_N_BINS)
-
-    def add(self, z: np.ndarray) -> None:
-        """Add mean squares ``z`` (in stream order); those at or below the -70 LUFS gate are dropped."""
-        z = z[z > _GATE_POWER]
-        if z.size:
-            idx = np.searchsorted(_EDGES, z, side="right") - 1      # exact comparisons in power
-            np.add.at(self.count, idx, 1)
-            np.add.at(self.power, idx, z)                          # sequential: same sums in any split
-
-    def kept(self, rel_gate_lu: float) -> tuple[np.ndarray, int, float] | None:
-        """Per-bin counts after the relative gate, their total count and power sum; None if empty."""
-        n = int(self.count.sum())
-        if n == 0:
-            return None
-        gate = float(self.power.sum()) / n * 10.0 ** (rel_gate_lu / 10.0)
-        g = int(np.searchsorted(_EDGES, gate, side="right")) - 1
-        count = self.count.copy()
-        power = self.power.copy()
-        if g >= 0:
-            count[:g] = 0
-            power[:g] = 0.0
-            if count[g] and not power[g] / count[g] > gate:   # the bin holding the gate: whole or nothing
-                count[g] = 0
-                power[g] = 0.0
-        return count, int(count.sum()), float(power.sum())
-
-
-def integrated_of(histograms) -> float | None:
-    """Integrated loudness (BS.1770-4 gating) of the gating blocks of several streams taken together.
-
-    Parameters
-    ----------
-    histograms : iterable of (numpy.ndarray, numpy.ndarray)
-        :meth:`LoudnessMeter.gating_histogram` of each stream, in a fixed order
-        (the power sums are added in that order).
-
-    Returns
-    -------
-    float or None
-        LUFS; None when no block of any stream is above the gate.  One stream
-        gives exactly its own ``integrated_lufs``.
-    """
-    total = _Histogram()
-    for count, power in histograms:
-        total.count += count
-        total.power += power
-    kept = total.kept(_REL_GATE_I)
-    if kept is None or not kept[1]:
-        return None
-    return _lufs(kept[2] / kept[1])
 
 
 class LoudnessMeter:

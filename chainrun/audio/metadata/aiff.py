@@ -34,12 +34,12 @@ FORM size patched. Only header bytes are touched, and nothing time-dependent is 
 
 from __future__ import annotations
 
-import ctypes
 import os
 import struct
 from dataclasses import dataclass, field
 
-from .riff import CARRY_LIMIT, CarryItem, MetaError, Reservation, _libsndfile_set_chunk
+from ..sndfile import reserve_chunk
+from .common import CARRY_LIMIT, CarryItem, MetaError, Reservation
 
 FILLER = "JUNK"                    # id of the reserved room and of the filler left in it
 
@@ -183,7 +183,7 @@ def plan_carry(layout: AiffLayout, keep: bool = True) -> list[CarryItem]:
 
     Chunks describing the input's audio, and fillers, are rewritten or dropped (see
     ``_LAYOUT``); every other chunk is carried with the same payload, up to
-    :data:`chainrun.audio.metadata.riff.CARRY_LIMIT` bytes in all. ``keep=False`` (recipe
+    :data:`chainrun.audio.metadata.common.CARRY_LIMIT` bytes in all. ``keep=False`` (recipe
     ``output.metadata: drop``) drops every metadata chunk; malformed chunks are dropped with
     the reason of their note.
     """
@@ -237,12 +237,8 @@ def prepare_output(sf_handle, carry: list[CarryItem]) -> Reservation:
     if sf_handle is None or not pre:
         return Reservation(0)
     size = _room(sum(len(_blob(i)) for i in pre))
-    set_chunk, info_type, sf = _libsndfile_set_chunk()
-    buf = ctypes.create_string_buffer(size)
-    info = info_type(FILLER.encode(), 4, size, ctypes.cast(buf, ctypes.c_void_p))
-    code = set_chunk(int(sf._ffi.cast("uintptr_t", sf_handle._file)), ctypes.byref(info))
-    if code != 0:
-        reason = sf._ffi.string(sf._snd.sf_error_number(code)).decode("utf-8", "replace")
+    reason = reserve_chunk(sf_handle, FILLER.encode(), size)
+    if reason:
         raise MetaError(f"{sf_handle.name}: error: cannot reserve {size} bytes for metadata: {reason}")
     return Reservation(size)
 

@@ -11,9 +11,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from . import aiff, flac, riff
+from . import aiff, flac, riff, riff_write
 from .bext import coding_history_row
-from .riff import MetaError
+from .common import MetaError, Reservation
 
 __all__ = ["SourceMeta", "OutputMeta", "read_source_meta", "MetaError", "KINDS"]
 
@@ -103,7 +103,7 @@ class OutputMeta:
             return
         if self.kind == "riff":
             self.row = coding_history_row(f.samplerate, f.channels, _BITS.get(f.subtype, 0), self.history)
-            self.reservation = riff.prepare_output(f if f.format != "W64" else None, self.carry)
+            self.reservation = riff_write.prepare_output(f if f.format != "W64" else None, self.carry)
         elif self.kind == "flac":
             self.reservation = flac.prepare_output(f, self.carry)
         else:
@@ -122,12 +122,12 @@ class OutputMeta:
         """
         if self.kind == "riff":
             if self._carried() or any(i.id == "fmt " and i.payload for i in self.carry):
-                self.changes = riff.finish_output(temp_path, self.reservation or riff.Reservation(0), self.carry,
+                self.changes = riff_write.finish_output(temp_path, self.reservation or Reservation(0), self.carry,
                                                   bext_row=self.row, loudness=loudness)
         elif self.kind == "flac" and any(i.id != "VORBIS_COMMENT" or len(i.block) for i in self._carried()):
             flac.finish_output(temp_path, self.carry)
         elif self.kind == "aiff" and self._carried():
-            aiff.finish_output(temp_path, self.reservation or riff.Reservation(0), self.carry)
+            aiff.finish_output(temp_path, self.reservation or Reservation(0), self.carry)
 
     def listing(self) -> dict | None:
         """Plain data for the report: every chunk or block and what became of it, the notes, the changes."""

@@ -39,7 +39,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from .riff import CARRY_LIMIT, MetaError
+from .common import CARRY_LIMIT, MetaError
 
 _MAX_BLOCK = 2**24 - 1                # FLAC format: a metadata block's length is 24 bits
 
@@ -149,7 +149,7 @@ def plan_carry(meta: FlacMeta, keep: bool = True) -> list[CarryItem]:
 
     ``keep=False`` (recipe ``output.metadata: drop``) drops every metadata block. A second
     VORBIS_COMMENT or a block of the invalid type 127 is dropped; at most
-    :data:`chainrun.audio.metadata.riff.CARRY_LIMIT` bytes are carried in all.
+    :data:`chainrun.audio.metadata.common.CARRY_LIMIT` bytes are carried in all.
     """
     items, total, seen_vc = [], 0, False
     for code, at, length, blk in meta.blocks:
