@@ -282,6 +282,49 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
     return RunOutcome(result, paths, errors)
 
 
+def render(recipe: Recipe | str, input: str, output: str, *, on_over: str | None = None,
+           block_size: int | None = None, true_peak: bool = True) -> FileResult:
+    """Filter one file into ``output`` (written atomically), as ``chainrun run`` would render it.
+
+    The recipe is checked and designed at the file's own rate first; a file the recipe cannot be
+    used on comes back ``rejected`` with the reason, and nothing is written. The dither is seeded
+    from the input's name, as for a file named on the command line, so the bytes equal those of
+    ``chainrun run RECIPE INPUT -o FOLDER``. No lock, journal or report: that is :func:`run`.
+
+    Raises
+    ------
+    RecipeError
+        If ``recipe`` is a path and cannot be loaded.
+    BatchError
+        If the recipe holds an unstable raw section (no audio is touched).
+    """
+    from .batch.discover import Job
+    from .guard import check_raw_sections
+    from .recipe.channels import channels_misfit
+    from .render import render_file
+    from .results import REJECTED
+
+    if isinstance(recipe, (str, os.PathLike)):
+        recipe = load(os.fspath(recipe))
+    raw = check_raw_sections(recipe)
+    if raw:
+        raise BatchError(f"{raw[0]}; no audio was touched")
+    name = os.path.basename(input)
+    src = probe_job(Job(input, name, output))
+    if isinstance(src, FileResult):
+        return src
+    try:
+        chain, assessment = design_and_assess(recipe, src.rate)
+    except RecipeError as exc:          # e.g. a section at or above this rate's Nyquist frequency
+        return FileResult(input, name, REJECTED, f"the recipe cannot be used at {src.rate} Hz: {exc}", source=src)
+    refused = next((str(p) for p in assessment.problems if p.severity == "error"), None)
+    refused = refused or channels_misfit(recipe, src.channels)
+    if refused:
+        return FileResult(input, name, REJECTED, f"the recipe cannot be used on this file: {refused}", source=src)
+    policy = Policy.from_recipe(recipe, on_over=on_over, block_size=block_size, true_peak=true_peak)
+    return render_file(src, output, chain.filters, assessment.peak_gain, policy, seed_key=name, relpath=name)
+
+
 # --------------------------------------------------------------------------- scan
 
 def scan(inputs: list[str], true_peak: bool = True) -> list[FileResult]:
