@@ -31,7 +31,8 @@ from dataclasses import replace
 from typing import Callable, NamedTuple, Protocol, Sequence
 
 from ..audio.source import Source
-from ..interrupt import allow_rendering, ctrl_c_stops_rendering, on_sigint, rendering_stopped, stop_point as _stop_point
+from ..interrupt import (allow_rendering, ctrl_c_stops_rendering, rendering_stopped, stop_point as _stop_point,
+                         worker_rendering, worker_signals)
 from ..render import MAX_BLOCK, MIN_BLOCK, Policy, render_file
 from ..results import FAILED, INTERRUPTED, FileResult
 from ..text import first_line, reason as _reason
@@ -138,8 +139,7 @@ def _worker_init(parent: int | None = None) -> None:
     if parent is not None and os.getppid() != parent:       # the parent died before prctl took effect
         os._exit(1)
     allow_rendering()
-    if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:   # a batch run in the background ignores it
-        signal.signal(signal.SIGINT, on_sigint)
+    worker_signals()        # Ctrl-C, SIGTERM, SIGHUP, SIGQUIT: stop the file at its next block
 
 
 def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
@@ -147,13 +147,18 @@ def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) 
     if rendering_stopped():
         return interrupted
     try:
-        return _render_job(job, src, sos, bound, policy)     # execute gave it one thread: one core
+        with worker_rendering():
+            return _render_job(job, src, sos, bound, policy)     # execute gave it one thread: one core
     except KeyboardInterrupt:
         return interrupted
 
 
 def _stop_workers(pool: ProcessPoolExecutor) -> None:
-    """Pass Ctrl-C on to every worker (each stops its file and skips the rest of its queue)."""
+    """Pass Ctrl-C on to every worker (each stops its file and skips the rest of its queue).
+
+    Also for SIGTERM, SIGHUP or SIGQUIT received by this process: SIGINT only stops the workers' files,
+    and the pool's shutdown then ends them in order.
+    """
     for proc in list((getattr(pool, "_processes", None) or {}).values()):
         try:
             os.kill(proc.pid, signal.SIGINT)

@@ -15,7 +15,9 @@ import traceback
 from ..version import __version__
 from ..app import cores
 from ..errors import BatchError
-from ..interrupt import from_ctrl_c as _from_ctrl_c
+import signal
+
+from ..interrupt import from_ctrl_c as _from_ctrl_c, stop_signals_like_ctrl_c, stopped_by
 from ..recipe import RecipeError
 from .common import EXIT_NOT_OK, EXIT_USAGE, UsageError, _err, _positive, _rate
 
@@ -112,6 +114,17 @@ def main(argv: list[str] | None = None) -> int:
     except SystemExit as exc:      # usage error (2) or --help/--version (0)
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     args.argv = list(argv) if argv is not None else sys.argv[1:]
+    with stop_signals_like_ctrl_c():        # SIGTERM, SIGHUP, SIGQUIT: stopped as by Ctrl-C
+        status = _command(args)
+        signum = stopped_by()
+    if signum is None:
+        return status
+    # Stopped by a signal other than Ctrl-C: say which, and exit as the shell reports a death by it.
+    _err(f"chainrun: stopped by {signal.Signals(signum).name}, as by Ctrl-C; exit status {128 + signum}")
+    return 128 + signum
+
+
+def _command(args) -> int:
     try:
         return importlib.import_module(f"{__name__}.{args.command}").main(args)
     except (UsageError, BatchError, RecipeError) as exc:
