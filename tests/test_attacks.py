@@ -109,3 +109,66 @@ def alive(pid: int) -> bool:
             return fh.read().rsplit(")", 1)[1].split()[0] != "Z"
     except OSError:
         return False
+
+
+# --- B: resume never trusts an output made from a file that is no longer there -------------------
+
+def _same_size_and_mtime_other_file(path: Path, seed: int) -> None:
+    """Put another recording in place of ``path``: same size, same modification time, another inode."""
+    st = path.stat()
+    info = sf.info(str(path))
+    other = path.with_name(".replacement.wav")
+    data = np.random.default_rng(seed).uniform(-0.3, 0.3, (info.frames, info.channels))
+    sf.write(str(other), data, info.samplerate, subtype=info.subtype)
+    assert other.stat().st_size == st.st_size
+    os.utime(other, ns=(st.st_atime_ns, st.st_mtime_ns))
+    os.replace(other, path)
+
+
+def test_an_input_replaced_between_render_and_journal_is_not_recorded(tmp_path, run_cli, monkeypatch):
+    import chainrun.batch.executors as executors
+
+    write_season(tmp_path / "in", {"marsh/curlew.wav": 20_000, "marsh/tide.wav": 20_000})
+    (tmp_path / "r.yaml").write_text(RECIPE)
+    victim = tmp_path / "in" / "marsh" / "tide.wav"
+    real = executors.render_file
+
+    def render_then_swap(src, dst, *a, **k):
+        r = real(src, dst, *a, **k)
+        if src.path == str(victim):
+            _same_size_and_mtime_other_file(victim, 99)      # after the renderer's own check
+        return r
+
+    monkeypatch.setattr(executors, "render_file", render_then_swap)
+    status, _, err = run_cli("run", tmp_path / "r.yaml", tmp_path / "in", "-o", tmp_path / "out", "--workers", "1")
+    monkeypatch.undo()
+    assert status == 1 and "tide.wav" in err and "replaced or changed right after it was rendered" in err, err
+    journal = (tmp_path / "out" / ".chainrun-journal.jsonl").read_text()
+    assert "tide.wav" not in journal and "curlew.wav" in journal
+    # the next run renders the file now there: its output equals a run of that file alone
+    status, _, err = run_cli("run", tmp_path / "r.yaml", tmp_path / "in", "-o", tmp_path / "out", "--workers", "1")
+    assert status == 0, err
+    status, _, err = run_cli("run", tmp_path / "r.yaml", victim, "-o", tmp_path / "alone", "--workers", "1")
+    assert status == 0, err
+    assert (tmp_path / "out" / "marsh" / "tide.wav").read_bytes() == (tmp_path / "alone" / "tide.wav").read_bytes()
+
+
+def test_an_input_replaced_after_its_journal_line_is_rendered_again(tmp_path, run_cli):
+    write_season(tmp_path / "in", {"marsh/tide.wav": 200_000})     # > 128 KiB: the middle is not hashed
+    (tmp_path / "r.yaml").write_text(RECIPE)
+    victim = tmp_path / "in" / "marsh" / "tide.wav"
+    argv = ("run", tmp_path / "r.yaml", tmp_path / "in", "-o", tmp_path / "out", "--workers", "1")
+    assert run_cli(*argv)[0] == 0
+    # another file with the same head, tail, size and modification time: only the middle differs
+    raw = bytearray(victim.read_bytes())
+    st = victim.stat()
+    mid = len(raw) // 2
+    raw[mid:mid + 3000] = bytes(3000)
+    other = victim.with_name(".other.wav")
+    other.write_bytes(bytes(raw))
+    os.utime(other, ns=(st.st_atime_ns, st.st_mtime_ns))
+    os.replace(other, victim)
+    status, _, err = run_cli(*argv)
+    assert status == 0 and "already delivered" not in err, err
+    assert run_cli("run", tmp_path / "r.yaml", victim, "-o", tmp_path / "alone", "--workers", "1")[0] == 0
+    assert (tmp_path / "out" / "marsh" / "tide.wav").read_bytes() == (tmp_path / "alone" / "tide.wav").read_bytes()

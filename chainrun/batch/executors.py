@@ -34,11 +34,11 @@ from ..audio.source import Source
 from ..interrupt import (allow_rendering, ctrl_c_stops_rendering, rendering_stopped, stop_point as _stop_point,
                          worker_rendering, worker_signals)
 from ..render import MAX_BLOCK, MIN_BLOCK, Policy, render_file
-from ..results import FAILED, INTERRUPTED, FileResult
+from ..results import DELIVERED, FAILED, INTERRUPTED, FileResult
 from ..text import first_line, reason as _reason
 from .discover import Job
 
-__all__ = ["Task", "Finished", "Executor", "InlineExecutor", "PoolExecutor", "render_task"]
+__all__ = ["Task", "Finished", "Executor", "InlineExecutor", "PoolExecutor", "render_task", "still_the_rendered_file"]
 
 # Workers are forked on Linux (instant start; the parent holds no threads of its own when the pool
 # starts, and the progress bar runs without its monitor thread); elsewhere they start fresh.
@@ -96,6 +96,30 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
                        relpath=job.relpath)
 
 
+def still_the_rendered_file(task: Task, r: FileResult) -> FileResult:
+    """A delivered result, checked once more right before it is reported (and the journal records it).
+
+    The renderer checked the input at the end of the file; an input replaced after that (another file,
+    same size and modification time) would otherwise be recorded as the source of an output made from
+    the earlier file, and resume would keep that output for ever. Such a file is failed, unrecorded.
+    """
+    src = task.src
+    if r.status not in DELIVERED or not src.inode:
+        return r
+    try:
+        st = os.stat(src.path)
+        same = (st.st_ino, st.st_ctime_ns, st.st_size, st.st_mtime_ns) == (src.inode, src.ctime_ns, src.size,
+                                                                           src.mtime_ns)
+    except OSError:
+        same = False
+    if same:
+        return r
+    r.status = FAILED
+    r.message = ("was replaced or changed right after it was rendered; its output, made from the earlier file, "
+                 "is not recorded as delivered: run again to render the file now there")
+    return r
+
+
 def render_task(task: Task) -> FileResult:
     """Render one task in this process (a fault outside render_file's own handling fails this file only)."""
     job, src = task.job, task.src
@@ -118,7 +142,7 @@ class InlineExecutor:
             with ctrl_c_stops_rendering():
                 for task in tasks:
                     _stop_point()
-                    finished(task.job, render_task(task))
+                    finished(task.job, still_the_rendered_file(task, render_task(task)))
         except KeyboardInterrupt:
             return True
         return False
@@ -234,7 +258,7 @@ class PoolExecutor:
                             text = first_line(exc, type(exc).__name__)
                             r = FileResult(job.input, job.relpath, FAILED, f"the worker rendering it stopped: "
                                            f"{text}; nothing was delivered", source=src)
-                        finished(job, r)
+                        finished(job, still_the_rendered_file(task, r))
                         del pending[fut]            # after: a Ctrl-C in between leaves it to the finally
                 if broken and not pending:         # every file the broken pool held is accounted for
                     pool.shutdown(wait=True)
@@ -255,7 +279,7 @@ class PoolExecutor:
                     _stop_workers(pool)
             for fut, (task, _) in pending.items():
                 if fut.done() and not fut.cancelled() and fut.exception() is None:
-                    finished(task.job, fut.result())
+                    finished(task.job, still_the_rendered_file(task, fut.result()))
         if tried_again:
             self.notes.append(f"a worker process stopped while rendering (killed from outside, or out of memory?); "
                               f"the {len(tried_again)} file(s) its pool held were rendered again, each on its own")

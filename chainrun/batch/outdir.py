@@ -268,15 +268,20 @@ def clean_leftovers(outdir: str) -> list[str]:
 
 
 def fingerprint(path: str) -> dict:
-    """Size, modification time and a hash of the first and last 64 KiB of a file."""
-    st = os.stat(path)
+    """Size, modification time, inode, change time and a hash of the first and last 64 KiB of a file.
+
+    The inode tells a file put in place of another (same size and modification time) apart; the change
+    time moves with every write and with a modification time set back.
+    """
     h = hashlib.sha256()
     with open(path, "rb") as fh:
+        st = os.fstat(fh.fileno())          # the file that is hashed, not whatever the name holds later
         h.update(fh.read(_SAMPLE))
         if st.st_size > 2 * _SAMPLE:
             fh.seek(st.st_size - _SAMPLE)
             h.update(fh.read(_SAMPLE))
-    return {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "sample_sha256": h.hexdigest()}
+    return {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "inode": st.st_ino, "ctime_ns": st.st_ctime_ns,
+            "sample_sha256": h.hexdigest()}
 
 
 @dataclass
