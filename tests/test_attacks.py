@@ -172,3 +172,71 @@ def test_an_input_replaced_after_its_journal_line_is_rendered_again(tmp_path, ru
     assert status == 0 and "already delivered" not in err, err
     assert run_cli("run", tmp_path / "r.yaml", victim, "-o", tmp_path / "alone", "--workers", "1")[0] == 0
     assert (tmp_path / "out" / "marsh" / "tide.wav").read_bytes() == (tmp_path / "alone" / "tide.wav").read_bytes()
+
+
+# --- C: nested output folders ---------------------------------------------------------------------
+
+def test_a_run_into_a_parent_folder_leaves_another_runs_subfolder_alone(tmp_path, run_cli):
+    (tmp_path / "r.yaml").write_text(RECIPE)
+    write_season(tmp_path / "evening", {"tide.wav": 12_000})
+    write_season(tmp_path / "season", {"sub/tide.wav": 12_000, "marsh/heron.wav": 12_000})
+    # an earlier run into out/sub
+    assert run_cli("run", tmp_path / "r.yaml", tmp_path / "evening", "-o", tmp_path / "out" / "sub",
+                   "--workers", "1")[0] == 0
+    before = (tmp_path / "out" / "sub" / "tide.wav").read_bytes()
+    journal = (tmp_path / "out" / "sub" / ".chainrun-journal.jsonl").read_bytes()
+    # a run into out/ whose tree has a folder 'sub'
+    status, _, err = run_cli("run", tmp_path / "r.yaml", tmp_path / "season", "-o", tmp_path / "out",
+                             "--workers", "1")
+    assert status == 1, err
+    said = [ln for ln in err.splitlines() if ln.startswith(str(tmp_path / "season" / "sub" / "tide.wav"))]
+    assert len(said) == 1 and "holds another run's lock or resume journal" in said[0], err
+    assert (tmp_path / "out" / "sub" / "tide.wav").read_bytes() == before
+    assert (tmp_path / "out" / "sub" / ".chainrun-journal.jsonl").read_bytes() == journal
+    assert (tmp_path / "out" / "marsh" / "heron.wav").exists()
+
+
+def test_a_run_started_in_a_subfolder_during_a_run_is_left_alone(tmp_path, run_cli, monkeypatch):
+    import chainrun.batch.executors as executors
+
+    (tmp_path / "r.yaml").write_text(RECIPE)
+    write_season(tmp_path / "season", {"a/first.wav": 24_000, "sub/tide.wav": 12_000})   # longest first
+    real = executors.render_file
+    foreign = tmp_path / "out" / "sub"
+
+    def render_then_other_run(src, dst, *a, **k):
+        r = real(src, dst, *a, **k)
+        if not foreign.exists():                 # another batch claims out/sub after our first file
+            foreign.mkdir(parents=True)
+            (foreign / ".chainrun.lock").write_text('{"pid": 1, "host": "elsewhere"}\n')
+            (foreign / "tide.wav").write_bytes(b"the other run's output")
+        return r
+
+    monkeypatch.setattr(executors, "render_file", render_then_other_run)
+    status, _, err = run_cli("run", tmp_path / "r.yaml", tmp_path / "season", "-o", tmp_path / "out",
+                             "--workers", "1")
+    assert status == 1 and "holds another run's lock" in err, err
+    assert (foreign / "tide.wav").read_bytes() == b"the other run's output"
+
+
+def test_an_outdir_deleted_mid_run_is_not_recreated(tmp_path, run_cli, monkeypatch):
+    import shutil
+
+    import chainrun.batch.executors as executors
+
+    (tmp_path / "r.yaml").write_text(RECIPE)
+    write_season(tmp_path / "season", {"a/first.wav": 24_000, "b/second.wav": 12_000})
+    real = executors.render_file
+    out = tmp_path / "out"
+
+    def render_then_delete(src, dst, *a, **k):
+        r = real(src, dst, *a, **k)
+        shutil.rmtree(out, ignore_errors=True)   # someone clears the output folder mid-run
+        return r
+
+    monkeypatch.setattr(executors, "render_file", render_then_delete)
+    status, _, err = run_cli("run", tmp_path / "r.yaml", tmp_path / "season", "-o", out, "--workers", "1")
+    assert status == 1, err
+    said = [ln for ln in err.splitlines() if ln.startswith(str(tmp_path / "season" / "b" / "second.wav"))]
+    assert len(said) == 1 and "disappeared during the run; not re-created" in said[0], err
+    assert not (out / "b").exists()

@@ -20,6 +20,7 @@ from ..errors import BatchError
 from ..fsutil import TEMP_TAG
 from ..results import FAILED, MAC_METADATA, NOT_AUDIO, SKIPPED, FileResult
 from ..text import reason as _reason
+from .outdir import JOURNAL_NAME, LOCK_NAME
 
 __all__ = ["Job", "Plan", "discover", "discover_plan", "root_names", "AUDIO_EXTENSIONS"]
 
@@ -40,6 +41,36 @@ class Job:
     relpath: str
     output: str
     recipe: int = 0          # which of the batch's recipes renders it (a plan's row order; 0 otherwise)
+    outdir: str = ""         # the batch's OUTDIR ("" when unknown): its subfolders are checked before writing
+
+
+# chainrun's bookkeeping names in an output folder
+_BOOKKEEPING = (LOCK_NAME, JOURNAL_NAME)
+
+
+def foreign_run_folder(outdir: str, output: str) -> str | None:
+    """The first folder below OUTDIR on the way to ``output`` that holds another run's lock or journal.
+
+    Another batch writes (or wrote) there, with its own resume journal: writing into it would
+    silently overwrite that run's outputs. OUTDIR itself is this run's and not checked.
+    """
+    if not outdir:
+        return None
+    top = os.path.normpath(outdir)
+    rel = os.path.relpath(os.path.dirname(os.path.normpath(output)), top)
+    if rel == "." or rel.startswith(".."):
+        return None
+    folder = top
+    for part in rel.split(os.sep):
+        folder = os.path.join(folder, part)
+        if any(os.path.lexists(os.path.join(folder, name)) for name in _BOOKKEEPING):
+            return folder
+    return None
+
+
+def foreign_run_message(folder: str) -> str:
+    return (f"its output folder {folder} holds another run's lock or resume journal (another batch writes "
+            "there); left alone, not rendered: choose another OUTDIR or move that folder")
 
 
 @dataclass
@@ -112,8 +143,12 @@ class _Collector:
             plan.skipped.append(_fail(path, rel, f"its output name collides with that of {self.seen_outputs[key]}; "
                                                  "rename one of them"))
             return
+        foreign = foreign_run_folder(outdir, output)
+        if foreign is not None:
+            plan.skipped.append(_fail(path, rel, foreign_run_message(foreign)))
+            return
         self.seen_inputs[real], self.seen_outputs[key] = path, path
-        plan.jobs.append(Job(path, rel, output, recipe))
+        plan.jobs.append(Job(path, rel, output, recipe, outdir))
 
 
 def _check_folder(arg: str, outdir: str | None, out_real: str | None) -> None:

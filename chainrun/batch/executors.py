@@ -36,7 +36,8 @@ from ..interrupt import (allow_rendering, ctrl_c_stops_rendering, rendering_stop
 from ..render import MAX_BLOCK, MIN_BLOCK, Policy, render_file
 from ..results import DELIVERED, FAILED, INTERRUPTED, FileResult
 from ..text import first_line, reason as _reason
-from .discover import Job
+from .discover import Job, foreign_run_folder, foreign_run_message
+from .outdir import LOCK_NAME as _LOCK_NAME
 
 __all__ = ["Task", "Finished", "Executor", "InlineExecutor", "PoolExecutor", "render_task", "still_the_rendered_file"]
 
@@ -75,6 +76,14 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
     def fail(why: str) -> FileResult:
         return FileResult(job.input, job.relpath, FAILED, why, source=src)
 
+    if job.outdir:
+        # OUTDIR deleted (or replaced) during the run: never re-create it, nor its subfolders, without its lock.
+        if not os.path.isfile(os.path.join(job.outdir, _LOCK_NAME)):
+            return fail(f"the output folder {job.outdir} or its lock disappeared during the run; not re-created, "
+                        "nothing was delivered")
+        foreign = foreign_run_folder(job.outdir, job.output)     # another run started there meanwhile
+        if foreign is not None:
+            return fail(foreign_run_message(foreign))
     try:
         os.makedirs(folder, exist_ok=True)
     except OSError as exc:
