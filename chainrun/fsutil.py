@@ -3,17 +3,26 @@
 Every file chainrun delivers (audio, reports, pictures) is written to a temporary name
 ``.<name>.chainrun-part-<random>`` in its destination folder, flushed and fsynced, and only
 then renamed over its final name, so a final name never holds an incomplete file. The leftover
-clean-up of an interrupted run knows that one pattern (:data:`TEMP_TAG`).
+clean-up of an interrupted run knows that one pattern, exactly (:func:`is_temp_name`).
 """
 from __future__ import annotations
 
 import os
+import re
 import secrets
 
-__all__ = ["TEMP_TAG", "temp_path_for", "fsync_path", "remove_quietly", "atomic_write_text"]
+__all__ = ["TEMP_TAG", "is_temp_name", "temp_path_for", "fsync_path", "remove_quietly", "atomic_write_text"]
 
 TEMP_TAG = ".chainrun-part-"              # temporary outputs: .<name>.chainrun-part-<random>
+# The exact shape of a name temp_path_for makes: a dot, the (perhaps shortened) final name, the tag,
+# 8 lower-case hex digits, and the scale policy's scratch suffix. Nothing else is a temporary file.
+_TEMP_NAME = re.compile(r"\..+" + re.escape(TEMP_TAG) + r"[0-9a-f]{8}(?:\.f64)?", re.DOTALL)
 _NAME_MAX = 255          # bytes in one file name on the usual file systems, when the folder cannot say
+
+
+def is_temp_name(name: str) -> bool:
+    """True for a file name of exactly the shape :func:`temp_path_for` gives (``.NAME.chainrun-part-1a2b3c4d``)."""
+    return _TEMP_NAME.fullmatch(name) is not None
 
 
 def temp_path_for(final: str, suffix: str = "") -> str:
@@ -21,7 +30,7 @@ def temp_path_for(final: str, suffix: str = "") -> str:
 
     The temporary name is 24 bytes longer than the final one (plus ``suffix``), so a name near the
     folder's limit (PC_NAME_MAX) is shortened here; the final name is kept. Leftovers are found by
-    the leading dot and TEMP_TAG alone, so a shortened name is cleaned up like any other.
+    their exact shape (:func:`is_temp_name`), so a shortened name is cleaned up like any other.
     """
     d, name = os.path.split(final)
     tail = os.fsencode(f"{TEMP_TAG}{secrets.token_hex(4)}{suffix}")

@@ -240,3 +240,46 @@ def test_an_outdir_deleted_mid_run_is_not_recreated(tmp_path, run_cli, monkeypat
     said = [ln for ln in err.splitlines() if ln.startswith(str(tmp_path / "season" / "b" / "second.wav"))]
     assert len(said) == 1 and "disappeared during the run; not re-created" in said[0], err
     assert not (out / "b").exists()
+
+
+# --- D: every file under an input root is accounted for -------------------------------------------
+
+def test_hidden_recordings_are_delivered_or_listed_never_dropped(tmp_path, run_cli):
+    (tmp_path / "r.yaml").write_text(RECIPE)
+    root = tmp_path / "marsh"
+    delivered = [".take.wav", ".hidden/heron.wav", "dawn.chainrun-part-notes.wav", "..slack.wav"]
+    write_season(root, {rel: 6_000 for rel in delivered})
+    write_season(root, {"tide.wav": 6_000})
+    (root / "._tide.wav").write_bytes(b"\0\5\26\7" + bytes(60))           # AppleDouble metadata
+    leftover = ".tide.wav.chainrun-part-0123abcd"                          # exactly a temporary's name
+    (root / leftover).write_bytes((root / "tide.wav").read_bytes())
+    status, _, err = run_cli("run", tmp_path / "r.yaml", root, "-o", tmp_path / "out", "--workers", "1")
+    assert status == 0, err
+    report = json.loads((tmp_path / "out" / "chainrun-report.json").read_text())
+    by_rel = {f["relpath"]: f for f in report["files"]}
+    for rel in [*delivered, "tide.wav"]:
+        assert by_rel[rel]["status"] == "ok", (rel, by_rel.get(rel))
+        assert sf.info(str(tmp_path / "out" / rel)).frames == 6_000      # and the clean-up left it alone
+    assert by_rel["._tide.wav"]["status"] == "skipped"
+    assert by_rel[leftover]["status"] == "skipped" and "temporary file" in by_rel[leftover]["message"]
+    assert len(by_rel) == len(delivered) + 3                               # every file, once
+
+
+def test_explicitly_named_odd_names(tmp_path, run_cli):
+    (tmp_path / "r.yaml").write_text(RECIPE)
+    write_season(tmp_path / "in", {"..take.wav": 6_000, ".keep.chainrun-part-final.wav": 6_000})
+    exact = tmp_path / "in" / ".dawn.wav.chainrun-part-89abcdef"
+    exact.write_bytes((tmp_path / "in" / "..take.wav").read_bytes())        # found by its RIFF magic
+    status, _, err = run_cli("run", tmp_path / "r.yaml", tmp_path / "in" / "..take.wav",
+                             tmp_path / "in" / ".keep.chainrun-part-final.wav", exact,
+                             "-o", tmp_path / "out", "--workers", "1")
+    assert status == 1, err
+    said = [ln for ln in err.splitlines() if ln.startswith(str(exact))]
+    assert len(said) == 1 and "exact shape of chainrun's temporary files" in said[0], err
+    assert sf.info(str(tmp_path / "out" / "..take.wav")).frames == 6_000
+    assert sf.info(str(tmp_path / "out" / ".keep.chainrun-part-final.wav")).frames == 6_000
+    assert not (tmp_path / "out" / exact.name).exists()
+    # a second run (resume, clean-up of leftovers) keeps both delivered outputs
+    run_cli("run", tmp_path / "r.yaml", tmp_path / "in" / "..take.wav",
+            tmp_path / "in" / ".keep.chainrun-part-final.wav", "-o", tmp_path / "out", "--workers", "1")
+    assert (tmp_path / "out" / ".keep.chainrun-part-final.wav").exists()

@@ -17,7 +17,7 @@ import stat
 from dataclasses import dataclass, field
 
 from ..errors import BatchError
-from ..fsutil import TEMP_TAG
+from ..fsutil import is_temp_name
 from ..results import FAILED, MAC_METADATA, NOT_AUDIO, SKIPPED, FileResult
 from ..text import reason as _reason
 from .outdir import JOURNAL_NAME, LOCK_NAME
@@ -134,7 +134,8 @@ class _Collector:
             plan.jobs.append(Job(path, rel, "", recipe))
             return
         output = os.path.normpath(os.path.join(outdir, rel))
-        if not _inside(os.path.dirname(output), out_real) or os.path.isabs(rel) or rel.startswith(".."):
+        if not _inside(os.path.dirname(output), out_real) or os.path.isabs(rel) \
+                or os.pardir in os.path.normpath(rel).split(os.sep):
             plan.skipped.append(_fail(path, rel, "its output name would leave OUTDIR (through a link in the "
                                                  "output folder); not rendered"))
             return
@@ -142,6 +143,11 @@ class _Collector:
         if key in self.seen_outputs:
             plan.skipped.append(_fail(path, rel, f"its output name collides with that of {self.seen_outputs[key]}; "
                                                  "rename one of them"))
+            return
+        if is_temp_name(os.path.basename(output)):
+            plan.skipped.append(_fail(path, rel, "its name has the exact shape of chainrun's temporary files "
+                                                 "(.NAME.chainrun-part-XXXXXXXX), which the clean-up removes; "
+                                                 "rename it to render it"))
             return
         foreign = foreign_run_folder(outdir, output)
         if foreign is not None:
@@ -221,6 +227,8 @@ def discover(inputs: list[str], outdir: str | None) -> Plan:
     return plan
 
 
+TEMP_LEFTOVER = ("a temporary file of an unfinished chainrun write (.NAME.chainrun-part-XXXXXXXX), "
+                 "not a recording; not rendered")
 NO_ROW = "no row of the plan matches it; not rendered"
 
 
@@ -357,13 +365,13 @@ def _walk(top: str, add, plan: Plan, out_real: str | None = None, prefix: str = 
                                                          "(symbolic link loop); not followed"))
                     continue
                 visited.add(key)
-                if not e.name.startswith("."):
-                    subfolders.append(path)
+                subfolders.append(path)         # hidden folders too: every file under a root is accounted for
                 continue
             if e.name.startswith("._"):
                 plan.skipped.append(_skip(path, rel, MAC_METADATA))
                 continue
-            if e.name.startswith(".") or TEMP_TAG in e.name:
+            if is_temp_name(e.name):
+                plan.skipped.append(_skip(path, rel, TEMP_LEFTOVER))
                 continue
             try:
                 mode = os.stat(path).st_mode

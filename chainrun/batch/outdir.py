@@ -25,7 +25,7 @@ import time
 from dataclasses import dataclass
 
 from ..errors import BatchError
-from ..fsutil import TEMP_TAG
+from ..fsutil import is_temp_name
 
 __all__ = ["LockedError", "ForeignFileError", "OutdirLock", "check_journal", "clean_leftovers", "fingerprint",
            "Journal", "LOCK_NAME", "JOURNAL_NAME", "claim_outdir"]
@@ -257,7 +257,7 @@ def clean_leftovers(outdir: str) -> list[str]:
     for root, dirs, files in os.walk(outdir):
         dirs[:] = [d for d in dirs if not os.path.lexists(os.path.join(root, d, LOCK_NAME))]
         for name in files:
-            if name.startswith(".") and TEMP_TAG in name:
+            if is_temp_name(name):     # the exact shape only: discovery never delivers to such a name
                 path = os.path.join(root, name)
                 try:
                     os.unlink(path)
