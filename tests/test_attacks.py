@@ -283,3 +283,48 @@ def test_explicitly_named_odd_names(tmp_path, run_cli):
     run_cli("run", tmp_path / "r.yaml", tmp_path / "in" / "..take.wav",
             tmp_path / "in" / ".keep.chainrun-part-final.wav", "-o", tmp_path / "out", "--workers", "1")
     assert (tmp_path / "out" / ".keep.chainrun-part-final.wav").exists()
+
+
+# --- E: resource limits end with one clear line and an exit --------------------------------------
+
+def _limited_run(tmp_path, which, value, workers):
+    import resource
+
+    write_season(tmp_path / "in", {f"marsh/take{i}.wav": 20_000 for i in range(4)})
+    (tmp_path / "r.yaml").write_text(RECIPE)
+
+    def limit():
+        resource.setrlimit(which, (value, value))
+
+    env = {k: v for k, v in os.environ.items() if k not in ("PYTHONWARNINGS", "OPENBLAS_NUM_THREADS")}
+    try:
+        return subprocess.run([sys.executable, "-m", "chainrun", "run", str(tmp_path / "r.yaml"),
+                               str(tmp_path / "in"), "-o", str(tmp_path / "out"), "--workers", str(workers)],
+                              capture_output=True, text=True, timeout=120, preexec_fn=limit, env=env)
+    except subprocess.TimeoutExpired as exc:
+        raise AssertionError(f"hung under the limit: {exc.stderr!r}") from None
+
+
+@pytest.mark.parametrize("nofile", [10, 14])
+def test_too_few_file_descriptors_for_the_pool(tmp_path, nofile):
+    import resource
+
+    proc = _limited_run(tmp_path, resource.RLIMIT_NOFILE, nofile, 2)
+    assert proc.returncode in (0, 1), proc.stderr
+    assert "Traceback" not in proc.stderr and "internal error" not in proc.stderr, proc.stderr
+    assert "could not be started (too many open files)" in proc.stderr, proc.stderr
+    for ln in proc.stderr.splitlines():      # every line is chainrun's own, one per file or about the run
+        assert ln.startswith(("chainrun: ", str(tmp_path))), proc.stderr
+    assert not (tmp_path / "out" / LOCK_NAME).exists() and temporaries(tmp_path / "out") == []
+
+
+@pytest.mark.parametrize("mib", [200, 250, 300])
+def test_a_memory_limit_too_small_is_one_line(tmp_path, mib):
+    import resource
+
+    proc = _limited_run(tmp_path, resource.RLIMIT_AS, mib << 20, 2)
+    assert proc.returncode == 2, proc.stderr
+    assert proc.stderr.splitlines() == [f"chainrun: error: the memory limit (ulimit -v, {mib} MiB of address space) "
+                                        "is too small for chainrun to start; raise it (500 MiB is ample for one "
+                                        "worker)"], proc.stderr
+    assert not (tmp_path / "out").exists()

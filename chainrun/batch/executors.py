@@ -134,6 +134,9 @@ def render_task(task: Task) -> FileResult:
     job, src = task.job, task.src
     try:
         return _render_job(*task)
+    except OSError as exc:          # e.g. no file descriptor left (ulimit -n)
+        return FileResult(job.input, job.relpath, FAILED, f"cannot be rendered: {_reason(exc)}; nothing was "
+                          "delivered", source=src)
     except Exception as exc:
         return FileResult(job.input, job.relpath, FAILED, f"unexpected fault: {type(exc).__name__}: "
                           f"{first_line(exc)}; nothing was delivered", source=src)
@@ -199,6 +202,35 @@ def _stop_workers(pool: ProcessPoolExecutor) -> None:
             pass
 
 
+def _abandon(pool: ProcessPoolExecutor) -> None:
+    """Drop a pool that failed to start: its workers are killed (a half-started pool would keep them,
+    and the interpreter would wait for them at exit for ever)."""
+    procs = list((getattr(pool, "_processes", None) or {}).values())
+    for proc in procs:
+        try:
+            proc.kill()
+        except (OSError, AttributeError, ValueError):
+            pass
+    for proc in procs:
+        try:
+            proc.join(5)
+        except (OSError, AttributeError, ValueError, AssertionError):
+            pass
+    try:
+        pool.shutdown(wait=False, cancel_futures=True)
+    except Exception:
+        pass
+    for name in ("_call_queue", "_result_queue"):       # give their descriptors back
+        try:
+            getattr(pool, name).close()
+        except Exception:
+            pass
+    try:
+        pool._executor_manager_thread_wakeup.close()
+    except Exception:
+        pass
+
+
 class PoolExecutor:
     """One file per worker process, ``workers`` at a time, each file rendering in one thread.
 
@@ -213,6 +245,12 @@ class PoolExecutor:
     def __init__(self, workers: int):
         self.workers = workers
         self.notes: list[str] = []
+
+    def _inline(self, exc: OSError, rest: list[Task], finished: Finished) -> bool:
+        """The worker processes cannot be started: render what is left here, one file after the other."""
+        self.notes.append(f"the worker processes could not be started ({_reason(exc)}); "
+                          "the files were rendered one after the other in this process")
+        return InlineExecutor(1).run(rest, finished)
 
     def run(self, tasks: Sequence[Task], finished: Finished) -> bool:
         # The workers are forked: what the parent has imported they share. The guard has
@@ -238,8 +276,13 @@ class PoolExecutor:
         try:
             while waiting or again or pending:
                 if pool is None:
-                    pool = ProcessPoolExecutor(max_workers=size, initializer=_worker_init,
-                                               initargs=(os.getpid(),), mp_context=_POOL_CONTEXT)
+                    try:
+                        pool = ProcessPoolExecutor(max_workers=size, initializer=_worker_init,
+                                                   initargs=(os.getpid(),), mp_context=_POOL_CONTEXT)
+                    except OSError as exc:      # no descriptors even for its queues
+                        if pending:
+                            raise
+                        return self._inline(exc, [*again, *waiting], finished)
                 while not broken and (source := next_to_submit()) is not None:   # Ctrl-C here stops them too
                     task = source[0]
                     try:
@@ -247,6 +290,13 @@ class PoolExecutor:
                     except (BrokenProcessPool, RuntimeError):   # broken while submitting (3.11 may say
                         broken = True                           # "cannot schedule new futures")
                         break
+                    except OSError as exc:      # the workers cannot be started (no descriptors, no memory)
+                        if pending:
+                            broken = True
+                            break
+                        _abandon(pool)
+                        pool = None
+                        return self._inline(exc, [*again, *waiting], finished)
                     pending[fut] = (task, source is again)
                     source.pop(0)
                 if pending:
