@@ -328,3 +328,31 @@ def test_a_memory_limit_too_small_is_one_line(tmp_path, mib):
                                         "is too small for chainrun to start; raise it (500 MiB is ample for one "
                                         "worker)"], proc.stderr
     assert not (tmp_path / "out").exists()
+
+
+# --- F: an output folder swapped for a link mid-run -----------------------------------------------
+
+def test_an_output_folder_swapped_for_a_link_mid_run_writes_nothing_outside(tmp_path, run_cli, monkeypatch):
+    import chainrun.batch.executors as executors
+
+    (tmp_path / "r.yaml").write_text(RECIPE)
+    write_season(tmp_path / "in", {"a/first.wav": 24_000, "sub/tide.wav": 12_000})
+    outside = tmp_path / "catalogue"
+    outside.mkdir()
+    out = tmp_path / "out"
+    real = executors.render_file
+
+    def swap_then_render(src, dst, *a, **k):
+        if src.path.endswith("tide.wav"):        # its folder is open now: swap it for a link to outside
+            os.rename(out / "sub", out / "sub.moved")
+            os.symlink(outside, out / "sub")
+        return real(src, dst, *a, **k)
+
+    monkeypatch.setattr(executors, "render_file", swap_then_render)
+    status, _, err = run_cli("run", tmp_path / "r.yaml", tmp_path / "in", "-o", out, "--workers", "1")
+    assert status == 1, err
+    said = [ln for ln in err.splitlines() if ln.startswith(str(tmp_path / "in" / "sub" / "tide.wav"))]
+    assert len(said) == 1 and "was moved or replaced" in said[0], err
+    assert os.listdir(outside) == []                                   # nothing written outside OUTDIR
+    assert os.listdir(out / "sub.moved") == []                         # and the output was removed
+    assert sf.info(str(out / "a" / "first.wav")).frames == 24_000

@@ -20,6 +20,7 @@ task to a worker running :func:`_render_in_worker`, and passes Ctrl-C on to its 
 """
 from __future__ import annotations
 
+import errno
 import importlib
 import multiprocessing
 import os
@@ -84,10 +85,30 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
         foreign = foreign_run_folder(job.outdir, job.output)     # another run started there meanwhile
         if foreign is not None:
             return fail(foreign_run_message(foreign))
+    if job.outdir and _HELD_FOLDERS:
+        # The output folder is opened from OUTDIR down (created where missing), never through a link, and the
+        # file is written and renamed through that open folder (/proc/self/fd/N/NAME): a folder swapped for a
+        # link mid-run cannot send the output outside OUTDIR.
+        try:
+            fd = _open_below(job.outdir, folder)
+        except OSError as exc:
+            if exc.errno in (errno.ELOOP, errno.ENOTDIR):
+                return fail(f"its output folder {folder} is a link or not a folder (it was replaced during the "
+                            "run?); nothing is written through it, nothing was delivered")
+            return fail(f"cannot create its output folder {folder}: {_reason(exc)}")
+        try:
+            return _checked_render(job, src, sos, bound, policy, fail, fd)
+        finally:
+            os.close(fd)
     try:
         os.makedirs(folder, exist_ok=True)
     except OSError as exc:
         return fail(f"cannot create its output folder {folder}: {_reason(exc)}")
+    return _checked_render(job, src, sos, bound, policy, fail, None)
+
+
+def _checked_render(job: Job, src: Source, sos, bound: float, policy: Policy, fail, fd: int | None) -> FileResult:
+    folder = os.path.dirname(job.output) or "."
     if os.path.isdir(job.output) and not os.path.islink(job.output):
         return fail(f"a folder already has its output name ({job.output}); move that folder away")
     if not os.access(folder, os.W_OK | os.X_OK, effective_ids=os.access in os.supports_effective_ids):
@@ -101,8 +122,65 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
     # fewer frames per block, so memory stays bounded (the block size never changes the output).
     if src.channels * policy.block_size > MAX_BLOCK:
         policy = replace(policy, block_size=max(MIN_BLOCK, MAX_BLOCK // src.channels))
-    return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
-                       relpath=job.relpath)
+    if fd is None:
+        return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
+                           relpath=job.relpath)
+    name = os.path.basename(job.output)
+    held = f"/proc/self/fd/{fd}"
+    r = render_file(src, os.path.join(held, name), sos, bound, policy,
+                    seed_key=job.relpath.replace(os.sep, "/"), relpath=job.relpath)
+    if r.output and r.output.startswith(held + os.sep):
+        r.output = job.output
+    if r.message and held in r.message:
+        r.message = r.message.replace(os.path.join(held, name), job.output).replace(held, folder)
+    if r.status in DELIVERED and not _still_at(job.outdir, folder, fd):
+        # moved or replaced meanwhile: what was written went into the folder opened, never through a link
+        try:
+            os.unlink(name, dir_fd=fd)
+        except OSError:
+            pass
+        r.status = FAILED
+        r.message = (f"its output folder {folder} was moved or replaced (by a link?) while it was rendered; "
+                     "its output was removed, nothing was delivered")
+    return r
+
+
+_HELD_FOLDERS = sys.platform.startswith("linux") and os.path.isdir("/proc/self/fd")
+_DIR_FLAGS = os.O_RDONLY | getattr(os, "O_DIRECTORY", 0) | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_CLOEXEC", 0)
+
+
+def _open_below(outdir: str, folder: str, create: bool = True) -> int:
+    """Open ``folder`` (inside ``outdir``) one name at a time from OUTDIR, creating what is missing, never
+    following a link (a link is ELOOP or ENOTDIR); returns the open folder's descriptor."""
+    fd = os.open(outdir, _DIR_FLAGS & ~getattr(os, "O_NOFOLLOW", 0))
+    try:
+        rel = os.path.relpath(os.path.normpath(folder), os.path.normpath(outdir))
+        for part in ([] if rel == "." else rel.split(os.sep)):
+            if create:
+                try:
+                    os.mkdir(part, dir_fd=fd)
+                except FileExistsError:
+                    pass
+            nfd = os.open(part, _DIR_FLAGS, dir_fd=fd)
+            os.close(fd)
+            fd = nfd
+    except BaseException:
+        os.close(fd)
+        raise
+    return fd
+
+
+def _still_at(outdir: str, folder: str, fd: int) -> bool:
+    """True if the folder open as ``fd`` is still the one reached from OUTDIR without a link."""
+    try:
+        again = _open_below(outdir, folder, create=False)
+    except OSError:
+        return False
+    try:
+        a, b = os.fstat(again), os.fstat(fd)
+        return (a.st_dev, a.st_ino) == (b.st_dev, b.st_ino)
+    finally:
+        os.close(again)
 
 
 def still_the_rendered_file(task: Task, r: FileResult) -> FileResult:
