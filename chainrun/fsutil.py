@@ -10,8 +10,10 @@ from __future__ import annotations
 import os
 import re
 import secrets
+import sys
 
-__all__ = ["TEMP_TAG", "is_temp_name", "temp_path_for", "fsync_path", "remove_quietly", "atomic_write_text"]
+__all__ = ["TEMP_TAG", "is_temp_name", "temp_path_for", "fsync_path", "remove_quietly", "atomic_write_text",
+           "HELD_FOLDERS", "open_below", "still_at"]
 
 TEMP_TAG = ".chainrun-part-"              # temporary outputs: .<name>.chainrun-part-<random>
 # The exact shape of a name temp_path_for makes: a dot, the (perhaps shortened) final name, the tag,
@@ -72,3 +74,42 @@ def atomic_write_text(path: str, text: str) -> None:
         os.replace(tmp, path)
     finally:
         remove_quietly(tmp)
+
+
+# Output folders held open (Linux): a file written as /proc/self/fd/N/NAME lands in the folder open as N.
+HELD_FOLDERS = sys.platform.startswith("linux") and os.path.isdir("/proc/self/fd")
+_DIR_FLAGS = os.O_RDONLY | getattr(os, "O_DIRECTORY", 0) | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_CLOEXEC", 0)
+
+
+def open_below(outdir: str, folder: str, create: bool = True) -> int:
+    """Open ``folder`` (inside ``outdir``) one name at a time from OUTDIR, creating what is missing, never
+    following a link (a link is ELOOP or ENOTDIR); returns the open folder's descriptor."""
+    fd = os.open(outdir, _DIR_FLAGS & ~getattr(os, "O_NOFOLLOW", 0))
+    try:
+        rel = os.path.relpath(os.path.normpath(folder), os.path.normpath(outdir))
+        for part in ([] if rel == "." else rel.split(os.sep)):
+            if create:
+                try:
+                    os.mkdir(part, dir_fd=fd)
+                except FileExistsError:
+                    pass
+            nfd = os.open(part, _DIR_FLAGS, dir_fd=fd)
+            os.close(fd)
+            fd = nfd
+    except BaseException:
+        os.close(fd)
+        raise
+    return fd
+
+
+def still_at(outdir: str, folder: str, fd: int) -> bool:
+    """True if the folder open as ``fd`` is still the one reached from OUTDIR without a link."""
+    try:
+        again = open_below(outdir, folder, create=False)
+    except OSError:
+        return False
+    try:
+        a, b = os.fstat(again), os.fstat(fd)
+        return (a.st_dev, a.st_ino) == (b.st_dev, b.st_ino)
+    finally:
+        os.close(again)

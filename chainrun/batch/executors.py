@@ -36,6 +36,7 @@ from ..interrupt import (allow_rendering, ctrl_c_stops_rendering, rendering_stop
                          worker_rendering, worker_signals)
 from ..render import MAX_BLOCK, MIN_BLOCK, Policy, render_file
 from ..results import DELIVERED, FAILED, INTERRUPTED, FileResult
+from ..fsutil import HELD_FOLDERS as _HELD_FOLDERS, open_below as _open_below, still_at as _still_at
 from ..text import first_line, reason as _reason
 from .discover import Job, foreign_run_folder, foreign_run_message
 from .outdir import LOCK_NAME as _LOCK_NAME
@@ -143,44 +144,6 @@ def _checked_render(job: Job, src: Source, sos, bound: float, policy: Policy, fa
         r.message = (f"its output folder {folder} was moved or replaced (by a link?) while it was rendered; "
                      "its output was removed, nothing was delivered")
     return r
-
-
-_HELD_FOLDERS = sys.platform.startswith("linux") and os.path.isdir("/proc/self/fd")
-_DIR_FLAGS = os.O_RDONLY | getattr(os, "O_DIRECTORY", 0) | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_CLOEXEC", 0)
-
-
-def _open_below(outdir: str, folder: str, create: bool = True) -> int:
-    """Open ``folder`` (inside ``outdir``) one name at a time from OUTDIR, creating what is missing, never
-    following a link (a link is ELOOP or ENOTDIR); returns the open folder's descriptor."""
-    fd = os.open(outdir, _DIR_FLAGS & ~getattr(os, "O_NOFOLLOW", 0))
-    try:
-        rel = os.path.relpath(os.path.normpath(folder), os.path.normpath(outdir))
-        for part in ([] if rel == "." else rel.split(os.sep)):
-            if create:
-                try:
-                    os.mkdir(part, dir_fd=fd)
-                except FileExistsError:
-                    pass
-            nfd = os.open(part, _DIR_FLAGS, dir_fd=fd)
-            os.close(fd)
-            fd = nfd
-    except BaseException:
-        os.close(fd)
-        raise
-    return fd
-
-
-def _still_at(outdir: str, folder: str, fd: int) -> bool:
-    """True if the folder open as ``fd`` is still the one reached from OUTDIR without a link."""
-    try:
-        again = _open_below(outdir, folder, create=False)
-    except OSError:
-        return False
-    try:
-        a, b = os.fstat(again), os.fstat(fd)
-        return (a.st_dev, a.st_ino) == (b.st_dev, b.st_ino)
-    finally:
-        os.close(again)
 
 
 def still_the_rendered_file(task: Task, r: FileResult) -> FileResult:
