@@ -3,17 +3,28 @@
 Every file chainrun delivers (audio, reports, pictures) is written to a temporary name
 ``.<name>.chainrun-part-<random>`` in its destination folder, flushed and fsynced, and only
 then renamed over its final name, so a final name never holds an incomplete file. The leftover
-clean-up of an interrupted run knows that one pattern (:data:`TEMP_TAG`).
+clean-up of an interrupted run knows that one pattern, exactly (:func:`is_temp_name`).
 """
 from __future__ import annotations
 
 import os
+import re
 import secrets
+import sys
 
-__all__ = ["TEMP_TAG", "temp_path_for", "fsync_path", "remove_quietly", "atomic_write_text"]
+__all__ = ["TEMP_TAG", "is_temp_name", "temp_path_for", "fsync_path", "remove_quietly", "atomic_write_text",
+           "HELD_FOLDERS", "open_below", "still_at"]
 
 TEMP_TAG = ".chainrun-part-"              # temporary outputs: .<name>.chainrun-part-<random>
+# The exact shape of a name temp_path_for makes: a dot, the (perhaps shortened) final name, the tag,
+# 8 lower-case hex digits, and the scale policy's scratch suffix. Nothing else is a temporary file.
+_TEMP_NAME = re.compile(r"\..+" + re.escape(TEMP_TAG) + r"[0-9a-f]{8}(?:\.f64)?", re.DOTALL)
 _NAME_MAX = 255          # bytes in one file name on the usual file systems, when the folder cannot say
+
+
+def is_temp_name(name: str) -> bool:
+    """True for a file name of exactly the shape :func:`temp_path_for` gives (``.NAME.chainrun-part-1a2b3c4d``)."""
+    return _TEMP_NAME.fullmatch(name) is not None
 
 
 def temp_path_for(final: str, suffix: str = "") -> str:
@@ -21,7 +32,7 @@ def temp_path_for(final: str, suffix: str = "") -> str:
 
     The temporary name is 24 bytes longer than the final one (plus ``suffix``), so a name near the
     folder's limit (PC_NAME_MAX) is shortened here; the final name is kept. Leftovers are found by
-    the leading dot and TEMP_TAG alone, so a shortened name is cleaned up like any other.
+    their exact shape (:func:`is_temp_name`), so a shortened name is cleaned up like any other.
     """
     d, name = os.path.split(final)
     tail = os.fsencode(f"{TEMP_TAG}{secrets.token_hex(4)}{suffix}")
@@ -63,3 +74,42 @@ def atomic_write_text(path: str, text: str) -> None:
         os.replace(tmp, path)
     finally:
         remove_quietly(tmp)
+
+
+# Output folders held open (Linux): a file written as /proc/self/fd/N/NAME lands in the folder open as N.
+HELD_FOLDERS = sys.platform.startswith("linux") and os.path.isdir("/proc/self/fd")
+_DIR_FLAGS = os.O_RDONLY | getattr(os, "O_DIRECTORY", 0) | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_CLOEXEC", 0)
+
+
+def open_below(outdir: str, folder: str, create: bool = True) -> int:
+    """Open ``folder`` (inside ``outdir``) one name at a time from OUTDIR, creating what is missing, never
+    following a link (a link is ELOOP or ENOTDIR); returns the open folder's descriptor."""
+    fd = os.open(outdir, _DIR_FLAGS & ~getattr(os, "O_NOFOLLOW", 0))
+    try:
+        rel = os.path.relpath(os.path.normpath(folder), os.path.normpath(outdir))
+        for part in ([] if rel == "." else rel.split(os.sep)):
+            if create:
+                try:
+                    os.mkdir(part, dir_fd=fd)
+                except FileExistsError:
+                    pass
+            nfd = os.open(part, _DIR_FLAGS, dir_fd=fd)
+            os.close(fd)
+            fd = nfd
+    except BaseException:
+        os.close(fd)
+        raise
+    return fd
+
+
+def still_at(outdir: str, folder: str, fd: int) -> bool:
+    """True if the folder open as ``fd`` is still the one reached from OUTDIR without a link."""
+    try:
+        again = open_below(outdir, folder, create=False)
+    except OSError:
+        return False
+    try:
+        a, b = os.fstat(again), os.fstat(fd)
+        return (a.st_dev, a.st_ino) == (b.st_dev, b.st_ino)
+    finally:
+        os.close(again)

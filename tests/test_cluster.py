@@ -384,6 +384,7 @@ def test_two_attempts_of_one_file_never_corrupt_it_and_a_finished_run_renders_no
     task = Task(job, src, design.chain.sos, design.assessment.peak_gain, slow)
     with scheduler.client() as c:
         os.makedirs(out, exist_ok=True)
+        (out / ".chainrun.lock").write_text("")     # as claim_outdir leaves it: outputs go only into a locked OUTDIR
         name = f"chainrun-stop-test-{os.getpid()}-{time.monotonic_ns()}"
         a = c.submit(_render_on_worker, task, name, pure=False)
         b = c.submit(_render_on_worker, task, name, pure=False)

@@ -566,7 +566,8 @@ def test_run_and_scan_as_real_processes(tmp_path, write_recipe, write_audio):
     metered = sorted(os.path.basename(f["input"]) for f in doc["files"] if f["status"] == "ok")
     assert metered == ["take0.wav", "take1.wav", "take2.wav"]
     skipped = sorted(os.path.basename(f["input"]) for f in doc["files"] if f["status"] == "skipped")
-    assert skipped == ["chainrun-report.csv", "chainrun-report.html", "chainrun-report.json"]   # not audio
+    # not audio; hidden files are listed too (the resume journal)
+    assert skipped == [".chainrun-journal.jsonl", "chainrun-report.csv", "chainrun-report.html", "chainrun-report.json"]
     proc = subprocess.run([sys.executable, "-m", "chainrun", "run", str(tmp_path / "nope.yaml"),
                            str(tmp_path / "in"), "-o", str(tmp_path / "o2")], capture_output=True, text=True,
                           env=env, timeout=300)

@@ -43,7 +43,8 @@ def probe(path: str) -> Source:
     if info.channels <= 0 or info.samplerate <= 0:
         raise AudioError("declares no channels or no sample rate; the header is damaged")
     return Source(path, int(info.samplerate), int(info.channels), frames, info.format, info.subtype,
-                  st.st_size, st.st_mtime_ns, meta.channel_mask if meta else None, meta)
+                  st.st_size, st.st_mtime_ns, meta.channel_mask if meta else None, meta,
+                  inode=st.st_ino, ctime_ns=st.st_ctime_ns)
 
 
 def _streamed_frames(meta, frames: int) -> int:

@@ -21,6 +21,10 @@ class Source:
     channel_mask: int | None = None     # WAVE_FORMAT_EXTENSIBLE speaker mask, if the header has one
     # The metadata layout read at probe time (a chainrun.audio.metadata.carry.SourceMeta), or None.
     meta: object | None = field(default=None, compare=False, repr=False)
+    # Which file this is, as probed: a file put in its place (same size and mtime) has another inode,
+    # and its change time moves with any write or utime. 0 when unknown (a Source built by hand).
+    inode: int = 0
+    ctime_ns: int = 0
 
     @property
     def duration_s(self) -> float:

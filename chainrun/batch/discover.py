@@ -17,9 +17,10 @@ import stat
 from dataclasses import dataclass, field
 
 from ..errors import BatchError
-from ..fsutil import TEMP_TAG
+from ..fsutil import is_temp_name
 from ..results import FAILED, MAC_METADATA, NOT_AUDIO, SKIPPED, FileResult
 from ..text import reason as _reason
+from .outdir import JOURNAL_NAME, LOCK_NAME
 
 __all__ = ["Job", "Plan", "discover", "discover_plan", "root_names", "AUDIO_EXTENSIONS"]
 
@@ -40,6 +41,36 @@ class Job:
     relpath: str
     output: str
     recipe: int = 0          # which of the batch's recipes renders it (a plan's row order; 0 otherwise)
+    outdir: str = ""         # the batch's OUTDIR ("" when unknown): its subfolders are checked before writing
+
+
+# chainrun's bookkeeping names in an output folder
+_BOOKKEEPING = (LOCK_NAME, JOURNAL_NAME)
+
+
+def foreign_run_folder(outdir: str, output: str) -> str | None:
+    """The first folder below OUTDIR on the way to ``output`` that holds another run's lock or journal.
+
+    Another batch writes (or wrote) there, with its own resume journal: writing into it would
+    silently overwrite that run's outputs. OUTDIR itself is this run's and not checked.
+    """
+    if not outdir:
+        return None
+    top = os.path.normpath(outdir)
+    rel = os.path.relpath(os.path.dirname(os.path.normpath(output)), top)
+    if rel == "." or rel.startswith(".."):
+        return None
+    folder = top
+    for part in rel.split(os.sep):
+        folder = os.path.join(folder, part)
+        if any(os.path.lexists(os.path.join(folder, name)) for name in _BOOKKEEPING):
+            return folder
+    return None
+
+
+def foreign_run_message(folder: str) -> str:
+    return (f"its output folder {folder} holds another run's lock or resume journal (another batch writes "
+            "there); left alone, not rendered: choose another OUTDIR or move that folder")
 
 
 @dataclass
@@ -103,7 +134,8 @@ class _Collector:
             plan.jobs.append(Job(path, rel, "", recipe))
             return
         output = os.path.normpath(os.path.join(outdir, rel))
-        if not _inside(os.path.dirname(output), out_real) or os.path.isabs(rel) or rel.startswith(".."):
+        if not _inside(os.path.dirname(output), out_real) or os.path.isabs(rel) \
+                or os.pardir in os.path.normpath(rel).split(os.sep):
             plan.skipped.append(_fail(path, rel, "its output name would leave OUTDIR (through a link in the "
                                                  "output folder); not rendered"))
             return
@@ -112,8 +144,17 @@ class _Collector:
             plan.skipped.append(_fail(path, rel, f"its output name collides with that of {self.seen_outputs[key]}; "
                                                  "rename one of them"))
             return
+        if is_temp_name(os.path.basename(output)):
+            plan.skipped.append(_fail(path, rel, "its name has the exact shape of chainrun's temporary files "
+                                                 "(.NAME.chainrun-part-XXXXXXXX), which the clean-up removes; "
+                                                 "rename it to render it"))
+            return
+        foreign = foreign_run_folder(outdir, output)
+        if foreign is not None:
+            plan.skipped.append(_fail(path, rel, foreign_run_message(foreign)))
+            return
         self.seen_inputs[real], self.seen_outputs[key] = path, path
-        plan.jobs.append(Job(path, rel, output, recipe))
+        plan.jobs.append(Job(path, rel, output, recipe, outdir))
 
 
 def _check_folder(arg: str, outdir: str | None, out_real: str | None) -> None:
@@ -186,6 +227,8 @@ def discover(inputs: list[str], outdir: str | None) -> Plan:
     return plan
 
 
+TEMP_LEFTOVER = ("a temporary file of an unfinished chainrun write (.NAME.chainrun-part-XXXXXXXX), "
+                 "not a recording; not rendered")
 NO_ROW = "no row of the plan matches it; not rendered"
 
 
@@ -322,13 +365,13 @@ def _walk(top: str, add, plan: Plan, out_real: str | None = None, prefix: str = 
                                                          "(symbolic link loop); not followed"))
                     continue
                 visited.add(key)
-                if not e.name.startswith("."):
-                    subfolders.append(path)
+                subfolders.append(path)         # hidden folders too: every file under a root is accounted for
                 continue
             if e.name.startswith("._"):
                 plan.skipped.append(_skip(path, rel, MAC_METADATA))
                 continue
-            if e.name.startswith(".") or TEMP_TAG in e.name:
+            if is_temp_name(e.name):
+                plan.skipped.append(_skip(path, rel, TEMP_LEFTOVER))
                 continue
             try:
                 mode = os.stat(path).st_mode

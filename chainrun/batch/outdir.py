@@ -25,7 +25,7 @@ import time
 from dataclasses import dataclass
 
 from ..errors import BatchError
-from ..fsutil import TEMP_TAG
+from ..fsutil import is_temp_name
 
 __all__ = ["LockedError", "ForeignFileError", "OutdirLock", "check_journal", "clean_leftovers", "fingerprint",
            "Journal", "LOCK_NAME", "JOURNAL_NAME", "claim_outdir"]
@@ -257,7 +257,7 @@ def clean_leftovers(outdir: str) -> list[str]:
     for root, dirs, files in os.walk(outdir):
         dirs[:] = [d for d in dirs if not os.path.lexists(os.path.join(root, d, LOCK_NAME))]
         for name in files:
-            if name.startswith(".") and TEMP_TAG in name:
+            if is_temp_name(name):     # the exact shape only: discovery never delivers to such a name
                 path = os.path.join(root, name)
                 try:
                     os.unlink(path)
@@ -268,15 +268,20 @@ def clean_leftovers(outdir: str) -> list[str]:
 
 
 def fingerprint(path: str) -> dict:
-    """Size, modification time and a hash of the first and last 64 KiB of a file."""
-    st = os.stat(path)
+    """Size, modification time, inode, change time and a hash of the first and last 64 KiB of a file.
+
+    The inode tells a file put in place of another (same size and modification time) apart; the change
+    time moves with every write and with a modification time set back.
+    """
     h = hashlib.sha256()
     with open(path, "rb") as fh:
+        st = os.fstat(fh.fileno())          # the file that is hashed, not whatever the name holds later
         h.update(fh.read(_SAMPLE))
         if st.st_size > 2 * _SAMPLE:
             fh.seek(st.st_size - _SAMPLE)
             h.update(fh.read(_SAMPLE))
-    return {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "sample_sha256": h.hexdigest()}
+    return {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "inode": st.st_ino, "ctime_ns": st.st_ctime_ns,
+            "sample_sha256": h.hexdigest()}
 
 
 @dataclass

@@ -15,7 +15,9 @@ import traceback
 from ..version import __version__
 from ..app import cores
 from ..errors import BatchError
-from ..interrupt import from_ctrl_c as _from_ctrl_c
+import signal
+
+from ..interrupt import from_ctrl_c as _from_ctrl_c, stop_signals_like_ctrl_c, stopped_by
 from ..recipe import RecipeError
 from .common import EXIT_NOT_OK, EXIT_USAGE, UsageError, _err, _positive, _rate
 
@@ -112,6 +114,67 @@ def main(argv: list[str] | None = None) -> int:
     except SystemExit as exc:      # usage error (2) or --help/--version (0)
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     args.argv = list(argv) if argv is not None else sys.argv[1:]
+    short = _memory_limit_problem()
+    if short:
+        _err(short)
+        return EXIT_USAGE
+    with stop_signals_like_ctrl_c():        # SIGTERM, SIGHUP, SIGQUIT: stopped as by Ctrl-C
+        status = _command(args)
+        signum = stopped_by()
+    if signum is None:
+        return status
+    # Stopped by a signal other than Ctrl-C: say which, and exit as the shell reports a death by it.
+    _err(f"chainrun: stopped by {signal.Signals(signum).name}, as by Ctrl-C; exit status {128 + signum}")
+    return 128 + signum
+
+
+_HEADROOM_MIB = 200
+
+
+def _memory_limit_problem() -> str | None:
+    """Under an address-space limit (``ulimit -v``): a line saying that it is too small, else None.
+
+    OpenBLAS starts one thread per core when scipy is first imported, each with its own buffers and
+    malloc arena; under a limit of a few hundred MB its start-up retries its allocations for ever. So
+    under a limit BLAS is kept to one thread (before scipy is imported), and what every command needs
+    (scipy.signal, a design, a block of samples) is tried once here: a limit too small for it is one
+    line and exit 2 before anything is touched, not a hang, a traceback, or a valid recipe rejected.
+    """
+    try:
+        import resource
+
+        limit = resource.getrlimit(resource.RLIMIT_AS)[0]
+    except (ImportError, OSError, ValueError):
+        return None
+    if limit == resource.RLIM_INFINITY:
+        return None
+    for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(name, "1")
+    message = (f"chainrun: error: the memory limit (ulimit -v, {limit >> 20} MiB of address space) is too small "
+               "for chainrun to start; raise it (500 MiB is ample for one worker)")
+    # OpenBLAS retries a failed allocation for ever while scipy's libraries are loaded, so that cannot
+    # be tried: scipy.signal and one design take about 150 MiB more address space (measured with one
+    # BLAS thread); with a block in flight, 200 MiB beyond what this process holds now.
+    try:
+        with open("/proc/self/status") as fh:
+            held = next(int(ln.split()[1]) << 10 for ln in fh if ln.startswith("VmSize:"))
+    except (OSError, StopIteration, ValueError, IndexError):
+        held = 0
+    if held and limit < held + (_HEADROOM_MIB << 20):
+        return message
+    try:
+        import numpy as np
+        from scipy import signal as _signal
+
+        sos = _signal.butter(4, 0.01, output="sos")
+        _signal.sosfilt(sos, np.zeros((2, 65536)), axis=-1)
+        _signal.sosfreqz(sos, worN=8192)
+    except (MemoryError, ImportError, OSError):     # a library that cannot be mapped: "failed to map segment"
+        return message
+    return None
+
+
+def _command(args) -> int:
     try:
         return importlib.import_module(f"{__name__}.{args.command}").main(args)
     except (UsageError, BatchError, RecipeError) as exc:

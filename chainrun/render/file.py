@@ -235,3 +235,6 @@ def _check_unchanged(src: Source) -> None:
     if st.st_size != src.size or st.st_mtime_ns != src.mtime_ns:
         raise AudioError("changed while being read (size or modification time differs); "
                          "nothing was delivered, run again once it is stable")
+    if src.inode and (st.st_ino != src.inode or st.st_ctime_ns != src.ctime_ns):
+        raise AudioError("changed while being read (another file was put in its place, or it was rewritten "
+                         "with its size and modification time kept); nothing was delivered, run again once it is stable")
