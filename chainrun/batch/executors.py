@@ -52,6 +52,7 @@ class Task(NamedTuple):
     sos: object              # the chain's second-order sections (numpy array, one row per biquad)
     bound: float             # the guard's worst-case peak gain
     policy: Policy
+    group: object = None     # a linked loudness group (chainrun.render.loudness.Group), or None
 
 
 Finished = Callable[[Job, FileResult], None]
@@ -68,7 +69,7 @@ class Executor(Protocol):
         ...
 
 
-def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
+def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy, group=None) -> FileResult:
     folder = os.path.dirname(job.output) or "."
 
     def fail(why: str) -> FileResult:
@@ -92,7 +93,7 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
     if src.channels * policy.block_size > MAX_BLOCK:
         policy = replace(policy, block_size=max(MIN_BLOCK, MAX_BLOCK // src.channels))
     return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
-                       relpath=job.relpath)
+                       relpath=job.relpath, group=group)
 
 
 def render_task(task: Task) -> FileResult:
@@ -142,12 +143,12 @@ def _worker_init(parent: int | None = None) -> None:
         signal.signal(signal.SIGINT, on_sigint)
 
 
-def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
+def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy, group=None) -> FileResult:
     interrupted = FileResult(job.input, job.relpath, FAILED, INTERRUPTED, source=src)
     if rendering_stopped():
         return interrupted
     try:
-        return _render_job(job, src, sos, bound, policy)     # execute gave it one thread: one core
+        return _render_job(job, src, sos, bound, policy, group)     # execute gave it one thread: one core
     except KeyboardInterrupt:
         return interrupted
 
