@@ -2,7 +2,7 @@
 
 A recipe (``format: 1``) names an ordered chain of filter sections, an optional
 ``include:`` whose chain comes first, the ``guard:`` limits and the ``output:``
-format. Along an include chain the strictest guard limit any file writes applies
+format (``metadata``: keep or drop), and an optional ``loudness:`` target (:mod:`.loudness`). Along an include chain the strictest guard limit any file writes applies
 (a file that writes a looser one gets a located warning), and an ``output:`` key
 written differently by an included file and its parent is an error.
 
@@ -23,7 +23,8 @@ import yaml
 from ..errors import Location, RecipeError
 from ..section_types import MAX_ABS_GAIN_DB, MAX_BW_OCTAVES, MAX_ORDER, MIN_FREQ_HZ, SECTION_TYPES, SECTIONS
 from .channels import one_kind_of_channels, read_channels
-from .model import _GUARD_KEYS, Guard, Loudness, Output, Recipe, Section
+from .loudness import build_loudness, merge_loudness, read_loudness
+from .model import _GUARD_KEYS, Guard, Output, Recipe, Section
 from .yaml import (MAX_FILE_BYTES, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer, _mapping,
                    _Node, _number, _read_text, _text)
 
@@ -37,8 +38,6 @@ ON_OVER = ("reject", "clip", "scale")
 OUTPUT_SUBTYPES = ("same", "PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE")
 DITHER = ("auto", "tpdf", "none")
 METADATA = ("keep", "drop")
-LOUDNESS_LINKS = ("file", "folder", "batch")
-MIN_TARGET_LUFS, MAX_TARGET_LUFS = -70.0, 0.0    # BS.1770-4's absolute gate is -70 LUFS
 
 
 # --------------------------------------------------------------------------- sections
@@ -153,51 +152,6 @@ def _output(node: _Node | None) -> _Layer:
     return values
 
 
-def _loudness(node: _Node | None) -> _Layer:
-    """The loudness keys a file writes, validated (``target_lufs``, ``link``)."""
-    if node is None:
-        return {}
-    entries = _mapping(node, "loudness")
-    _check_keys(entries, ("target_lufs", "link"), "loudness")
-    values = {}
-    if "target_lufs" in entries:
-        vnode = entries["target_lufs"][1]
-        values["target_lufs"] = (_number(vnode, "loudness.target_lufs", lo=MIN_TARGET_LUFS, hi=MAX_TARGET_LUFS,
-                                         unit="LUFS"), vnode.where)
-    if "link" in entries:
-        vnode = entries["link"][1]
-        values["link"] = (_text(vnode, "loudness.link", LOUDNESS_LINKS), vnode.where)
-    return values
-
-
-def _merge_loudness(base: _Layer, own: _Layer) -> _Layer:
-    """As :func:`_merge_output`: a loudness key written differently by an include and its parent is an error."""
-    out = dict(base)
-    for key, (value, where) in own.items():
-        if key in out and out[key][0] != value:
-            said = _fmt if isinstance(value, float) else str
-            raise RecipeError.at(where, f"loudness.{key} {said(value)} conflicts with {said(out[key][0])} set in "
-                                        f"{out[key][1]}; an included recipe and its parent must agree: "
-                                        "write the same value or leave it out of one file")
-        out.setdefault(key, (value, where))
-    return out
-
-
-def _build_loudness(layer: _Layer, where: Location) -> Loudness | None:
-    """The resolved :class:`Loudness`, or None when no file writes a loudness block.
-
-    A block that some file writes without any file giving ``target_lufs`` is an error at ``where``
-    (the block's, or its ``link``'s, location).
-    """
-    if not layer:
-        return None
-    if "target_lufs" not in layer:
-        at = layer["link"][1] if "link" in layer else where
-        raise RecipeError.at(at, "the loudness block has no 'target_lufs'; give a target such as "
-                                 f"'target_lufs: -23' ({_fmt(MIN_TARGET_LUFS)} to {_fmt(MAX_TARGET_LUFS)} LUFS)")
-    return _build(Loudness, layer)
-
-
 def _merge_guard(base: _Layer, own: _Layer, warnings: list[str] | None) -> _Layer:
     """``own`` over ``base``, keeping the stricter value of each key (on a tie, ``base``'s).
 
@@ -292,7 +246,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
             warnings.extend(inc.warnings)
             inc_guard = _merge_guard(inc_guard, inc.guard, None)
             inc_output = _merge_output(inc_output, inc.output)
-            inc_loudness = _merge_loudness(inc_loudness, inc.loudness)
+            inc_loudness = merge_loudness(inc_loudness, inc.loudness)
             if len(sections) > MAX_SECTIONS:
                 raise RecipeError.at(item.where, f"the chain has more than {MAX_SECTIONS} sections "
                                                  f"(includes counted); split the recipe")
@@ -315,7 +269,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
     # The strictest limit of the include chain applies: a file cannot loosen a limit it includes.
     guard = _merge_guard(inc_guard, _guard(entries["guard"][1] if "guard" in entries else None), warnings)
     output = _merge_output(inc_output, _output(entries["output"][1] if "output" in entries else None))
-    loudness = _merge_loudness(inc_loudness, _loudness(entries["loudness"][1] if "loudness" in entries else None))
+    loudness = merge_loudness(inc_loudness, read_loudness(entries["loudness"][1] if "loudness" in entries else None))
     return _Loaded(entries, sections, included, guard, output, list(dict.fromkeys(warnings)), loudness)
 
 
@@ -329,7 +283,7 @@ def _recipe(path: str, text: str | None = None) -> Recipe:
         _text(entries["notes"][1], "notes")
     block = entries["loudness"][1].where if "loudness" in entries else Location(path, 1, 1)
     return Recipe(path, name, tuple(top.sections), _build(Guard, top.guard), _build(Output, top.output),
-                  tuple(top.included), tuple(top.warnings), loudness=_build_loudness(top.loudness, block))
+                  tuple(top.included), tuple(top.warnings), loudness=build_loudness(top.loudness, block))
 
 
 def load(path: str | os.PathLike) -> Recipe:
