@@ -1,9 +1,10 @@
 """Recipe files: YAML in, a validated, sample-rate-free :class:`Recipe` out.
 
 A recipe (``format: 1``) names an ordered chain of filter sections, an optional
-``include:`` whose chain comes first, the ``guard:`` limits and the ``output:``
-format (``metadata``: keep or drop), and an optional ``loudness:`` target (:mod:`.loudness`). Along an include chain the strictest guard limit any file writes applies
-(a file that writes a looser one gets a located warning), and an ``output:`` key
+``include:`` whose chain comes first, the ``guard:`` limits, the ``output:`` format
+(and ``metadata``: keep or drop) and an optional ``loudness:`` target (:mod:`.loudness`).
+Along an include chain the strictest guard limit any file writes applies (a file that
+writes a looser one gets a located warning), and an ``output:`` or ``loudness:`` key
 written differently by an included file and its parent is an error.
 
 :func:`load` reads a file, :func:`loads` a recipe given as text and :func:`from_dict`
