@@ -202,7 +202,7 @@ def refuse_recipe_inputs(inputs: list[str]) -> None:
 def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers: int | None = None,
         block_size: int | None = None, on_over: str | None = None, report: str | None = None,
         true_peak: bool = True, redo: bool = False, progress=None, command: list[str] | None = None,
-        plan=None, cluster: str | None = None) -> RunOutcome:
+        plan=None, cluster: str | None = None, loudness: bool = True) -> RunOutcome:
     """Filter ``inputs`` (files and folders) into ``outdir`` with ``recipe``, and write the reports.
 
     Parameters
@@ -213,11 +213,12 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
         A batch plan (:class:`chainrun.recipe.plan.BatchPlan`, or the path of a plan file) instead of
         ``recipe`` and ``inputs`` (which must then be None and empty): each file is rendered by the
         recipe of the first row matching it, each recipe with its own guard and output policy
-        (``block_size``, ``on_over`` and ``true_peak`` apply to all of them).
+        (``block_size``, ``on_over``, ``true_peak`` and ``loudness`` apply to all of them).
     workers
         Cores to keep busy (default: all this process may use, at most 64).
-    block_size, on_over, true_peak
-        As ``chainrun run``'s ``--block-size``, ``--on-over`` and ``--no-true-peak``.
+    block_size, on_over, true_peak, loudness
+        As ``chainrun run``'s ``--block-size``, ``--on-over``, ``--no-true-peak`` and ``--no-loudness``
+        (without loudness metering, a recipe's loudness target still meters the outputs it needs).
     report
         The JSON report's path (default ``OUTDIR/chainrun-report.json``); CSV and HTML go beside it.
     redo
@@ -265,7 +266,8 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
         if dask_missing():
             raise BatchError(dask_missing())
     recipes = [recipe] if plan is None else list(plan.recipes)
-    policies = [Policy.from_recipe(r, on_over=on_over, block_size=block_size, true_peak=true_peak) for r in recipes]
+    policies = [Policy.from_recipe(r, on_over=on_over, block_size=block_size, true_peak=true_peak, loudness=loudness)
+                for r in recipes]
     with claimed(recipe, inputs, outdir, policies[0], plan=plan, policies=policies) as (prep, notes), \
             contextlib.ExitStack() as stack:
         if executor is not None:
@@ -327,12 +329,13 @@ def render(recipe: Recipe | str, input: str, output: str, *, on_over: str | None
 
 # --------------------------------------------------------------------------- scan
 
-def scan(inputs: list[str], true_peak: bool = True) -> list[FileResult]:
+def scan(inputs: list[str], true_peak: bool = True, loudness: bool = True) -> list[FileResult]:
     """Meter existing files (found as a batch finds them) and summarise their metadata; writes nothing.
 
     Each readable file's ``extra["metadata"]`` holds
     :func:`~chainrun.audio.metadata.metadata_summary` (description, time reference, iXML scene
-    and take, the chunk list, notes on malformed metadata).
+    and take, the chunk list, notes on malformed metadata). ``true_peak`` and ``loudness``: as
+    ``chainrun scan``'s ``--no-true-peak`` and ``--no-loudness``.
 
     Raises
     ------
@@ -346,7 +349,7 @@ def scan(inputs: list[str], true_peak: bool = True) -> list[FileResult]:
         if isinstance(src, FileResult):
             results.append(src)
             continue
-        r = scan_file(src, true_peak=true_peak, relpath=job.relpath)
+        r = scan_file(src, true_peak=true_peak, relpath=job.relpath, loudness=loudness)
         r.extra["metadata"] = metadata_summary(src)
         results.append(r)
     results.extend(plan.skipped)

@@ -136,7 +136,10 @@ def test_broadcast_wav_take_keeps_every_chunk_in_order(tmp_path):
     src_bext = bext_payload()
     # EBU Tech 3285: description .. time reference (0..346) and UMID (348..412) kept byte for byte
     assert raw_bext[:346] == src_bext[:346] and raw_bext[348:412] == src_bext[348:412]
-    assert struct.unpack_from("<5h", raw_bext, 412) == (0x7FFF,) * 5        # EBU Tech 3285 v2: not known
+    # EBU Tech 3285 v2: int16 of round(100 x value), 0x7FFF not known. The take is 0.1 s, shorter than one
+    # 400 ms block (ITU-R BS.1770-4), so only the output's max true peak is known; it is the report's.
+    tp = max(c["true_peak_dbtp"] for c in doc["files"][0]["output_meters"]["channels"])
+    assert struct.unpack_from("<5h", raw_bext, 412) == (0x7FFF, 0x7FFF, round(100 * tp), 0x7FFF, 0x7FFF)
     items = {(i["chunk"], i["action"]) for i in doc["files"][0]["metadata"]["items"]}
     assert {("bext", "rewritten"), ("iXML", "carried"), ("zbhr", "carried"), ("data", "rewritten")} <= items
     y, _ = sf.read(out)

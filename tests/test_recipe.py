@@ -194,6 +194,26 @@ MALFORMED = [
      "name must be text; found a list"),
     ("newline in key", {"r.yaml": 'format: 1\nchain:\n  - {type: gain, gain_db: 1, "x\\ny": 2}\n'}, "r.yaml",
      "r.yaml", 3, '"x', "unknown key 'x\\ny' in chain[0] (gain)"),
+    ("output metadata", {"r.yaml": "format: 1\nchain:\n" + GAIN + "output: {metadata: strip}\n"}, "r.yaml",
+     "r.yaml", 4, "strip", "output.metadata 'strip' is not known; allowed: keep, drop"),
+    # ITU-R BS.1770-4: the absolute gate is -70 LUFS, so a target below it cannot be measured
+    ("loudness target low", {"r.yaml": "format: 1\nchain:\n" + GAIN + "loudness: {target_lufs: -75}\n"},
+     "r.yaml", "r.yaml", 4, "-75", "loudness.target_lufs -75 LUFS is out of range; it must be at least -70 LUFS"),
+    ("loudness target high", {"r.yaml": "format: 1\nchain:\n" + GAIN + "loudness:\n  target_lufs: 3\n"},
+     "r.yaml", "r.yaml", 5, "3", "loudness.target_lufs 3 LUFS is out of range; it must be at most 0 LUFS"),
+    ("loudness target text", {"r.yaml": "format: 1\nchain:\n" + GAIN + "loudness: {target_lufs: loud}\n"},
+     "r.yaml", "r.yaml", 4, "loud}", "loudness.target_lufs must be a number; found text 'loud'"),
+    ("loudness link", {"r.yaml": "format: 1\nchain:\n" + GAIN + "loudness: {target_lufs: -23, link: album}\n"},
+     "r.yaml", "r.yaml", 4, "album", "loudness.link 'album' is not known; allowed: file, folder, batch"),
+    ("loudness no target", {"r.yaml": "format: 1\nchain:\n" + GAIN + "loudness: {link: folder}\n"},
+     "r.yaml", "r.yaml", 4, "folder", "the loudness block has no 'target_lufs'"),
+    ("loudness unknown key", {"r.yaml": "format: 1\nchain:\n" + GAIN + "loudness: {target: -23}\n"},
+     "r.yaml", "r.yaml", 4, "target", "unknown key 'target' in loudness (did you mean 'target_lufs'?)"),
+    ("loudness not mapping", {"r.yaml": "format: 1\nchain:\n" + GAIN + "loudness: -23\n"},
+     "r.yaml", "r.yaml", 4, "-23", "loudness must be a mapping"),
+    ("loudness include conflict", {"house.yaml": "format: 1\nchain:\n" + GAIN + "loudness: {target_lufs: -16}\n",
+                                   "r.yaml": "format: 1\ninclude: house.yaml\nloudness: {target_lufs: -23}\n"},
+     "r.yaml", "r.yaml", 3, "-23", "loudness.target_lufs -23 conflicts with -16 set in "),
 ]
 
 

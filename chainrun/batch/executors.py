@@ -56,6 +56,7 @@ class Task(NamedTuple):
     sos: object              # the chain's second-order sections (numpy array, one row per biquad)
     bound: float             # the guard's worst-case peak gain
     policy: Policy
+    group: object = None     # a linked loudness group (chainrun.render.loudness.Group), or None
 
 
 Finished = Callable[[Job, FileResult], None]
@@ -72,7 +73,7 @@ class Executor(Protocol):
         ...
 
 
-def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
+def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy, group=None) -> FileResult:
     folder = os.path.dirname(job.output) or "."
 
     def fail(why: str) -> FileResult:
@@ -98,17 +99,18 @@ def _render_job(job: Job, src: Source, sos, bound: float, policy: Policy) -> Fil
                             "run?); nothing is written through it, nothing was delivered")
             return fail(f"cannot create its output folder {folder}: {_reason(exc)}")
         try:
-            return _checked_render(job, src, sos, bound, policy, fail, fd)
+            return _checked_render(job, src, sos, bound, policy, fail, fd, group)
         finally:
             os.close(fd)
     try:
         os.makedirs(folder, exist_ok=True)
     except OSError as exc:
         return fail(f"cannot create its output folder {folder}: {_reason(exc)}")
-    return _checked_render(job, src, sos, bound, policy, fail, None)
+    return _checked_render(job, src, sos, bound, policy, fail, None, group)
 
 
-def _checked_render(job: Job, src: Source, sos, bound: float, policy: Policy, fail, fd: int | None) -> FileResult:
+def _checked_render(job: Job, src: Source, sos, bound: float, policy: Policy, fail, fd: int | None,
+                    group=None) -> FileResult:
     folder = os.path.dirname(job.output) or "."
     if os.path.isdir(job.output) and not os.path.islink(job.output):
         return fail(f"a folder already has its output name ({job.output}); move that folder away")
@@ -125,11 +127,11 @@ def _checked_render(job: Job, src: Source, sos, bound: float, policy: Policy, fa
         policy = replace(policy, block_size=max(MIN_BLOCK, MAX_BLOCK // src.channels))
     if fd is None:
         return render_file(src, job.output, sos, bound, policy, seed_key=job.relpath.replace(os.sep, "/"),
-                           relpath=job.relpath)
+                           relpath=job.relpath, group=group)
     name = os.path.basename(job.output)
     held = f"/proc/self/fd/{fd}"
     r = render_file(src, os.path.join(held, name), sos, bound, policy,
-                    seed_key=job.relpath.replace(os.sep, "/"), relpath=job.relpath)
+                    seed_key=job.relpath.replace(os.sep, "/"), relpath=job.relpath, group=group)
     if r.output and r.output.startswith(held + os.sep):
         r.output = job.output
     if r.message and held in r.message:
@@ -219,13 +221,13 @@ def _worker_init(parent: int | None = None) -> None:
     worker_signals()        # Ctrl-C, SIGTERM, SIGHUP, SIGQUIT: stop the file at its next block
 
 
-def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy) -> FileResult:
+def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy, group=None) -> FileResult:
     interrupted = FileResult(job.input, job.relpath, FAILED, INTERRUPTED, source=src)
     if rendering_stopped():
         return interrupted
     try:
         with worker_rendering():
-            return _render_job(job, src, sos, bound, policy)     # execute gave it one thread: one core
+            return _render_job(job, src, sos, bound, policy, group)     # execute gave it one thread: one core
     except KeyboardInterrupt:
         return interrupted
 

@@ -22,6 +22,7 @@ from ..results import DELIVERED, FAILED, INTERRUPTED, OK, REJECTED, SKIPPED, Fil
 from ..text import reason as _reason
 from .discover import Job
 from .executors import Executor, InlineExecutor, PoolExecutor, Task
+from .groups import link_groups
 from .outdir import Journal, claim_outdir, clean_leftovers
 from .plan import Prepared, RateDesign, prepare, prepare_plan
 
@@ -139,10 +140,14 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
 
     # Longest files first, so the pool does not end waiting on one long file.
     todo.sort(key=lambda js: -js[1].frames * js[1].channels)
+    # A loudness target linked over a folder or the batch: measure each group whole first (see .groups).
+    groups, group_notes = link_groups(prep, todo, policies)
+    notes.extend(group_notes)
     tasks = []
     for job, src in todo:
         d = prep.design_for(job, src.rate)
-        tasks.append(Task(job, src, d.chain.filters, d.assessment.peak_gain, policies[job.recipe]))
+        tasks.append(Task(job, src, d.chain.filters, d.assessment.peak_gain, policies[job.recipe],
+                          groups.get(job.input)))
     interrupted = executor.run(tasks, finished)
     notes.extend(executor.notes)
     if journal_failed:

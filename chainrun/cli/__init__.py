@@ -49,6 +49,8 @@ def _run_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-true-peak", action="store_true",
                    help="skip true-peak metering (faster); outputs are still metered against a recipe's "
                         "true_peak_ceiling_dbtp")
+    p.add_argument("--no-loudness", action="store_true",
+                   help="skip loudness metering (faster); a recipe's loudness target still measures what it needs")
     p.add_argument("--redo", action="store_true",
                    help="render every file again, even those an earlier run already delivered unchanged")
     p.add_argument("--cluster", metavar="ADDRESS",
@@ -61,6 +63,7 @@ def _scan_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("inputs", nargs="+", metavar="INPUT", help="audio files or folders (searched recursively)")
     p.add_argument("--json", action="store_true", help="print results as JSON on stdout")
     p.add_argument("--no-true-peak", action="store_true", help="skip true-peak metering (faster)")
+    p.add_argument("--no-loudness", action="store_true", help="skip loudness metering (faster)")
 
 
 def _plot_arguments(p: argparse.ArgumentParser) -> None:
@@ -77,7 +80,7 @@ COMMANDS = {
             "Filter audio files with a recipe, block by block, into OUTDIR (the input tree mirrored); "
             "write JSON, CSV and HTML reports.", _run_arguments),
     "scan": ("meter existing files; writes nothing",
-             "Sample peak, true peak, RMS, DC offset and clipping of existing files.", _scan_arguments),
+             "Sample peak, true peak, RMS, DC offset, clipping and loudness of existing files.", _scan_arguments),
     "plot": ("draw the chain's response to a PNG or SVG file",
              "Magnitude and phase of the whole chain at one sample rate, each section drawn faintly beneath, "
              "with the guard's figures.", _plot_arguments),

@@ -74,6 +74,7 @@ def main(args: argparse.Namespace) -> int:
         _err(line)
     outcome = run(recipe, args.inputs, args.outdir, plan=plan, workers=args.workers, block_size=args.block_size,
                   on_over=args.on_over, report=args.report, true_peak=not args.no_true_peak, redo=args.redo,
+                  loudness=not args.no_loudness,
                   progress=_Progress(sys.stderr.isatty()), command=["chainrun"] + args.argv,
                   cluster=args.cluster)
     result = outcome.result

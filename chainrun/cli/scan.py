@@ -8,6 +8,7 @@ import sys
 from ..version import __version__
 from ..app import scan
 from ..report.document import file_dict, loudest
+from ..report.table import loudness_text
 from ..results import CLIPPED, FAILED, STATUSES
 from ..text import fmt_db, shown
 from .common import EXIT_NOT_OK, EXIT_OK, _err
@@ -37,23 +38,24 @@ def _metadata_line(meta: dict | None) -> str:
 
 
 def main(args: argparse.Namespace) -> int:
-    results = scan(args.inputs, true_peak=not args.no_true_peak)
+    results = scan(args.inputs, true_peak=not args.no_true_peak, loudness=not args.no_loudness)
     if args.json:
         json.dump({"version": __version__, "files": [file_dict(r) for r in results]}, sys.stdout, indent=2,
                   allow_nan=False)
         print()
     else:
-        print(f"{'status':<8} {'peak':>11} {'true peak':>11} {'RMS':>11} {'clipped':>8}  file")
+        print(f"{'status':<8} {'peak':>11} {'true peak':>11} {'RMS':>11} {'clipped':>8} {'loudness':>11}  file")
         for r in results:
             m = r.input_meters
             if m is None:
-                print(f"{r.status:<8} {'-':>11} {'-':>11} {'-':>11} {'-':>8}  {shown(r.relpath)}"
+                print(f"{r.status:<8} {'-':>11} {'-':>11} {'-':>11} {'-':>8} {'-':>11}  {shown(r.relpath)}"
                       + (f"  ({shown(r.message)})" if r.message else ""))
                 continue
             clipped = sum(c.clipped_samples for c in m.channels)
             print(f"{r.status:<8} {fmt_db(loudest(m, 'peak_dbfs'), 'dBFS'):>11} "
                   f"{fmt_db(loudest(m, 'true_peak_dbtp'), 'dBTP'):>11} "
-                  f"{fmt_db(loudest(m, 'rms_dbfs'), 'dBFS'):>11} {clipped:>8}  {shown(r.relpath)}")
+                  f"{fmt_db(loudest(m, 'rms_dbfs'), 'dBFS'):>11} {clipped:>8} "
+                  f"{loudness_text(m.to_dict()):>11}  {shown(r.relpath)}")
             line = _metadata_line(r.extra.get("metadata"))
             if line:
                 print(f"{'':<8} {line}")

@@ -1,9 +1,10 @@
 """Recipe files: YAML in, a validated, sample-rate-free :class:`Recipe` out.
 
 A recipe (``format: 1``) names an ordered chain of filter sections, an optional
-``include:`` whose chain comes first, the ``guard:`` limits and the ``output:``
-format. Along an include chain the strictest guard limit any file writes applies
-(a file that writes a looser one gets a located warning), and an ``output:`` key
+``include:`` whose chain comes first, the ``guard:`` limits, the ``output:`` format
+(and ``metadata``: keep or drop) and an optional ``loudness:`` target (:mod:`.loudness`).
+Along an include chain the strictest guard limit any file writes applies (a file that
+writes a looser one gets a located warning), and an ``output:`` or ``loudness:`` key
 written differently by an included file and its parent is an error.
 
 :func:`load` reads a file, :func:`loads` a recipe given as text and :func:`from_dict`
@@ -23,6 +24,7 @@ import yaml
 from ..errors import Location, RecipeError
 from ..section_types import MAX_ABS_GAIN_DB, MAX_BW_OCTAVES, MAX_ORDER, MIN_FREQ_HZ, SECTION_TYPES, SECTIONS
 from .channels import one_kind_of_channels, read_channels
+from .loudness import build_loudness, merge_loudness, read_loudness
 from .model import _GUARD_KEYS, Guard, Output, Recipe, Section
 from .yaml import (MAX_FILE_BYTES, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer, _mapping,
                    _Node, _number, _read_text, _text)
@@ -32,10 +34,11 @@ __all__ = ["load", "loads", "from_dict"]
 MAX_SECTIONS = 64                 # sections in the resolved chain, includes counted
 MAX_INCLUDE_DEPTH = 8             # include nesting
 
-_TOP_KEYS = ("format", "name", "notes", "include", "chain", "guard", "output")
+_TOP_KEYS = ("format", "name", "notes", "include", "chain", "guard", "output", "loudness")
 ON_OVER = ("reject", "clip", "scale")
 OUTPUT_SUBTYPES = ("same", "PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE")
 DITHER = ("auto", "tpdf", "none")
+METADATA = ("keep", "drop")
 
 
 # --------------------------------------------------------------------------- sections
@@ -141,9 +144,9 @@ def _output(node: _Node | None) -> _Layer:
     if node is None:
         return {}
     entries = _mapping(node, "output")
-    _check_keys(entries, ("subtype", "dither"), "output")
+    _check_keys(entries, ("subtype", "dither", "metadata"), "output")
     values = {}
-    for key, choices in (("subtype", OUTPUT_SUBTYPES), ("dither", DITHER)):
+    for key, choices in (("subtype", OUTPUT_SUBTYPES), ("dither", DITHER), ("metadata", METADATA)):
         if key in entries:
             vnode = entries[key][1]
             values[key] = (_text(vnode, f"output.{key}", choices), vnode.where)
@@ -195,6 +198,7 @@ class _Loaded(NamedTuple):
     guard: _Layer                 # the strictest guard value of each key written along the chain
     output: _Layer                # the output keys written along the chain
     warnings: list[str]           # located warnings, includes first
+    loudness: _Layer = {}         # the loudness keys written along the chain
 
 
 def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: str | None = None) -> _Loaded:
@@ -223,6 +227,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
     included: list[str] = []
     inc_guard: _Layer = {}
     inc_output: _Layer = {}
+    inc_loudness: _Layer = {}
     warnings: list[str] = []
     if "include" in entries:
         inode = entries["include"][1]
@@ -242,6 +247,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
             warnings.extend(inc.warnings)
             inc_guard = _merge_guard(inc_guard, inc.guard, None)
             inc_output = _merge_output(inc_output, inc.output)
+            inc_loudness = merge_loudness(inc_loudness, inc.loudness)
             if len(sections) > MAX_SECTIONS:
                 raise RecipeError.at(item.where, f"the chain has more than {MAX_SECTIONS} sections "
                                                  f"(includes counted); split the recipe")
@@ -264,7 +270,8 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
     # The strictest limit of the include chain applies: a file cannot loosen a limit it includes.
     guard = _merge_guard(inc_guard, _guard(entries["guard"][1] if "guard" in entries else None), warnings)
     output = _merge_output(inc_output, _output(entries["output"][1] if "output" in entries else None))
-    return _Loaded(entries, sections, included, guard, output, list(dict.fromkeys(warnings)))
+    loudness = merge_loudness(inc_loudness, read_loudness(entries["loudness"][1] if "loudness" in entries else None))
+    return _Loaded(entries, sections, included, guard, output, list(dict.fromkeys(warnings)), loudness)
 
 
 def _recipe(path: str, text: str | None = None) -> Recipe:
@@ -275,8 +282,9 @@ def _recipe(path: str, text: str | None = None) -> Recipe:
     name = _text(entries["name"][1], "name") if "name" in entries else os.path.splitext(os.path.basename(path))[0]
     if "notes" in entries:
         _text(entries["notes"][1], "notes")
+    block = entries["loudness"][1].where if "loudness" in entries else Location(path, 1, 1)
     return Recipe(path, name, tuple(top.sections), _build(Guard, top.guard), _build(Output, top.output),
-                  tuple(top.included), tuple(top.warnings))
+                  tuple(top.included), tuple(top.warnings), loudness=build_loudness(top.loudness, block))
 
 
 def load(path: str | os.PathLike) -> Recipe:

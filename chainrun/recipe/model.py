@@ -15,7 +15,7 @@ from typing import Any, Mapping
 from ..errors import Location
 from .yaml import _fmt
 
-__all__ = ["Section", "Guard", "Output", "Recipe"]
+__all__ = ["Section", "Guard", "Output", "Loudness", "Recipe"]
 
 _GUARD_KEYS = ("max_gain_db", "pole_margin", "max_decay_s", "ceiling_dbfs", "true_peak_ceiling_dbtp", "on_over")
 
@@ -91,19 +91,39 @@ class Guard:
 
 @dataclass(frozen=True)
 class Output:
-    """Output format: ``subtype`` (same or a libsndfile subtype) and ``dither``."""
+    """Output format: ``subtype`` (same or a libsndfile subtype), ``dither``, and ``metadata`` (keep or drop)."""
 
     subtype: str = "same"
     dither: str = "auto"
+    metadata: str = "keep"
     where: Mapping[str, Location] = field(default_factory=dict, compare=False)
 
     def to_dict(self) -> dict:
-        return {"subtype": self.subtype, "dither": self.dither}
+        out = {"subtype": self.subtype, "dither": self.dither}
+        if self.metadata != "keep":     # only then: a recipe that does not write it keeps its digest
+            out["metadata"] = self.metadata
+        return out
+
+
+@dataclass(frozen=True)
+class Loudness:
+    """The recipe's ``loudness:`` block: render to ``target_lufs`` with one gain, measured over ``link``.
+
+    ``link`` is ``file`` (each file its own gain), ``folder`` or ``batch`` (one gain for the
+    files of a folder, or of the whole batch, from their combined gated loudness).
+    """
+
+    target_lufs: float
+    link: str = "file"
+    where: Mapping[str, Location] = field(default_factory=dict, compare=False)
+
+    def to_dict(self) -> dict:
+        return {"target_lufs": self.target_lufs, "link": self.link}
 
 
 @dataclass(frozen=True)
 class Recipe:
-    """A loaded recipe: the resolved chain (includes first), guard and output.
+    """A loaded recipe: the resolved chain (includes first), guard, output and loudness target (or None).
 
     ``warnings`` are located one-line warnings (``path:line:col: warning: ...``) found
     while loading, e.g. a file that writes a looser guard limit than a file it includes.
@@ -116,6 +136,7 @@ class Recipe:
     output: Output
     includes: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
+    loudness: Loudness | None = None
 
     def to_dict(self) -> dict:
         """The recipe as resolved, as plain JSON-safe data (``guard_from``: where each guard value was set)."""
@@ -129,11 +150,11 @@ class Recipe:
             "guard_from": self.guard.sources(),
             "output": self.output.to_dict(),
             "warnings": list(self.warnings),
-        }
+        } | ({"loudness": self.loudness.to_dict()} if self.loudness is not None else {})
 
     @property
     def digest(self) -> str:
-        """SHA-256 of the resolved recipe (chain, guard values, output), location-free.
+        """SHA-256 of the resolved recipe (chain, guard values, output, loudness), location-free.
 
         Two recipes that filter audio identically share a digest even if they are
         laid out differently or include each other from other folders.
@@ -143,5 +164,7 @@ class Recipe:
             s.pop("from", None)
             s.pop("label", None)
         payload = {"chain": d["chain"], "guard": d["guard"], "output": d["output"]}
+        if "loudness" in d:             # only then: a recipe without a loudness block keeps its digest
+            payload["loudness"] = d["loudness"]
         return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()
 

@@ -31,7 +31,7 @@ from .filter import _Filter
 from .loudness import Group, Target
 from .policy import DEFAULT_BLOCK, ON_OVER, Policy
 
-__all__ = ["render_file", "scan_file"]
+__all__ = ["render_file", "scan_file", "bext_loudness"]
 
 
 @dataclass
@@ -117,8 +117,8 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
 
         at_ceiling = res.clipped_by_chainrun          # by the clip policy; the rest by the word length
         res.clipped_by_chainrun += quantise.clipped
-        try:    # bext v2 loudness: pass the output's measurements here once they are metered
-            meta.finish(run.tmp, loudness=None)
+        try:    # the output is closed: its meters are final, and its bext v2 loudness fields say them
+            meta.finish(run.tmp, loudness=bext_loudness(out_meter.result()))
         except MetaError as exc:
             raise AudioError(meta_failure(exc)) from None
         res.metadata = meta.listing()
@@ -162,6 +162,24 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
             _remove_quietly(run.scratch)
         blas.restore_original_limits()
         res.seconds = time.perf_counter() - t0
+
+
+def bext_loudness(reading) -> dict | None:
+    """The bext v2 loudness fields (EBU Tech 3285 v2) of an output's meter reading, or None.
+
+    None (every field unknown, 0x7FFF) when the output's loudness was not metered; a figure the
+    meters could not give (below the gate, too short, true peak not metered) is left out, so
+    that it is written unknown too.
+    """
+    loud = getattr(reading, "loudness", None)
+    if loud is None:
+        return None
+    tps = [c.true_peak_dbtp for c in reading.channels if c.true_peak_dbtp is not None]
+    values = {"loudness_value": loud.integrated_lufs, "loudness_range": loud.loudness_range_lu,
+              "max_true_peak_level": max(tps) if tps else None,
+              "max_momentary_loudness": loud.max_momentary_lufs,
+              "max_short_term_loudness": loud.max_short_term_lufs}
+    return {k: v for k, v in values.items() if v is not None}
 
 
 def _clipped_message(at_ceiling: int, out_peak: float, policy: Policy, by_codes: int, out_subtype: str,
