@@ -6,7 +6,7 @@ The public Python API is small, and gives the same results as the command line:
   from plain data);
 - :func:`design` it at a sample rate into a :class:`Chain`;
 - :func:`assess` the chain with the recipe's guard into an :class:`Assessment`;
-- :func:`render` one file, as ``chainrun run`` renders it;
+- :func:`filter_file`: one file, as ``chainrun run`` renders it;
 - :func:`check` recipe files at several rates (what ``chainrun check`` prints);
 - :func:`run` a recipe over files and folders into an output folder, with its reports
   (``chainrun run``; returns a ``RunOutcome`` holding the :class:`BatchResult`);
@@ -28,10 +28,10 @@ from .guard import Assessment, assess
 from .recipe import Recipe, RecipeError, from_dict, load, loads
 from .results import FileResult
 from .batch.run import BatchResult, run_batch
-from .app import check, plot, render, run, scan
+from .app import check, filter_file, plot, run, scan
 from .report.write import write_reports
 
-__all__ = ["__version__", "load", "loads", "from_dict", "design", "assess", "render", "check", "run", "scan", "plot",
-           "write_reports", "Recipe",
+__all__ = ["__version__", "load", "loads", "from_dict", "design", "assess", "filter_file", "check", "run",
+           "scan", "plot", "write_reports", "Recipe",
            "RecipeError", "Chain", "Assessment", "FileResult", "BatchResult",
            "run_batch"]     # run_batch: kept for callers of 0.1, see above

@@ -284,8 +284,8 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
     return RunOutcome(result, paths, errors)
 
 
-def render(recipe: Recipe | str, input: str, output: str, *, on_over: str | None = None,
-           block_size: int | None = None, true_peak: bool = True) -> FileResult:
+def filter_file(recipe: Recipe | str, input: str, output: str, *, on_over: str | None = None,
+                block_size: int | None = None, true_peak: bool = True) -> FileResult:
     """Filter one file into ``output`` (written atomically), as ``chainrun run`` would render it.
 
     The recipe is checked and designed at the file's own rate first; a file the recipe cannot be

@@ -26,7 +26,7 @@ def _outputs(folder: Path) -> dict[str, str]:
 
 
 def test_public_names_are_the_documented_handful():
-    assert set(chainrun.__all__) == {"__version__", "load", "loads", "from_dict", "design", "assess", "render",
+    assert set(chainrun.__all__) == {"__version__", "load", "loads", "from_dict", "design", "assess", "filter_file",
                                      "check", "run", "scan", "plot", "write_reports", "Recipe", "RecipeError",
                                      "Chain", "Assessment", "FileResult", "BatchResult", "run_batch"}
 
@@ -45,7 +45,7 @@ def test_render_one_file_equals_a_run_of_that_file(tmp_path, capsys):
     take = REPO / "samples" / "boathouse" / "host_stem.wav"
     assert main(["run", str(REPO / "recipes" / "boathouse-stems.yaml"), str(take), "-o", str(tmp_path / "cli")]) == 0
     capsys.readouterr()
-    r = chainrun.render(recipe, str(take), str(tmp_path / "host_stem.wav"))
+    r = chainrun.filter_file(recipe, str(take), str(tmp_path / "host_stem.wav"))
     assert r.status == "ok" and r.output == str(tmp_path / "host_stem.wav")
     assert _sha(tmp_path / "host_stem.wav") == _sha(tmp_path / "cli" / "host_stem.wav")
 
@@ -55,7 +55,7 @@ def test_render_refuses_a_rate_the_recipe_cannot_serve(tmp_path, write_audio):
 
     take = write_audio("in/low.wav", np.zeros((800, 1)), 8000, "PCM_16")
     recipe = chainrun.loads("format: 1\nchain:\n  - {type: peak, freq: 6000, gain_db: 3, q: 1}\n")
-    r = chainrun.render(recipe, str(take), str(tmp_path / "out.wav"))
+    r = chainrun.filter_file(recipe, str(take), str(tmp_path / "out.wav"))
     # analytic: 6000 Hz is above Nyquist (4000 Hz) at 8 kHz, so the section cannot exist there
     assert r.status == "rejected" and "Nyquist" in r.message and not (tmp_path / "out.wav").exists()
 
