@@ -344,3 +344,21 @@ def test_maxima_match_every_window_summed(shape):
 
     assert abs(r.max_momentary_lufs - max_lufs(40)) < 1e-6
     assert abs(r.max_short_term_lufs - max_lufs(300)) < 1e-6
+
+
+def test_state_left_by_loud_content_is_flushed_in_silence():
+    # analytic: after the last loud sample the K-weighting state decays as r**n, r < 0.9951 at 48 kHz
+    # (the high-pass pole), so it is below 1e-200 after about 95,000 samples (2 s); at the flush points
+    # (every 65536 frames from the start; the one at 196608 comes 3.1 s after the noise) it becomes
+    # exactly zero instead of sinking into the
+    # subnormal range, where arithmetic is many times slower. The readings cannot change: a value
+    # below 1e-200 adds nothing a float64 sum of squares could hold.
+    rng = np.random.default_rng(5)
+    x = np.concatenate([rng.uniform(-0.5, 0.5, (2, 48000)), np.zeros((2, 48000 * 5))], axis=1)
+    m = LoudnessMeter(48000, 2)
+    for i in range(0, x.shape[1], 10000):
+        m.update(x[:, i:i + 10000])
+    assert np.all(m._zi == 0.0)
+    whole = LoudnessMeter(48000, 2)
+    whole.update(x)
+    assert whole.reading() == m.reading()

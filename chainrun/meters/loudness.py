@@ -82,6 +82,8 @@ _MOMENTARY = 40           # sub-blocks in a momentary window / gating block (400
 _SHORT = 300              # sub-blocks in a short-term window (3 s)
 _STEP = 10                # sub-blocks between gating blocks and between LRA windows (100 ms)
 _CLAMP = 1.0e100
+_FLUSH_PERIOD = 65536      # frames between flushes of subnormal filter state (as the renderer's filter)
+_DENORMAL_FLOOR = 1e-200
 _SLACK = 2.0 * np.finfo(np.float64).eps   # per-term rounding bound of a sum, with a factor 2 to spare
 
 
@@ -245,13 +247,35 @@ class LoudnessMeter:
             hi, lo = (float(x.max()), float(x.min())) if x.size else (0.0, 0.0)
         if hi > _CLAMP or lo < -_CLAMP:
             x = np.clip(x, -_CLAMP, _CLAMP)
-        self._frames += n
+        frame0, self._frames = self._frames, self._frames + n
         if not self._used:
             sq = np.zeros((1, n))
         else:
-            y, self._zi = self._lfilter(self._b, self._a, x, axis=1, zi=self._zi)
+            y = self._k_weight(x, frame0)
             sq = np.square(y, out=y)
         self._subblocks(sq)
+
+    def _k_weight(self, x: np.ndarray, frame0: int) -> np.ndarray:
+        """The K-weighted block, the state carried; at every multiple of _FLUSH_PERIOD frames from the
+        start (the same points whatever the blocks) state values below _DENORMAL_FLOOR become zero.
+
+        After loud content, silence leaves the state decaying into the subnormal range, where
+        arithmetic is many times slower (measured: a file of digital silence took 4.8 times as
+        long as noise). A value below 1e-200 adds less than 1e-200 to any sample.
+        """
+        n, period = x.shape[1], _FLUSH_PERIOD
+        boundary = (frame0 // period + 1) * period          # first flush point after frame0
+        if boundary > frame0 + n:                           # none inside the block (the usual case)
+            y, self._zi = self._lfilter(self._b, self._a, x, axis=1, zi=self._zi)
+            return y
+        y, start = np.empty_like(x), 0
+        for stop in list(range(boundary - frame0, n, period)) + [n]:
+            if stop > start:
+                y[:, start:stop], self._zi = self._lfilter(self._b, self._a, x[:, start:stop], axis=1, zi=self._zi)
+            if (frame0 + stop) % period == 0:
+                self._zi[np.abs(self._zi) < _DENORMAL_FLOOR] = 0.0
+            start = stop
+        return y
 
     def _subblocks(self, sq: np.ndarray) -> None:
         """Sum the complete 10 ms sub-blocks of the carry followed by ``sq`` (squares of the new samples).
