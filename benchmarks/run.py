@@ -1,7 +1,7 @@
 """chainrun throughput and memory benchmarks, measured against two baselines in one run.
 
     python benchmarks/run.py                 # full run (makes ~2.5 GB of test files in benchmarks/work/)
-    python benchmarks/run.py --smoke         # seconds: tiny files, one round; checks the harness works
+    python benchmarks/run.py --smoke         # under a minute: tiny files, one round; checks the harness works
 
 A  ``chainrun run`` with every meter on (true peak included), one worker (``--workers 1``: one
    core, every step in one thread, like B and C);
@@ -28,6 +28,15 @@ audio (the same steps on a short file subtracted, which leaves the cost that gro
 audio). Separately: peak RSS of A on a short vs a long file, 16 files with one vs two workers
 (whole process, and the part that grows with the audio: the same minus 16 one-second files),
 digital silence after loud content vs noise (denormals), and true-peak metering on vs off.
+
+Start-up: ``chainrun run`` (default workers) on a 1-second file against C on it, and ``chainrun
+check`` of the benchmark recipe against I0, whole process; the 1-second file is also the short file
+subtracted for the per-second figures (wall and CPU time). The meters alone: a child process times
+one TruePeakMeter's ``update`` (and benchmarks/loudness_cost.py the loudness meter's) over 600 s of
+stereo noise in blocks, with ``time.process_time`` and one BLAS thread, and gives the true-peak
+meter's worst error against a 4x oversampling reference with a 1025-tap filter. The last section
+is a "Targets" table (issue 17): each target, its figure, met or missed (marked as smoke figures
+with ``--smoke``). ``--main-seconds`` shortens the main file when time is short.
 
 Nothing here is asserted; the results are printed as a Markdown list (and written to ``--out``
 if given) for benchmarks/RESULTS.md.
