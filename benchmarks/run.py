@@ -1,7 +1,7 @@
 """chainrun throughput and memory benchmarks, measured against two baselines in one run.
 
     python benchmarks/run.py                 # full run (makes ~2.5 GB of test files in benchmarks/work/)
-    python benchmarks/run.py --smoke         # seconds: tiny files, one round; checks the harness works
+    python benchmarks/run.py --smoke         # under a minute: tiny files, one round; checks the harness works
 
 A  ``chainrun run`` with every meter on (true peak included), one worker (``--workers 1``: one
    core, every step in one thread, like B and C);
@@ -28,6 +28,15 @@ audio (the same steps on a short file subtracted, which leaves the cost that gro
 audio). Separately: peak RSS of A on a short vs a long file, 16 files with one vs two workers
 (whole process, and the part that grows with the audio: the same minus 16 one-second files),
 digital silence after loud content vs noise (denormals), and true-peak metering on vs off.
+
+Start-up: ``chainrun run`` (default workers) on a 1-second file against C on it, and ``chainrun
+check`` of the benchmark recipe against I0, whole process; the 1-second file is also the short file
+subtracted for the per-second figures (wall and CPU time). The meters alone: a child process times
+one TruePeakMeter's ``update`` (and benchmarks/loudness_cost.py the loudness meter's) over 600 s of
+stereo noise in blocks, with ``time.process_time`` and one BLAS thread, and gives the true-peak
+meter's worst error against a 4x oversampling reference with a 1025-tap filter. The last section
+is a "Targets" table (issue 17): each target, its figure, met or missed (marked as smoke figures
+with ``--smoke``). ``--main-seconds`` shortens the main file when time is short.
 
 Nothing here is asserted; the results are printed as a Markdown list (and written to ``--out``
 if given) for benchmarks/RESULTS.md.
@@ -133,6 +142,76 @@ def make_noise_file(path: str, seconds: float, channels: int = 2, subtype: str =
             done += n
 
 
+def meter_cost(kind: str, seconds: float, repeats: int) -> None:
+    """Print the in-process CPU cost of one meter: ms of CPU per second of stereo 48 kHz noise.
+
+    ``kind`` is ``truepeak`` (one :class:`TruePeakMeter`, as each of the two a run keeps) or
+    ``loudness`` (benchmarks/loudness_cost.py, run in this process).  The noise is made in blocks
+    of 65536 frames as the reader hands them over, with their extremes; the meter's ``update`` is
+    timed over all of it with ``time.process_time``, ``repeats`` times; the median is printed.
+    For the true peak, the worst error against a long-filter 4x reference is printed too.
+    """
+    sys.path.insert(0, os.path.dirname(HERE))
+    if kind == "loudness":
+        sys.path.insert(0, HERE)
+        import loudness_cost
+        sys.argv = ["loudness_cost.py", "--seconds", f"{seconds:g}", "--repeats", str(repeats)]
+        loudness_cost.main()
+        return
+    import numpy as np
+    from chainrun.meters.truepeak import TruePeakMeter
+
+    frames, block = int(seconds * RATE), 65536
+    rng = np.random.default_rng(17)
+    blocks = [0.1 * rng.standard_normal((2, min(block, frames - i))) for i in range(0, frames, block)]
+    extremes = [(b.max(axis=1), b.min(axis=1)) for b in blocks]
+    runs = []
+    for _ in range(repeats):
+        meter = TruePeakMeter(RATE, 2)
+        t0 = time.process_time()
+        for b, ex in zip(blocks, extremes):
+            meter.update(b, ex)
+        meter.reading()
+        runs.append(time.process_time() - t0)
+    per_s = [1000.0 * r / seconds for r in runs]
+    print(f"truepeak {statistics.median(per_s):.4f} ms per second (runs: {', '.join(f'{v:.3f}' for v in per_s)})")
+    print(f"truepeak-error {true_peak_error():.4f} dB")
+
+
+def true_peak_error() -> float:
+    """Worst |meter - reference| in dB over sines up to 0.45 x rate and noise below 0.45 x rate.
+
+    The reference oversamples 4x with a 1025-tap Kaiser (beta 10) low-pass at the input's Nyquist
+    frequency (scipy.signal.upfirdn), far longer than the meter's 4 x 38 taps.  Every signal fades
+    in and out, so that neither has edges to ring at.
+    """
+    import numpy as np
+    from scipy import signal
+    from chainrun.meters.truepeak import TruePeakMeter
+
+    h = signal.firwin(1025, 0.25, window=("kaiser", 10.0)) * 4
+    rng = np.random.default_rng(5)
+    n = RATE // 2
+    t = np.arange(n) / RATE
+    signals = [0.5 * np.sin(2 * np.pi * f * t + ph) for f in np.linspace(997.0, 0.45 * RATE, 24)
+               for ph in (0.0, 0.7, 1.9)]
+    band = signal.firwin(511, 0.9, window=("kaiser", 10.0))   # noise kept below 0.45 x rate, as the sines
+    signals += [np.convolve(0.2 * rng.standard_normal(n), band, mode="same") for _ in range(8)]
+    fade = np.ones(n)
+    ramp = np.sin(np.linspace(0.0, np.pi / 2, 2400)) ** 2      # both start from and end in silence
+    fade[:2400], fade[-2400:] = ramp, ramp[::-1]
+    worst = 0.0
+    for x in signals:
+        x = x * fade
+        meter = TruePeakMeter(RATE, 1)
+        meter.update(x[np.newaxis, :])
+        got = float(np.asarray(meter.reading().true_peak)[0])
+        ref = float(np.max(np.abs(signal.upfirdn(h, x, up=4))))
+        got_db, ref_db = 20 * np.log10(got), 20 * np.log10(ref)
+        worst = max(worst, abs(got_db - ref_db))
+    return worst
+
+
 class Run:
     """One child process: wall seconds, CPU seconds (user + system), peak RSS in MB."""
 
@@ -212,8 +291,14 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--make-noise", nargs=2, metavar=("PATH", "SECONDS"), help=argparse.SUPPRESS)
     ap.add_argument("--silence-after", type=float, help=argparse.SUPPRESS)
     ap.add_argument("--seed", type=int, default=7, help=argparse.SUPPRESS)
+    ap.add_argument("--main-seconds", type=float, default=None,
+                    help="length of the main file (default 600; 5 with --smoke)")
     ap.add_argument("--make-sos", nargs=2, metavar=("RECIPE", "NPY"), help=argparse.SUPPRESS)
+    ap.add_argument("--meter-cost", nargs=3, metavar=("KIND", "SECONDS", "REPEATS"), help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
+    if args.meter_cost:
+        meter_cost(args.meter_cost[0], float(args.meter_cost[1]), int(args.meter_cost[2]))
+        return 0
     if args.make_noise:
         make_noise_file(args.make_noise[0], float(args.make_noise[1]), silence_after=args.silence_after,
                         seed=args.seed)
@@ -227,8 +312,10 @@ def main(argv: list[str] | None = None) -> int:
 
     smoke = args.smoke
     rounds = args.rounds or (1 if smoke else 5)
-    main_s = 5.0 if smoke else 600.0            # the 10-minute file
-    short_s, long_s = (2.0, 6.0) if smoke else (60.0, 3600.0)
+    main_s = args.main_seconds or (5.0 if smoke else 600.0)     # the 10-minute file
+    short_s = 1.0                              # the 1-second file: start-up, and subtracted per second
+    minute_s, long_s = (2.0, 6.0) if smoke else (60.0, 3600.0)   # peak RSS, short vs long
+    meter_s, meter_repeats = (10.0, 1) if smoke else (600.0, 3)
     many_s, many_n = (1.0, 4) if smoke else (60.0, 16)
     few_s = 0.2 if smoke else 1.0              # the small batch whose time is subtracted
     work = args.work
@@ -258,8 +345,9 @@ def main(argv: list[str] | None = None) -> int:
         return path
 
     main_file = need(f"noise-{main_s:g}s.wav", main_s)
-    lines = [f"Machine: {machine()}", "",
-             f"Command: `python benchmarks/run.py{' --smoke' if smoke else ''} --rounds {rounds}`", ""]
+    command = (f"python benchmarks/run.py{' --smoke' if smoke else ''} --rounds {rounds}"
+               + (f" --main-seconds {main_s:g}" if args.main_seconds else ""))
+    lines = [f"Machine: {machine()}", "", f"Command: `{command}`", ""]
 
     def out(name: str) -> str:
         return os.path.join(scratch, name)
@@ -281,6 +369,8 @@ def main(argv: list[str] | None = None) -> int:
         "D": [sys.executable, filter_floor, main_file, out("d.wav"), sos_path],
         **imports,
         "A short": chainrun_cmd(recipe, [short], out("a-short"), "--workers", "1"),
+        "S short": chainrun_cmd(recipe, [short], out("s-short")),
+        "check": [sys.executable, "-m", "chainrun", "check", recipe],
         "A2 short": chainrun_cmd(recipe, [short], out("a2-short"), "--workers", "2"),
         "C short": [sys.executable, floor, short, out("c-short.wav")],
         "D short": [sys.executable, filter_floor, short, out("d-short.wav"), sos_path],
@@ -291,15 +381,17 @@ def main(argv: list[str] | None = None) -> int:
         lines.append(f"| {names[k]} | {m.wall(k):.2f} s | {m.cpu(k):.2f} s | {main_s / m.wall(k):.0f}x | "
                      f"{m.rss(k):.0f} MB |")
 
-    def per_second(k: str) -> float:
+    def per_second(k: str, of=None) -> float:
         """(step - step on the short file) / (C - C on the short file): the ratio that grows with the audio."""
-        dc = m.wall("C") - m.wall("C short")
-        return (m.wall(k) - m.wall(f"{k} short")) / dc if dc > 0 else float("nan")
+        of = of or m.wall
+        dc = of("C") - of("C short")
+        return (of(k) - of(f"{k} short")) / dc if dc > 0 else float("nan")
 
     lines += ["", f"- A/B = {m.wall('A') / m.wall('B'):.2f} (target <= 0.8); A2/B = {m.wall('A2') / m.wall('B'):.2f}",
               f"- A/C = {m.wall('A') / m.wall('C'):.2f} whole process (target <= 1.3); "
               f"A2/C = {m.wall('A2') / m.wall('C'):.2f}",
               f"- per extra second of audio: A/C = {per_second('A'):.2f}, A2/C = {per_second('A2'):.2f} "
+              f"(CPU time: A/C = {per_second('A', m.cpu):.2f}, A2/C = {per_second('A2', m.cpu):.2f}) "
               f"((step - step on the {short_s:g} s file) / (C - C on the {short_s:g} s file); short-file medians: "
               f"A {m.wall('A short'):.2f} s, A2 {m.wall('A2 short'):.2f} s, C {m.wall('C short'):.2f} s)",
               f"- peak RSS of A = {m.rss('A'):.0f} MB, of A2 = {m.rss('A2'):.0f} MB (target <= 150 MB)",
@@ -308,7 +400,11 @@ def main(argv: list[str] | None = None) -> int:
               f"files cost A {m.wall('A') - m.wall('A short'):.2f} s and D {m.wall('D') - m.wall('D short'):.2f} s; "
               f"importing scipy.signal costs "
               f"{m.wall('I') - m.wall('I0'):.2f} s and {m.rss('I') - m.rss('I0'):.0f} MB over numpy and soundfile "
-              f"(I - I0), which is {(m.wall('I') - m.wall('I0')) / m.wall('C'):.2f} of C", ""]
+              f"(I - I0), which is {(m.wall('I') - m.wall('I0')) / m.wall('C'):.2f} of C",
+              f"- start-up: `chainrun run` (default workers) on the {short_s:g} s file {m.wall('S short'):.2f} s vs the "
+              f"I/O floor C on it {m.wall('C short'):.2f} s: {m.wall('S short') / m.wall('C short'):.2f}; "
+              f"`chainrun check` of the benchmark recipe {m.wall('check'):.2f} s vs I0 {m.wall('I0'):.2f} s: "
+              f"{m.wall('check') / m.wall('I0'):.2f}", ""]
 
     print("true peak on/off...", file=sys.stderr)
     tp = median_rounds({
@@ -329,12 +425,13 @@ def main(argv: list[str] | None = None) -> int:
 
     print("short vs long file RSS...", file=sys.stderr)
     long_ = need(f"noise-{long_s:g}s.wav", long_s)
-    r_short = timed(chainrun_cmd(recipe, [short], out("short"), "--workers", "1"))
+    minute = need(f"noise-{minute_s:g}s.wav", minute_s)
+    r_short = timed(chainrun_cmd(recipe, [minute], out("short"), "--workers", "1"))
     r_long = timed(chainrun_cmd(recipe, [long_], out("long"), "--workers", "1"))
     r_long2 = timed(chainrun_cmd(recipe, [long_], out("long2"), "--workers", "2"))
     shutil.rmtree(out("long"), ignore_errors=True)
     shutil.rmtree(out("long2"), ignore_errors=True)
-    lines += [f"- peak RSS, {short_s:g} s file {r_short.rss:.0f} MB vs {long_s:g} s file {r_long.rss:.0f} MB: "
+    lines += [f"- peak RSS, {minute_s:g} s file {r_short.rss:.0f} MB vs {long_s:g} s file {r_long.rss:.0f} MB: "
               f"ratio {r_long.rss / r_short.rss:.2f} (target <= 1.15; the long file ran at {long_s / r_long.wall:.0f}x "
               f"real time with one worker; with two workers {long_s / r_long2.wall:.0f}x and {r_long2.rss:.0f} MB)"]
 
@@ -364,6 +461,50 @@ def main(argv: list[str] | None = None) -> int:
               f"{os.cpu_count()} cores; CPU time one worker {wk.cpu('1'):.2f} s, two workers {wk.cpu('2'):.2f} s)",
               f"- the whole-process speed-up two workers could reach if start-up were only the import floor I "
               f"({wk.wall('I'):.2f} s in this group) and the growing part halved exactly: {best:.2f}x", ""]
+
+    print("meters alone, in-process CPU...", file=sys.stderr)
+    one_core = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
+    costs = {}
+    for kind in ("truepeak", "loudness"):
+        proc = subprocess.run([sys.executable, os.path.abspath(__file__), "--meter-cost", kind, f"{meter_s:g}",
+                               str(meter_repeats)], capture_output=True, text=True, env=one_core, check=True)
+        costs[kind] = proc.stdout
+        lines.append(f"- {kind} meter alone, {meter_s:g} s of stereo 48 kHz noise in blocks of 65536, "
+                     f"one BLAS thread: " + "; ".join(ln.strip() for ln in proc.stdout.splitlines()))
+    tp_ms = float(costs["truepeak"].split()[1])
+    tp_err = float(costs["truepeak"].split("truepeak-error")[1].split()[0])
+    loud_ms = float(costs["loudness"].split("median")[1].split()[0])
+    lines.append("")
+
+    peak_rss = max(m.rss("A"), m.rss("A2"), r_short.rss, r_long.rss, r_long2.rss)
+    grow_speedup = grow1 / grow2 if grow2 > 0 else float("nan")
+    rows = [
+        (f"start-up: `chainrun run` on a {short_s:g} s file / I/O floor C on it <= 2.5",
+         f"{m.wall('S short') / m.wall('C short'):.2f} ({m.wall('S short'):.2f} s vs {m.wall('C short'):.2f} s)",
+         m.wall("S short") / m.wall("C short") <= 2.5),
+        ("start-up: `chainrun check` of the recipe / I0 <= 2.5",
+         f"{m.wall('check') / m.wall('I0'):.2f} ({m.wall('check'):.2f} s vs {m.wall('I0'):.2f} s)",
+         m.wall("check") / m.wall("I0") <= 2.5),
+        (f"per second of audio ({main_s:g} s minus {short_s:g} s file), CPU time, A/C <= 1.5 on one core",
+         f"{per_second('A', m.cpu):.2f} (wall time {per_second('A'):.2f})", per_second("A", m.cpu) <= 1.5),
+        ("A/B <= 0.8", f"{m.wall('A') / m.wall('B'):.2f} (A2/B {m.wall('A2') / m.wall('B'):.2f})",
+         m.wall("A") / m.wall("B") <= 0.8),
+        ("peak RSS <= 150 MB at any length", f"{peak_rss:.0f} MB (largest of A, A2, the {minute_s:g} s and "
+         f"{long_s:g} s files with one and two workers)", peak_rss <= 150),
+        (f"{long_s:g} s / {minute_s:g} s file peak RSS <= 1.15", f"{r_long.rss / r_short.rss:.2f}",
+         r_long.rss / r_short.rss <= 1.15),
+        (f"two workers >= 1.8x one on the part of a {many_n}-file batch that grows with the audio",
+         f"{grow_speedup:.2f}x (whole process {wk.wall('1') / wk.wall('2'):.2f}x)", grow_speedup >= 1.8),
+        ("each true-peak meter <= 0.35 ms CPU per second of stereo 48 kHz audio",
+         f"{tp_ms:.3f} ms (worst error against the 4x long-filter reference {tp_err:.4f} dB)", tp_ms <= 0.35),
+        ("loudness meter <= 0.3 ms CPU per second of stereo 48 kHz audio", f"{loud_ms:.3f} ms", loud_ms <= 0.3),
+        ("digital silence after loud content / noise <= 1.2 (earlier target)",
+         f"{dn.wall('silence') / dn.wall('noise'):.2f}", dn.wall("silence") / dn.wall("noise") <= 1.2),
+    ]
+    smoke_note = " (SMOKE: tiny files, one round; these figures say nothing about speed)" if smoke else ""
+    lines += [f"## Targets{smoke_note}", "", "| target | figure | met? |", "| --- | --- | --- |"]
+    lines += [f"| {t} | {f} | {'met' if ok else 'missed'}{' (smoke)' if smoke else ''} |" for t, f, ok in rows]
+    lines.append("")
 
     shutil.rmtree(scratch, ignore_errors=True)
     text = "\n".join(lines)
