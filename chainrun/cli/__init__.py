@@ -57,6 +57,8 @@ def _run_arguments(p: argparse.ArgumentParser) -> None:
                    help="render each file on a Dask cluster: tcp://HOST:PORT (a running scheduler) or local:N "
                         "(N worker processes here); inputs and OUTDIR must be on storage every worker sees. "
                         "Needs pip install 'chainrun[cluster]'")
+    p.add_argument("-q", "--quiet", action="store_true",
+                   help="no progress: neither the bar (on a terminal) nor one line per finished file (otherwise)")
 
 
 def _scan_arguments(p: argparse.ArgumentParser) -> None:

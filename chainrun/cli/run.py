@@ -12,21 +12,47 @@ from .common import EXIT_NOT_OK, EXIT_OK, EXIT_USAGE, _err
 
 
 class _Progress:
-    """A tqdm bar on stderr (files, and hours of audio done), only when stderr is a terminal."""
+    """Progress on stderr: a tqdm bar on a terminal, else one plain line per finished file, or nothing.
 
-    def __init__(self, enabled: bool):
-        self.enabled = enabled
+    ``mode`` is ``"bar"`` (files, and hours of audio done), ``"lines"`` (``chainrun: [3/40] ok
+    take.wav (2.1 s)``, flushed at once, for cron and CI logs) or ``"off"`` (``--quiet``).
+    """
+
+    def __init__(self, mode: str):
+        self.mode = mode
         self.bar = None
         self.hours = 0.0
+        self.total = 0
+        self.done = 0
+
+    @classmethod
+    def for_stream(cls, stream, quiet: bool) -> "_Progress":
+        """The progress a run shows on ``stream``: none when quiet, a bar on a terminal, else lines."""
+        if quiet:
+            return cls("off")
+        try:
+            tty = stream.isatty()
+        except (AttributeError, ValueError):
+            tty = False
+        return cls("bar" if tty else "lines")
 
     def start(self, total_files: int) -> None:
-        if self.enabled and total_files:
+        self.total = total_files
+        if self.mode == "bar" and total_files:
             from tqdm import tqdm
             tqdm.monitor_interval = 0       # no monitor thread: worker processes are forked
             self.bar = tqdm(total=total_files, unit="file", file=sys.stderr, dynamic_ncols=True,
                             desc="filtering")
 
     def __call__(self, result) -> None:
+        self.done += 1
+        if self.mode == "lines":
+            from ..text import shown
+
+            total = max(self.total, self.done)
+            print(f"chainrun: [{self.done}/{total}] {result.status} {shown(result.relpath)} "
+                  f"({result.seconds:.1f} s)", file=sys.stderr, flush=True)
+            return
         if self.bar is None:
             return
         if result.source is not None:
@@ -75,7 +101,7 @@ def main(args: argparse.Namespace) -> int:
     outcome = run(recipe, args.inputs, args.outdir, plan=plan, workers=args.workers, block_size=args.block_size,
                   on_over=args.on_over, report=args.report, true_peak=not args.no_true_peak, redo=args.redo,
                   loudness=not args.no_loudness,
-                  progress=_Progress(sys.stderr.isatty()), command=["chainrun"] + args.argv,
+                  progress=_Progress.for_stream(sys.stderr, args.quiet), command=["chainrun"] + args.argv,
                   cluster=args.cluster)
     result = outcome.result
     for note in result.notes:
