@@ -53,6 +53,8 @@ MALFORMED = [
      3, '"3"', "chain[0].gain_db must be a number; found text '3'"),
     ("bool for number", {"r.yaml": "format: 1\nchain:\n  - {type: gain, gain_db: yes}\n"}, "r.yaml", "r.yaml",
      3, "yes", "chain[0].gain_db must be a number; found 'true'"),
+    ("empty tagged number", {"r.yaml": "format: 1\nchain:\n  - {type: gain, gain_db: !!int }\n"}, "r.yaml",
+     "r.yaml", 3, "!!int", "cannot read value '': the tag names a type but the value is empty"),
     # YAML 1.1 (yaml.org spec, from memory) reads 050 as octal 40, 1:30 as base 60 (90) and 0x32 as hex 50;
     # a hum notch typed 050 would cut 40 Hz, so only decimal numbers are taken
     ("leading zero", {"r.yaml": "format: 1\nchain:\n  - {type: notch, freq: 050, q: 25}\n"}, "r.yaml", "r.yaml",

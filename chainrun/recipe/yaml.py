@@ -171,8 +171,11 @@ def _convert(node, path: str, constructor, budget: list, depth: int = 0) -> _Nod
                                     "base); write it in decimal, without leading zeros or colons")
     try:
         value = constructor.construct_object(node, deep=True)
-    except (yaml.YAMLError, ValueError, OverflowError) as exc:
-        why = _yaml_problem(exc) if isinstance(exc, yaml.YAMLError) else " ".join(str(exc).split())
+    except (yaml.YAMLError, ValueError, OverflowError, IndexError) as exc:
+        # IndexError: PyYAML's int and float constructors index an explicitly tagged empty scalar (!!int)
+        why = (_yaml_problem(exc) if isinstance(exc, yaml.YAMLError) else
+               "the tag names a type but the value is empty" if isinstance(exc, IndexError) else
+               " ".join(str(exc).split()))
         raise RecipeError.at(where, f"cannot read value '{node.value}': {why}; "
                                     "write a plain number or text") from None
     return _Node(value, where, node.value)
