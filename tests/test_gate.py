@@ -60,3 +60,55 @@ def test_ringing_notch_warns_at_every_rate(tmp_path, rate):
     (warn,) = [p for p in a.problems if p.severity == "warning"]
     assert "longer than guard.max_decay_s 5 s" in warn.message and "hum" in warn.message
     assert (warn.where.line, warn.where.col) == (3, 5)
+
+
+# --------------------------------------------------------------------------- kilohertz typed as hertz
+
+@pytest.mark.parametrize("section,kind", [
+    ("{type: peak, freq: 3.2, gain_db: 3, q: 1}", "peak"),
+    ("{type: high_shelf, freq: 10, gain_db: 2}", "high shelf"),
+    ("{type: low_shelf, freq: 10, gain_db: 2}", "low shelf"),
+    ("{type: notch, freq: 5, q: 10}", "notch"),
+])
+def test_peak_shelf_or_notch_below_20hz_warns_located(tmp_path, section, kind):
+    # common practice, no published source: audio-band EQ sits at 20 Hz and above
+    path = tmp_path / "r.yaml"
+    path.write_text(f"format: 1\nchain:\n  - {{type: gain, gain_db: -1}}\n  - {section}\n", encoding="utf-8")
+    (warn,) = load(path).warnings
+    col = 4 + section.index("freq") + len("freq: ") + 1     # the value's column, 1-based; "  - " before
+    assert warn.startswith(f"{path}:4:{col}: warning: chain[1].freq ")
+    assert f"for a {kind}" in warn
+    f = float(section.split("freq: ")[1].split(",")[0])
+    assert f"write {f * 1000:g}" in warn      # analytic: 1 kHz = 1000 Hz
+
+
+def test_highpass_below_20hz_and_a_peak_at_20hz_do_not_warn(tmp_path):
+    path = tmp_path / "r.yaml"
+    path.write_text("format: 1\nchain:\n  - {type: highpass, freq: 15}\n"
+                    "  - {type: peak, freq: 20, gain_db: 1, q: 1}\n", encoding="utf-8")
+    assert load(path).warnings == ()
+
+
+@pytest.mark.parametrize("value,hint", [
+    ("3kHz", "write the plain number 3000 "), ("3.2 kHz", "write the plain number 3200 "),
+    ('"1000"', "write the plain number 1000, without quotes"), ("250Hz", "write the plain number 250 "),
+])
+def test_number_written_as_text_gets_the_number_to_type(tmp_path, value, hint):
+    from chainrun.recipe import RecipeError
+    path = tmp_path / "r.yaml"
+    path.write_text(f"format: 1\nchain:\n  - type: peak\n    freq: {value}\n    gain_db: 3\n", encoding="utf-8")
+    with pytest.raises(RecipeError) as info:
+        load(path)
+    msg = str(info.value)
+    assert msg.startswith(f"{path}:4:11: error: chain[0].freq must be a number; found text")
+    assert hint in msg and "\n" not in msg       # analytic: 1 kHz = 1000 Hz
+
+
+def test_swapped_arguments_say_the_first_is_audio(tmp_path, run_cli, write_recipe, write_audio):
+    take = write_audio("take.wav", np.zeros((480, 1)))
+    recipe = write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\n")
+    status, out, err = run_cli("run", take, recipe, "-o", tmp_path / "out")
+    assert status == 2 and out == ""
+    assert err.strip().splitlines() == [f"{take}: error: the first argument is audio (WAV), not a recipe: "
+                                        "chainrun run RECIPE INPUT...; no audio was touched"]
+    assert not (tmp_path / "out").exists()
