@@ -112,3 +112,29 @@ def test_swapped_arguments_say_the_first_is_audio(tmp_path, run_cli, write_recip
     assert err.strip().splitlines() == [f"{take}: error: the first argument is audio (WAV), not a recipe: "
                                         "chainrun run RECIPE INPUT...; no audio was touched"]
     assert not (tmp_path / "out").exists()
+
+
+# --------------------------------------------------------------------------- check: width, load failures, --strict
+
+def test_check_table_fits_80_columns_and_a_load_failure_gets_a_verdict_row(tmp_path, run_cli):
+    good = tmp_path / "good.yaml"
+    good.write_text("format: 1\nchain:\n  - {type: highpass, freq: 10, order: 8}\n"
+                    "  - {type: peak, freq: 19000, gain_db: -20.5, q: 0.7}\n", encoding="utf-8")
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("format: 1\nchain:\n  - {type: peak, freq: 1000}\n", encoding="utf-8")
+    status, out, err = run_cli("check", good, bad, "--rate", "192000", "--rate", "44100")
+    assert status == 1
+    # common practice, no published source: a terminal is 80 columns wide
+    table = [line for line in out.splitlines() if line.startswith("  ")]       # titles carry the path
+    assert len(table) == 4 and max(len(line) for line in table) <= 80, out
+    lines = out.splitlines()
+    i = lines.index(str(bad))
+    assert "REJECTED" in lines[i + 1]
+
+
+def test_strict_makes_warnings_fail(tmp_path, run_cli):
+    path = tmp_path / "r.yaml"
+    path.write_text("format: 1\nchain:\n  - {type: peak, freq: 3.2, gain_db: 3, q: 1}\n", encoding="utf-8")
+    assert run_cli("check", path)[0] == 0
+    status, out, err = run_cli("check", "--strict", path)
+    assert status == 1 and "warning:" in err and "1 rejected" in out
