@@ -26,7 +26,7 @@ from .render import Policy, scan_file
 from .results import FileResult
 
 __all__ = ["DEFAULT_RATES", "RECIPE_SUFFIXES", "PLOT_SUFFIXES", "find_recipes", "check_recipe", "check", "cores",
-           "RunOutcome", "refuse_recipe_inputs", "run", "scan", "plot"]
+           "RunOutcome", "refuse_audio_recipe", "refuse_recipe_inputs", "run", "scan", "plot"]
 
 DEFAULT_RATES = (44100, 48000, 96000)
 RECIPE_SUFFIXES = (".yaml", ".yml")
@@ -184,6 +184,29 @@ def _write_reports(result: BatchResult, report: str | None, command: list[str] |
     return paths, errors
 
 
+# The first bytes of audio containers a recipe can never start with (a recipe is UTF-8 YAML).
+_AUDIO_MAGIC = {b"RIFF": "WAV", b"RIFX": "WAV", b"RF64": "WAV", b"BW64": "WAV", b"riff": "W64",
+                b"FORM": "AIFF", b"fLaC": "FLAC", b"OggS": "Ogg", b"caff": "CAF", b".snd": "AU"}
+
+
+def refuse_audio_recipe(recipe: str | os.PathLike) -> None:
+    """Refuse an audio file given where the recipe goes (``chainrun run take.wav recipe.yaml``).
+
+    Raises
+    ------
+    BatchError
+        One line, when the recipe path's first four bytes are an audio container's.
+    """
+    try:
+        with open(recipe, "rb") as fh:
+            head = fh.read(4)
+    except OSError:
+        return                     # the recipe loader says what is wrong with it
+    if head in _AUDIO_MAGIC:
+        raise BatchError(f"{os.fspath(recipe)}: error: the first argument is audio ({_AUDIO_MAGIC[head]}), not a "
+                         "recipe: chainrun run RECIPE INPUT...; no audio was touched")
+
+
 def refuse_recipe_inputs(inputs: list[str]) -> None:
     """Refuse a recipe file named among the audio inputs (a second recipe is a plan's job), before any audio.
 
@@ -249,6 +272,8 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
 
             plan = load_plan(plan)
     else:
+        if isinstance(recipe, (str, os.PathLike)):
+            refuse_audio_recipe(recipe)
         refuse_recipe_inputs(inputs)
     if isinstance(recipe, (str, os.PathLike)):
         recipe = load(os.fspath(recipe))

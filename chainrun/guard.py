@@ -3,8 +3,9 @@
 For a :class:`~chainrun.design.Chain` at one sample rate, :func:`assess` finds
 
 * the largest pole radius (rejected above ``1 - pole_margin``);
-* the time the impulse response takes to fall 60 dB below its peak
-  (warned above ``max_decay_s``);
+* the time the slowest pole's envelope takes to fall 60 dB, from its radius
+  (:func:`decay_60db`, analytic, the same at every rate within rounding; warned
+  above ``max_decay_s``);
 * the largest and smallest gain of the whole chain and where they are, on a
   dense logarithmic grid refined locally (rejected above ``max_gain_db``);
 * the worst-case peak gain: the L1 norm of the impulse response,
@@ -37,7 +38,7 @@ from .impulse import _impulse, _midside_l1
 from .recipe import Guard, Location, Recipe
 from .section_types import raw_sections
 
-__all__ = ["Problem", "Assessment", "PathAssessment", "assess", "response_db", "check_raw_sections"]
+__all__ = ["Problem", "Assessment", "PathAssessment", "assess", "response_db", "check_raw_sections", "decay_60db"]
 
 GRID_POINTS = 4096          # log-spaced frequencies between LOWEST_HZ and Nyquist
 LOWEST_HZ = 1.0
@@ -114,6 +115,23 @@ def response_db(sos: np.ndarray, freqs: np.ndarray, rate: float) -> np.ndarray:
         _, h = signal.freqz_sos(sos, worN=np.asarray(freqs, dtype=float), fs=rate)
         db = 20.0 * np.log10(np.abs(h))
     return np.maximum(np.where(np.isnan(db), np.inf, db), FLOOR_DB)
+
+
+def decay_60db(r_max: float, rate: float) -> float:
+    """Seconds for the envelope ``r**n`` of a pole at radius ``r_max`` to fall 60 dB at ``rate``.
+
+    ``t = ln(1000) / (-ln(r) * rate)`` (about ``6.91 / (-ln r * fs)``): exact for the pole's
+    envelope, so ``Assessment.decay_exact`` is true for it. A pole at a given frequency and
+    bandwidth sits at ``r = exp(-pi * bandwidth / fs)`` whatever the rate, so the figure is the
+    same at every rate within the bilinear transform's warping. ``0`` for a chain without
+    feedback; ``inf`` for a pole on or outside the unit circle. A repeated pole rings longer
+    than its envelope (``n**k r**n``): the L1 bound allows for that, this figure does not.
+    """
+    if r_max <= 0.0:
+        return 0.0
+    if r_max >= 1.0:
+        return math.inf
+    return math.log(1000.0) / (-math.log(r_max) * rate)
 
 
 def _row_poles(row: np.ndarray) -> np.ndarray:
@@ -291,7 +309,8 @@ def _assess_path(sos: np.ndarray, labels, rows, rate: int, guard: Guard, recipe:
     if unstable:
         l1, l1_exact, decay, decay_exact = math.inf, False, math.inf, False
     else:
-        l1, l1_exact, decay, decay_exact = _impulse(sos, rate, r_max)
+        l1, l1_exact = _impulse(sos, rate, r_max)
+        decay, decay_exact = decay_60db(r_max, rate), True     # analytic from the pole radius
 
     if not unstable and not math.isfinite(l1):
         problems.append(Problem(
@@ -320,7 +339,7 @@ def _assess_path(sos: np.ndarray, labels, rows, rate: int, guard: Guard, recipe:
     if not unstable and decay > guard.max_decay_s:
         problems.append(Problem(
             "warning",
-            f"{at} the impulse response takes {decay:.2f} s to fall 60 dB, longer than "
+            f"{at} the slowest pole's envelope takes {decay:.2f} s to fall 60 dB, longer than "
             f"guard.max_decay_s {guard.max_decay_s:g} s ({labels[worst_row]} rings longest)",
             where_of_row(worst_row)))
     return PathAssessment(key, title, len(sos), r_max, decay, decay_exact, hi_db, hi_hz, lo_db, lo_hz, l1, l1_exact)

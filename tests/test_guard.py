@@ -64,11 +64,9 @@ def test_first_order_feedback_assessment(run, rate, c):
     assert_allclose(a.peak_gain, 1 / (1 - abs(c)), rtol=1e-9)
     assert a.peak_gain_exact
     assert_allclose(a.max_pole_radius, abs(c), rtol=1e-12)     # analytic: the pole is at z = -c
-    # analytic: |h[n]| = |c|^n falls 60 dB after ln(1e-3)/ln|c| samples. Tolerance: the guard
-    # measures the decay in whole blocks of 64 samples (chainrun/guard.py, _CHUNK: chainrun's own
-    # resolution, no published source), plus one sample for the fractional n60
+    # analytic: |h[n]| = |c|^n falls 60 dB after ln(1e-3)/ln|c| samples
     n60 = math.log(1e-3) / math.log(abs(c))
-    assert abs(a.decay_s * rate - n60) <= 64 + 1
+    assert a.decay_s * rate == pytest.approx(n60, rel=1e-9) and a.decay_exact
     assert a.accepted and a.problems == ()
 
 
@@ -469,7 +467,7 @@ def test_repeated_and_near_equal_poles_at_96k(tmp_path, freqs):
 def test_a_worst_case_figure_that_is_not_finite_is_rejected(run, monkeypatch, figure):
     # Whatever the reason, an infinite or NaN bound must never be accepted: it would switch the
     # runtime output guard off (render.py compares each output block with bound x input peak).
-    monkeypatch.setattr("chainrun.guard._impulse", lambda sos, rate, r_max: (figure, False, 1.0, False))
+    monkeypatch.setattr("chainrun.guard._impulse", lambda sos, rate, r_max: (figure, False))
     _, _, a = run("format: 1\nchain:\n  - {type: peak, freq: 500, gain_db: -4, q: 2}\n")
     assert not a.accepted
     (err,) = [p for p in a.problems if p.severity == "error"]

@@ -27,6 +27,7 @@ def _check_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--rate", type=_rate, action="append", metavar="HZ",
                    help="sample rate to check; repeat for several (default: 44100, 48000, 96000)")
     p.add_argument("--json", action="store_true", help="print results as JSON on stdout")
+    p.add_argument("--strict", action="store_true", help="a recipe with warnings fails the check too (exit 1)")
 
 
 def _run_arguments(p: argparse.ArgumentParser) -> None:

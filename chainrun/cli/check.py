@@ -12,14 +12,20 @@ from ..text import fmt_db, shown
 from .common import EXIT_NOT_OK, EXIT_OK, _err
 
 
+# One rate's row, at most 78 columns: rate, biquads, pole radius, 60 dB decay, max gain, worst-case
+# peak gain, verdict. The units are in the cells, so the header stays short.
+_HEADER = f"  {'rate':>9} {'bq':>3} {'pole radius':>11} {'60 dB':>9} {'max gain':>20} {'worst peak':>10} verdict"
+_WIDTH = 80
+
+
 def _cells(r: dict) -> str:
     """The figure columns of one rate's (or one channel path's) row."""
     radius = f"{r['max_pole_radius']:.9f}" if r["max_pole_radius"] is not None else "-"
     decay = "-" if r["decay_60db_s"] is None else (
-        f"{'' if r['decay_exact'] else '>'}{r['decay_60db_s']:.3f} s")
-    gain = "-" if r["max_gain_db"] is None else f"{r['max_gain_db']:+.2f} dB @ {r['max_gain_hz']:.0f} Hz"
+        f"{'' if r['decay_exact'] else '>'}{r['decay_60db_s']:.2f} s")
+    gain = "-" if r["max_gain_db"] is None else f"{r['max_gain_db']:+.2f} dB@{r['max_gain_hz']:.0f} Hz"
     peak = fmt_db(r["worst_case_peak_gain_db"] if r["worst_case_peak_gain_db"] is not None else math.inf)
-    return f"{r['rows']:>7}  {radius:>15}  {decay:>11}  {gain:>22}  {peak:>15}"
+    return f"{r['rows']:>3} {radius:>11} {decay:>9} {gain:>20} {peak:>10}"
 
 
 def _print_check(entry: dict) -> None:
@@ -29,17 +35,19 @@ def _print_check(entry: dict) -> None:
     if entry.get("plan") and entry["plan"] != entry["path"]:
         title += f"  (named by the plan {shown(entry['plan'])})"
     print(title)
-    if entry["rates"]:
-        print(f"  {'rate':>9}  {'biquads':>7}  {'max pole radius':>15}  {'60 dB decay':>11}  "
-              f"{'max gain':>22}  {'worst-case peak':>15}  verdict")
+    if not entry["rates"]:                      # the recipe (or plan) did not load: a verdict row all the same
+        print(f"  {'-':>9} {'it does not load (the error is on stderr)':<56} REJECTED")
+    else:
+        print(_HEADER)
         for r in entry["rates"]:
             verdict = "accepted" if r["accepted"] else "REJECTED"
             if r.get("rows") is None:
-                print(f"  {r['rate']:>6} Hz  {'-':>7}  {'-':>15}  {'-':>11}  {'-':>22}  {'-':>15}  {verdict}")
+                print(f"  {r['rate']:>6} Hz {'-':>3} {'-':>11} {'-':>9} {'-':>20} {'-':>10} {verdict}")
                 continue
-            print(f"  {r['rate']:>6} Hz  {_cells(r)}  {verdict}")
-            for p in r.get("paths") or ():          # a chain with channel paths: one row per path
-                print(f"  {'':>9}  {_cells(p)}  {p['title']}")
+            print(f"  {r['rate']:>6} Hz {_cells(r)} {verdict}")
+            for p in r.get("paths") or ():          # a chain with channel paths: the path's name, then its row
+                print(f"    {shown(p['title'])[:_WIDTH - 4]}")
+                print(f"  {'':>9} {_cells(p)}")
     for line in entry["errors"] + entry["warnings"]:
         _err(line)
 
@@ -47,7 +55,7 @@ def _print_check(entry: dict) -> None:
 def main(args: argparse.Namespace) -> int:
     rates = tuple(dict.fromkeys(args.rate)) if args.rate else DEFAULT_RATES
     entries = check(args.recipes, rates)
-    rejected = [e for e in entries if not e["accepted"]]
+    rejected = [e for e in entries if not e["accepted"] or (args.strict and e["warnings"])]
     if args.json:
         json.dump({"version": __version__, "rates": list(rates), "accepted": not rejected,
                    "recipes": entries}, sys.stdout, indent=2)
@@ -59,5 +67,6 @@ def main(args: argparse.Namespace) -> int:
         for e in entries:
             _print_check(e)
         print(f"{len(entries)} recipe(s) checked at {', '.join(map(str, rates))} Hz: "
-              f"{len(entries) - len(rejected)} accepted, {len(rejected)} rejected")
+              f"{len(entries) - len(rejected)} accepted, {len(rejected)} rejected"
+              + (" (--strict: warnings reject)" if args.strict else ""))
     return EXIT_NOT_OK if rejected else EXIT_OK

@@ -4,7 +4,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ..app import refuse_recipe_inputs, run
+from ..app import refuse_audio_recipe, refuse_recipe_inputs, run
 from ..batch.run import MAX_WORKERS
 from ..recipe import RecipeError, load
 from ..results import FAILED, INTERRUPTED
@@ -83,6 +83,7 @@ def main(args: argparse.Namespace) -> int:
              "see 'chainrun run --help'")
         return EXIT_USAGE
     else:
+        refuse_audio_recipe(args.recipe)
         refuse_recipe_inputs(args.inputs)
     try:
         if args.plan is not None:

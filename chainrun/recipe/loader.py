@@ -99,6 +99,24 @@ def _section(node: _Node, index: int, path: str) -> Section:
                    channels=channels)
 
 
+# Section types whose frequency is almost never below the audio band: below this, a value
+# there is probably kilohertz typed as hertz (``freq: 3.2`` meant 3.2 kHz).
+_AUDIO_BAND_KINDS = ("peak", "low_shelf", "high_shelf", "notch")
+LOW_FREQ_WARN_HZ = 20.0
+
+
+def _low_frequency_warnings(sections: list[Section]) -> list[str]:
+    """A located warning for each peak, shelf or notch of this file tuned below 20 Hz."""
+    out = []
+    for s in sections:
+        f = s.params.get("freq")
+        if s.kind in _AUDIO_BAND_KINDS and f is not None and f < LOW_FREQ_WARN_HZ:
+            out.append(f"{s.locate('freq')}: warning: chain[{s.index}].freq {_fmt(f)} Hz is below "
+                       f"{_fmt(LOW_FREQ_WARN_HZ)} Hz for a {s.kind.replace('_', ' ')}; frequencies are in hertz: "
+                       f"for {_fmt(f)} kHz write {_fmt(f * 1000.0)}")
+    return out
+
+
 # --------------------------------------------------------------------------- recipe
 
 # A layer: the keys one file (with its includes merged) writes -> (value, where it was written).
@@ -263,6 +281,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
             if len(sections) > MAX_SECTIONS:
                 raise RecipeError.at(snode.where, f"the chain has more than {MAX_SECTIONS} sections "
                                                   f"(includes counted); split the recipe")
+        warnings.extend(_low_frequency_warnings(sections[len(sections) - len(cnode.value):]))
     if not sections:
         at = entries["chain"][1].where if "chain" in entries else root.where
         raise RecipeError.at(at, "the chain is empty; give at least one section "

@@ -201,11 +201,39 @@ def _describe(value: Any) -> str:
     return f"'{value}'"
 
 
+# A unit written after a number -> (the unit the key is read in, factor to it).
+_UNIT_FACTORS = {
+    "hz": ("Hz", 1.0), "khz": ("Hz", 1000.0), "k": ("Hz", 1000.0),
+    "db": ("dB", 1.0), "s": ("s", 1.0), "ms": ("s", 0.001),
+}
+_WITH_UNIT = re.compile(r"\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([A-Za-z]+)\s*")
+
+
+def _number_hint(value: Any, unit: str) -> str:
+    """For text that is a number in disguise (``"1000"``, ``3kHz``): the number to type, else ``""``."""
+    if not isinstance(value, str):
+        return ""
+    try:
+        x = float(value.strip())
+    except ValueError:
+        m = _WITH_UNIT.fullmatch(value)
+        if not m or m.group(2).lower() not in _UNIT_FACTORS:
+            return ""
+        to, factor = _UNIT_FACTORS[m.group(2).lower()]
+        if to != unit:
+            return ""
+        x = float(m.group(1)) * factor
+        return f"; write the plain number {_fmt(x)} (the value is in {unit}, without a unit)"
+    if not math.isfinite(x):
+        return ""
+    return f"; write the plain number {_fmt(x)}, without quotes"
+
+
 def _number(node: _Node, name: str, *, lo: float | None = None, hi: float | None = None,
             lo_open: bool = False, hi_open: bool = False, unit: str = "") -> float:
     v = node.value
     if isinstance(v, bool) or not isinstance(v, (int, float)):
-        raise RecipeError.at(node.where, f"{name} must be a number; found {_describe(v)}")
+        raise RecipeError.at(node.where, f"{name} must be a number; found {_describe(v)}{_number_hint(v, unit)}")
     try:
         v = float(v)
     except OverflowError:
