@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import stat
 from dataclasses import dataclass, field
 from typing import Callable
 
@@ -198,6 +199,8 @@ def refuse_audio_recipe(recipe: str | os.PathLike) -> None:
         One line, when the recipe path's first four bytes are an audio container's.
     """
     try:
+        if not stat.S_ISREG(os.stat(recipe).st_mode):     # a pipe could wait for ever: the loader refuses it
+            return
         with open(recipe, "rb") as fh:
             head = fh.read(4)
     except OSError:

@@ -138,3 +138,20 @@ def test_strict_makes_warnings_fail(tmp_path, run_cli):
     assert run_cli("check", path)[0] == 0
     status, out, err = run_cli("check", "--strict", path)
     assert status == 1 and "warning:" in err and "1 rejected" in out
+
+
+def test_recipe_path_that_is_a_pipe_is_not_opened_by_the_audio_check(tmp_path):
+    import os
+    import threading
+
+    from chainrun.app import refuse_audio_recipe
+    fifo = tmp_path / "recipe.yaml"
+    os.mkfifo(fifo)                   # POSIX: opening a FIFO to read waits for a writer
+    t = threading.Thread(target=refuse_audio_recipe, args=(fifo,), daemon=True)
+    t.start()
+    t.join(5.0)
+    blocked = t.is_alive()
+    if blocked:                       # let the thread go: open the other end
+        fd = os.open(fifo, os.O_WRONLY | os.O_NONBLOCK)
+        os.close(fd)
+    assert not blocked

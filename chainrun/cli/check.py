@@ -45,9 +45,9 @@ def _print_check(entry: dict) -> None:
                 print(f"  {r['rate']:>6} Hz {'-':>3} {'-':>11} {'-':>9} {'-':>20} {'-':>10} {verdict}")
                 continue
             print(f"  {r['rate']:>6} Hz {_cells(r)} {verdict}")
-            for p in r.get("paths") or ():          # a chain with channel paths: the path's name, then its row
-                print(f"    {shown(p['title'])[:_WIDTH - 4]}")
-                print(f"  {'':>9} {_cells(p)}")
+            for p in r.get("paths") or ():          # a chain with channel paths: one row per path, then its name
+                row = f"  {'':>9} {_cells(p)}  "
+                print(row + shown(p["title"])[:max(_WIDTH - len(row), 8)])
     for line in entry["errors"] + entry["warnings"]:
         _err(line)
 
