@@ -183,7 +183,7 @@ class _Blocks:
 
     Little-endian PCM_24 (the containers of ``_UNPACKED_24``) is read as raw bytes and
     unpacked here (:func:`unpack24`); every other input goes through libsndfile's own
-    conversion. Both give the same numbers (tests/test_formats.py checks it for each
+    conversion. Both give the same numbers (tests/unit/audio/test_formats.py checks it for each
     container), and the raw path costs about a third as much (see benchmarks/RESULTS.md).
     """
 

@@ -27,7 +27,7 @@ class _Output:
 
     PCM_24 in the containers of ``_PACKED_24`` is packed here (:meth:`Quantiser.packed24`) and
     written raw; every other subtype goes through libsndfile's own conversion.
-    Both give the same bytes (tests/test_render.py checks it for each container).
+    Both give the same bytes (tests/unit/render/test_render.py checks it for each container).
     """
 
     def __init__(self, path: str, src: Source, fmt: str, subtype: str, meta: OutputMeta | None = None):

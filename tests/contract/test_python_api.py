@@ -12,8 +12,8 @@ from pathlib import Path
 
 import chainrun
 from chainrun.cli import main
+from support import REPO
 
-REPO = Path(__file__).resolve().parents[1]
 
 
 def _sha(path) -> str:

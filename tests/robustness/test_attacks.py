@@ -22,7 +22,7 @@ import pytest
 import soundfile as sf
 
 from chainrun.batch.outdir import LOCK_NAME
-from chainrun.fsutil import TEMP_TAG
+from support import temporaries
 
 RECIPE = """\
 format: 1
@@ -39,10 +39,6 @@ def chainrun(*argv, **kw) -> subprocess.Popen:
     env.update(kw.pop("env", {}))
     return subprocess.Popen([sys.executable, "-m", "chainrun", *map(str, argv)], stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True, env=env, **kw)
-
-
-def temporaries(outdir: Path) -> list[str]:
-    return sorted(os.path.join(r, f) for r, _, fs in os.walk(outdir) for f in fs if TEMP_TAG in f)
 
 
 def write_season(root: Path, names: dict[str, int], rate: int = 48000) -> None:

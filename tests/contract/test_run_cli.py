@@ -21,17 +21,9 @@ import soundfile as sf
 from scipy import signal
 
 from chainrun import design, load
+from support import by_rel, report_of
 
 SQRT_HALF_DB = 20 * math.log10(math.sqrt(0.5))     # analytic: -3.0103 dB
-
-
-def report_of(outdir) -> dict:
-    with open(os.path.join(outdir, "chainrun-report.json"), encoding="utf-8") as fh:
-        return json.load(fh)
-
-
-def by_rel(report: dict) -> dict:
-    return {f["relpath"]: f for f in report["files"]}
 
 
 def sine_amplitude(y: np.ndarray, freq: float, rate: int, start: int) -> float:

@@ -20,7 +20,6 @@ The scenario: the Saltings Hour, a community radio programme recorded in a boath
 from __future__ import annotations
 
 import io
-import json
 import os
 import re
 import struct
@@ -36,6 +35,7 @@ import soundfile as sf
 from chainrun.cli import main
 from chainrun.fsutil import TEMP_TAG
 from chainrun.text import shown
+from support import report_of, temporaries
 
 # The marsh chain: wind rumble out, a presence lift. The 5 kHz peak is above Nyquist for an 8 kHz file.
 RECIPE = """\
@@ -74,18 +74,6 @@ def patched(b: bytearray, offset: int, fmt: str, value: int) -> bytes:
     c = bytearray(b)
     c[offset:offset + struct.calcsize(fmt)] = struct.pack(fmt, value)
     return bytes(c)
-
-
-def report_of(outdir) -> dict:
-    with open(os.path.join(outdir, "chainrun-report.json"), encoding="utf-8") as fh:
-        return json.load(fh)
-
-
-def temporaries(folder) -> list[str]:
-    found = []
-    for root, dirs, files in os.walk(folder):
-        found += [os.path.join(root, f) for f in files if TEMP_TAG in f]
-    return found
 
 
 @pytest.fixture(scope="module")

@@ -464,7 +464,7 @@ TP_OVER_DB = 20 * np.log10(0.9) + 1.0          # analytic, see intersample_over
 def test_a_true_peak_ceiling_holds_under_every_policy(tmp_path, intersample_over, on_over, true_peak):
     # The recipe's true_peak_ceiling_dbtp is checked with true-peak metering off too (--no-true-peak skips
     # the input's true peak only). The tolerance 0.02 dB is chainrun's own for its interpolator (flat to
-    # 0.45 * rate within 0.015 dB; see tests/test_meters.py), no published source.
+    # 0.45 * rate within 0.015 dB; see tests/unit/meters/test_meters.py), no published source.
     out = tmp_path / "out"
     out.mkdir()
     pol = Policy(on_over=on_over, ceiling_dbfs=0.0, true_peak_ceiling_dbtp=-1.0, true_peak=true_peak,

@@ -27,7 +27,7 @@ import soundfile as sf
 
 from chainrun.batch import outdir as journal_mod
 from chainrun.batch.outdir import JOURNAL_NAME, LOCK_NAME, LockedError, OutdirLock
-from chainrun.fsutil import TEMP_TAG
+from support import by_rel, report_of, temporaries
 
 RECIPE = """\
 format: 1
@@ -41,19 +41,6 @@ chain:
 
 def noise(frames, channels=1, seed=1):
     return np.random.default_rng(seed).uniform(-0.3, 0.3, (frames, channels))
-
-
-def report_of(path) -> dict:
-    with open(path, encoding="utf-8") as fh:
-        return json.load(fh)
-
-
-def by_rel(report: dict) -> dict:
-    return {f["relpath"]: f for f in report["files"]}
-
-
-def temporaries(folder) -> list[str]:
-    return [os.path.join(r, f) for r, _, fs in os.walk(folder) for f in fs if TEMP_TAG in f]
 
 
 def audio_outputs(folder) -> list[str]:
@@ -172,7 +159,7 @@ def test_disk_full_fails_the_file_that_does_not_fit_and_keeps_the_rest(tmp_path,
     disk = tmp_path / "disk"
     if not mounts.tmpfs(disk, "1m"):
         pytest.skip("cannot mount a small tmpfs here (needs root in a privileged container); "
-                    "tests/test_batch.py simulates ENOSPC in-process")
+                    "tests/unit/batch/test_batch.py simulates ENOSPC in-process")
     out = disk / "out"
     before = tree_hashes(season)
     status, _, err = run_cli("run", tmp_path / "recipe.yaml", season, "-o", out, "--workers", "1")

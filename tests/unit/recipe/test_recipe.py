@@ -10,15 +10,14 @@ import math
 import os
 import re
 import time
-from pathlib import Path
 
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from chainrun.recipe import Guard, Output, RecipeError, load
+from support import REPO
 
-REPO = Path(__file__).resolve().parents[1]
 
 # One error, one line: `path:line:col: error: what is wrong; what is allowed` (CONVENTIONS.md)
 ERROR_RE = re.compile(r"^(?P<path>[^\n]+):(?P<line>\d+):(?P<col>\d+): error: (?P<msg>[^\n]+; [^\n]+)$")

@@ -10,7 +10,6 @@
 """
 from __future__ import annotations
 
-import json
 import math
 import os
 import re
@@ -26,14 +25,10 @@ from chainrun.batch import run as batch_run
 from chainrun.recipe import MAX_INCLUDE_DEPTH, MAX_SECTIONS, RecipeError
 from chainrun.fsutil import TEMP_TAG
 from chainrun.render import MAX_BLOCK
+from support import report_of
 
 GAIN = "  - {type: gain, gain_db: -1}\n"
 RECIPE = "format: 1\nname: Saltings Hour gentle pass\nchain:\n  - {type: highpass, freq: 60}\n" + GAIN
-
-
-def report_of(outdir) -> dict:
-    with open(os.path.join(outdir, "chainrun-report.json"), encoding="utf-8") as fh:
-        return json.load(fh)
 
 
 def noise(frames, channels=1, seed=1):

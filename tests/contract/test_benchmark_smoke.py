@@ -8,8 +8,9 @@ import subprocess
 import sys
 
 import pytest
+from support import REPO
 
-ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+ROOT = str(REPO)
 
 
 @pytest.mark.slow

@@ -2,7 +2,7 @@
 
 Every cluster here listens on 127.0.0.1 only; every process a test starts is bounded in time and
 stopped by the test. The reference for the audio is a local run (``--workers 1``) of the same batch,
-itself checked against scipy.signal.sosfilt elsewhere (tests/test_run_cli.py): a cluster run must be
+itself checked against scipy.signal.sosfilt elsewhere (tests/contract/test_run_cli.py): a cluster run must be
 byte-identical to it. The worker killed by a "killer" file is a Dask ``--preload`` module that wraps
 the worker-side function (the worker process really dies, with os._exit, mid-task).
 """
@@ -21,9 +21,8 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from chainrun.fsutil import TEMP_TAG
+from support import REPO, report_of, temporaries
 
-REPO = Path(__file__).resolve().parents[1]
 HAVE_DASK = importlib.util.find_spec("distributed") is not None
 needs_dask = pytest.mark.skipif(not HAVE_DASK, reason="Dask's distributed scheduler is not installed "
                                                       "(pip install 'chainrun[cluster]')")
@@ -85,10 +84,6 @@ def finals(outdir: Path) -> dict[str, bytes]:
     return out
 
 
-def temporaries(outdir: Path) -> list[str]:
-    return sorted(os.path.join(r, f) for r, _, fs in os.walk(outdir) for f in fs if TEMP_TAG in f)
-
-
 def wait_until(cond, timeout: float, what: str):
     end = time.monotonic() + timeout
     while time.monotonic() < end:
@@ -107,10 +102,6 @@ def stop(proc: subprocess.Popen) -> None:
         except subprocess.TimeoutExpired:
             proc.kill()
             proc.wait(timeout=10)
-
-
-def report_of(outdir: Path) -> dict:
-    return json.loads((outdir / "chainrun-report.json").read_text())
 
 
 @pytest.fixture(scope="module")

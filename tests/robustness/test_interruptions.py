@@ -35,6 +35,7 @@ import soundfile as sf
 
 from chainrun.batch.outdir import LOCK_NAME
 from chainrun.fsutil import TEMP_TAG
+from support import REPO, temporaries
 
 pytestmark = pytest.mark.slow
 
@@ -74,10 +75,6 @@ def finals(outdir: Path) -> dict[str, bytes]:
             p = os.path.join(root, f)
             out[os.path.relpath(p, outdir)] = Path(p).read_bytes()
     return out
-
-
-def temporaries(outdir: Path) -> list[str]:
-    return sorted(os.path.join(r, f) for r, _, fs in os.walk(outdir) for f in fs if TEMP_TAG in f)
 
 
 def processes_mentioning(text: str) -> list[int]:
@@ -313,7 +310,7 @@ def test_report_pictures_import_no_matplotlib(monkeypatch):
         return real_import(name, globals, locals, fromlist, level)
 
     monkeypatch.setattr(builtins, "__import__", spy)
-    recipe = load(os.path.join(os.path.dirname(os.path.dirname(__file__)), "recipes", "marsh-cleanup.yaml"))
+    recipe = load(os.path.join(str(REPO), "recipes", "marsh-cleanup.yaml"))
     chain = design(recipe, 48000)
     d = type("D", (), {"chain": chain, "assessment": assess(chain, recipe.guard, recipe)})()
     assert pictures.picture_of(recipe, d).startswith("<svg")

@@ -72,7 +72,7 @@ def reread(path) -> np.ndarray:
 def ref_lufs(y: np.ndarray) -> float:
     pyln = pytest.importorskip("pyloudnorm")
     # pyloudnorm (reference library). Its "K-weighting" is designed from its own analog parameters rather
-    # than BS.1770-4's 48 kHz table; on noise it reads about 0.04 LU below chainrun (tests/test_loudness.py),
+    # than BS.1770-4's 48 kHz table; on noise it reads about 0.04 LU below chainrun (tests/unit/meters/test_loudness.py),
     # so it is held to the same +-0.1 LU as the meter, not closer.
     return float(pyln.Meter(RATE).integrated_loudness(y))
 

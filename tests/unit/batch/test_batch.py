@@ -11,7 +11,6 @@ import csv
 import dataclasses
 import errno
 import hashlib
-import json
 import math
 import os
 
@@ -25,18 +24,9 @@ from chainrun import design, load
 from chainrun.batch import executors, plan
 from chainrun.batch.discover import Job
 from chainrun.batch import run as batch_run
-from chainrun.fsutil import TEMP_TAG
+from support import by_rel, report_of, temporaries
 
 HEX64 = set("0123456789abcdef")
-
-
-def report_of(outdir) -> dict:
-    with open(os.path.join(outdir, "chainrun-report.json"), encoding="utf-8") as fh:
-        return json.load(fh)
-
-
-def by_rel(report: dict) -> dict:
-    return {f["relpath"]: f for f in report["files"]}
 
 
 def tree(folder) -> dict[str, tuple[str, int]]:
@@ -53,10 +43,6 @@ def tree(folder) -> dict[str, tuple[str, int]]:
 def delivered(outdir) -> list[str]:
     """Audio outputs under OUTDIR: everything but the reports and chainrun's own dot files."""
     return sorted(p for p in tree(outdir) if not os.path.basename(p).startswith((".", "chainrun-report")))
-
-
-def temporaries(folder) -> list[str]:
-    return [p for p in tree(folder) if TEMP_TAG in p]
 
 
 def cookbook_peak(f0: float, gain_db: float, q: float, rate: float) -> np.ndarray:

@@ -20,6 +20,7 @@ import unicodedata
 import numpy as np
 
 from chainrun.text import one_line, shown
+from support import REPO
 
 # Unicode Standard Annex #9, Table 4: the explicit directional formatting characters' classes.
 _EXPLICIT_BIDI = {"LRE", "RLE", "PDF", "LRO", "RLO", "LRI", "RLI", "FSI", "PDI"}
@@ -73,7 +74,7 @@ chain:
 
 
 def _strict_env() -> dict:
-    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    root = str(REPO)
     return dict(os.environ, PYTHONIOENCODING="utf-8:strict",      # as with a strict UTF-8 terminal or CI log
                 PYTHONPATH=root + os.pathsep + os.environ.get("PYTHONPATH", ""))
 

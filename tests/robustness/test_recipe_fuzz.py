@@ -36,8 +36,8 @@ from hypothesis import strategies as st
 
 from chainrun.batch.plan import design_rates
 from chainrun.recipe import Recipe, RecipeError, load
+from support import REPO
 
-REPO = Path(__file__).resolve().parents[1]
 ERROR_RE = re.compile(r"^(?P<path>[^\n]+):(?P<line>\d+):(?P<col>\d+): (?P<kind>error|warning): (?P<msg>[^\n]+)$")
 EXAMPLES = {"structured": 700, "mutated": 600, "bytes": 400, "includes": 300}
 RAN = {k: 0 for k in EXAMPLES}

@@ -8,8 +8,9 @@ from __future__ import annotations
 
 import ast
 from pathlib import Path
+from support import REPO
 
-PKG = Path(__file__).resolve().parents[1] / "chainrun"
+PKG = REPO / "chainrun"
 
 # Floors, lowest first. A package's floor covers all its modules.
 FLOORS = {

@@ -12,6 +12,7 @@ import pytest
 import soundfile as sf
 
 from chainrun.cli import main
+from support import REPO
 
 RATE = 48000
 HOSTILE = ['hot <take 2> & "b".wav', "<img src=x onerror=alert(1)>.wav"]
@@ -301,7 +302,7 @@ def test_clipped_below_full_scale_is_explained(tmp_path, capsys):
 
 # --- the response pictures: hand-made SVG from numpy, drawn when the report is written -------------
 
-ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+ROOT = str(REPO)
 SMOOTH = """\
 format: 1
 name: Saltings smooth chain

@@ -1,7 +1,7 @@
 """chainrun's own names in OUTDIR (the lock and the resume journal) are truncated and appended to: whatever
 is found there that chainrun did not make is refused, never written through (issue #19).
 
-``O_NOFOLLOW`` stops symbolic links only (``tests/test_faults.py``). Here: a hard link to a recording (the
+``O_NOFOLLOW`` stops symbolic links only (``tests/robustness/test_faults.py``). Here: a hard link to a recording (the
 same data under a second name), a FIFO, a device, another user's file. Each must refuse the whole run, in
 one line naming the path, before any audio is read, and leave the thing at the name as it was. The
 expected behaviour rests on POSIX semantics (link(2), mkfifo(3), rename(2), open(2) with O_NONBLOCK), not
