@@ -24,6 +24,7 @@ from functools import lru_cache
 from importlib import resources
 from typing import Any, Iterable
 
+from ..section_types import param_text
 from ..results import CLIPPED, DELIVERED, STATUS_ORDER, STATUSES
 from .cells import (clipped_total, db_cell, esc, gain_cell, loudness_cell, num_text, plain, seconds_text,
                     status_badge)
@@ -301,20 +302,6 @@ def _regions(ordered: list[dict]) -> list[str]:
     return out
 
 
-def _param_text(section: dict) -> str:
-    parts = []
-    for key, value in section.items():
-        if key in ("type", "label", "from"):
-            continue
-        if isinstance(value, (list, tuple)):
-            value = "[" + ", ".join(f"{v:g}" if isinstance(v, float) else str(v) for v in value) + "]"
-        elif isinstance(value, float):
-            value = f"{value:g}"
-        unit = {"freq": " Hz", "gain_db": " dB", "bw": " octaves"}.get(key, "")
-        parts.append(f"{key} {value}{unit}")
-    return ", ".join(parts)
-
-
 def _recipe(data: dict, level: int = 2) -> list[str]:
     recipe = data.get("recipe") or {}
     head = ('<h2 id="recipe">The recipe as resolved</h2>' if level == 2 else
@@ -328,7 +315,7 @@ def _recipe(data: dict, level: int = 2) -> list[str]:
     out.append('<div class="wrap"><table><thead><tr><th class="num">#</th><th>type</th><th>parameters</th>'
                "<th>label</th><th>written at</th></tr></thead><tbody>")
     for k, s in enumerate(recipe.get("chain") or [], 1):
-        out.append(f'<tr><td class="num">{k}</td><td>{esc(s.get("type"))}</td><td>{esc(_param_text(s))}</td>'
+        out.append(f'<tr><td class="num">{k}</td><td>{esc(s.get("type"))}</td><td>{esc(param_text(s))}</td>'
                    f'<td>{esc(s.get("label", ""))}</td><td><code>{esc(s.get("from", ""))}</code></td></tr>')
     out.append("</tbody></table></div>")
     policy = data.get("policy") or {}

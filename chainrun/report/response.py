@@ -75,25 +75,10 @@ def db_text(x: float) -> str:
 
 
 def describe_section(section: Section) -> str:
-    """A short description of a recipe section: type and its main parameters."""
-    p = section.params
-    parts = [section.kind]
-    if "freq" in p:
-        parts.append(hz(float(p["freq"])))
-    if "gain_db" in p:
-        parts.append(f"{p['gain_db']:+g} dB")
-    if "q" in p:
-        parts.append(f"Q {p['q']:g}")
-    if "bw" in p:
-        parts.append(f"bw {p['bw']:g} oct")
-    if "slope" in p and section.kind.endswith("shelf") and p.get("order", 2) == 2 and "q" not in p:
-        parts.append(f"slope {p['slope']:g}")
-    if "order" in p and section.kind in ("highpass", "lowpass") and "q" not in p:
-        parts.append(f"order {p['order']}")
-    if section.kind == "iir":
-        parts.append(f"order {max(len(p['b']), len(p['a'])) - 1}")
-    text = " ".join(parts)
-    return f"{text} ({section.label})" if section.label else text
+    """A short description of a recipe section (the catalogue's, :func:`chainrun.section_types.describe`)."""
+    from ..section_types import describe
+
+    return describe(section)
 
 
 # --------------------------------------------------------------------------- numbers
