@@ -7,7 +7,8 @@ import sys
 from ..app import refuse_audio_recipe, refuse_recipe_inputs, run
 from ..batch.run import MAX_WORKERS
 from ..recipe import RecipeError, load
-from ..results import FAILED, INTERRUPTED
+from ..results import FAILED, INTERRUPTED, SKIPPED
+from ..text import shown
 from .common import EXIT_NOT_OK, EXIT_OK, EXIT_USAGE, _err
 
 
@@ -120,4 +121,10 @@ def main(args: argparse.Namespace) -> int:
                  "no partial file was left, and the next run resumes")
         else:
             _err("chainrun: interrupted after the last file was rendered; every file is in the report")
+    if not result.interrupted and all(r.status == SKIPPED for r in result.results):
+        # an empty or wrong input folder is not a successful run: say what was searched
+        searched = args.inputs or [getattr(args, "plan", None) or "the plan"]
+        _err(f"chainrun: error: no audio found in {', '.join(shown(str(p)) for p in searched)} "
+             f"({len(result.results)} file(s) looked at, none of them audio); nothing was rendered")
+        return EXIT_NOT_OK
     return EXIT_OK if result.all_ok and not outcome.report_errors else EXIT_NOT_OK

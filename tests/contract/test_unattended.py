@@ -60,3 +60,19 @@ def test_a_terminal_keeps_the_bar_and_gets_no_lines(capsys):
     assert _Progress.for_stream(Pipe(), quiet=False).mode == "lines"
     assert _Progress.for_stream(Tty(), quiet=True).mode == "off"
     assert _Progress.for_stream(Pipe(), quiet=True).mode == "off"
+
+
+def test_an_empty_or_wrong_input_folder_is_not_a_successful_run(tmp_path, run_cli):
+    # README "Commands": exit 1 when the run did not do its job; an input folder with no audio in it
+    # (empty, or the wrong folder) is such a run, said in one line naming what was searched.
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text("format: 1\nchain:\n  - {type: gain, gain_db: -1}\n")
+    for name, files in (("empty", {}), ("papers", {"notes.txt": "tide tables"})):
+        folder = tmp_path / name
+        folder.mkdir()
+        for f, text in files.items():
+            (folder / f).write_text(text)
+        status, _, err = run_cli("run", str(recipe), str(folder), "-o", str(tmp_path / f"out-{name}"))
+        lines = [l for l in err.splitlines() if "no audio found" in l]
+        assert status == 1, err
+        assert len(lines) == 1 and str(folder) in lines[0] and "nothing was rendered" in lines[0]
