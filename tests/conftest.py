@@ -277,3 +277,12 @@ def mounts():
     for path in reversed(made):
         if not _Mounts._run("umount", path):
             _Mounts._run("umount", "-l", path)
+
+
+def pytest_collection_modifyitems(config, items):
+    """The robustness and browser folders (real processes, faults, fuzzing, a browser) count as slow:
+    ``pytest -m "not slow"`` is the quick loop of unit and contract tests; CI runs everything."""
+    for item in items:
+        parts = item.path.parts
+        if "robustness" in parts or "browser" in parts:
+            item.add_marker(pytest.mark.slow)
