@@ -101,10 +101,10 @@ class ChannelReading:
     nonfinite_samples : int
         Number of NaN and +-Inf samples (left out of every other figure).
     over_samples : int
-        Number of finite samples with |x| > 1.0 in a float stream (the bank's
-        ``float_overs``): over full scale, kept by the float encoding and
-        recoverable by a gain, so not clipped; 0 for other streams.  Their peak
-        is ``peak``.
+        Number of finite samples past the bank's ``over_level`` (a float
+        stream's: over full scale, kept by the float encoding and recoverable
+        by a gain, so not clipped); 0 for other streams.  Their peak is
+        ``peak``.
     """
 
     peak: float
@@ -257,9 +257,10 @@ class MeterBank:
         largest code counts as at full scale; for a float encoding, which keeps
         samples past 1.0, ``math.inf`` (:func:`chainrun.audio.formats.clip_level`).
         The dB figures are always relative to 1.0.
-    float_overs : bool, optional
-        Count the samples with |x| > 1.0 as over full scale (``over_samples``):
-        for a float encoding, which keeps them (default False).
+    over_level : float, optional
+        Count the samples with |x| > over_level as over full scale
+        (``over_samples``): for a float encoding, which keeps them, 1.0 or
+        :func:`chainrun.audio.formats.over_level` (default infinity: none).
     true_peak : bool, optional
         Meter the true peak (default True).  When False no interpolation is
         computed and ``true_peak`` readings are None.
@@ -294,7 +295,7 @@ class MeterBank:
 
     def __init__(self, rate: int, channels: int, *, full_scale: float = 1.0,
                  true_peak: bool = True, max_regions: int = 20, loudness: bool = False,
-                 channel_mask: int | None = None, float_overs: bool = False) -> None:
+                 channel_mask: int | None = None, over_level: float = math.inf) -> None:
         if isinstance(rate, bool) or not isinstance(rate, (int, np.integer)) or rate <= 0:
             raise ValueError(f"rate must be a positive integer number of Hz, got {rate!r}")
         if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) or channels < 1:
@@ -303,6 +304,9 @@ class MeterBank:
                 or math.isnan(full_scale) or full_scale <= 0:
             raise ValueError(f"full_scale must be a number > 0 (infinity: nothing counts as clipped), "
                              f"got {full_scale!r}")
+        if not isinstance(over_level, (int, float, np.floating, np.integer)) or isinstance(over_level, bool) \
+                or math.isnan(over_level) or over_level <= 0:
+            raise ValueError(f"over_level must be a number > 0 (infinity: nothing counts as over), got {over_level!r}")
         if isinstance(max_regions, bool) or not isinstance(max_regions, (int, np.integer)) or max_regions < 0:
             raise ValueError(f"max_regions must be an integer >= 0, got {max_regions!r}")
         self._rate = int(rate)
@@ -311,7 +315,7 @@ class MeterBank:
         self._peak = PeakMeter(self._rate, self._channels)
         self._rms = RMSMeter(self._rate, self._channels)
         self._clipping = ClippingMeter(self._rate, self._channels, full_scale=float(full_scale),
-                                       max_regions=int(max_regions), float_overs=bool(float_overs))
+                                       max_regions=int(max_regions), over_level=float(over_level))
         self._true_peak = TruePeakMeter(self._rate, self._channels) if true_peak else None
         self._loudness = LoudnessMeter(self._rate, self._channels, channel_mask) if loudness else None
         self._meters: tuple[Meter, ...] = tuple(m for m in (self._peak, self._true_peak, self._rms, self._clipping,

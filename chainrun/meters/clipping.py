@@ -40,18 +40,19 @@ class ClippingMeter:
     the start of a run that reaches the end of the last block. ``full_scale`` may be infinite:
     then no sample counts as clipped (a float encoding keeps every finite value).
 
-    With ``float_overs`` it also counts, per channel, the finite samples with |x| > 1.0 (strictly:
-    a sample of exactly +-1.0 is at full scale, not over it); without, that count stays 0.
+    It also counts, per channel, the finite samples with |x| > ``over_level`` (a float stream's
+    overs: 1.0, or where its encoding stores a value past 1.0; a sample of exactly +-1.0 is at
+    full scale, not over it); with the default, infinity, that count stays 0.
     """
 
     HEADLINE = (("clipped_samples", "clipped", "samples"),
                 ("over_samples", "over full scale (float)", "samples"))
 
     def __init__(self, rate: int, channels: int, *, full_scale: float = 1.0, max_regions: int = 20,
-                 float_overs: bool = False) -> None:
+                 over_level: float = math.inf) -> None:
         c = self._channels = int(channels)
         self._full_scale = float(full_scale)
-        self._float_overs = bool(float_overs)
+        self._over_level = float(over_level)
         self._over = [0] * c
         self._max_regions = int(max_regions)
         self._frames = 0
@@ -67,7 +68,7 @@ class ClippingMeter:
             return
         hi, lo, bad = _extremes(block, extremes)
         base, fs = self._frames, self._full_scale
-        over = 1.0 if self._float_overs else math.inf
+        over = self._over_level
         for c in range(self._channels):
             h, l_ = float(hi[c]), float(lo[c])
             if h >= fs or l_ <= -fs or h > over or l_ < -over or bad is not None:

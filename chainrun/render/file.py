@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import soundfile as sf
 
-from ..audio.formats import clip_level, is_float, output_format
+from ..audio.formats import clip_level, output_format, over_level
 from ..audio.quantise import Quantiser, seed_for, wants_dither
 from ..audio.reader import _Blocks, _why
 from ..audio.metadata.carry import MetaError, OutputMeta
@@ -97,7 +97,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         mask = getattr(src, "channel_mask", None)
         in_meter = MeterBank(src.rate, src.channels, full_scale=clip_level(src.subtype),
                              true_peak=policy.true_peak, max_regions=policy.max_regions,
-                             loudness=policy.loudness, channel_mask=mask, float_overs=is_float(src.subtype))
+                             loudness=policy.loudness, channel_mask=mask, over_level=over_level(src.subtype))
         out_fs = clip_level(out_subtype)
         quantise = Quantiser(out_subtype, res.dither, seed_for(seed_key))
         filt = _Filter(sos, src.channels, bound)
@@ -107,7 +107,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         run = _Run(src, dst, temp_path_for(dst), fmt, out_subtype, out_fs, res, in_meter, quantise, filt,
                    dict(true_peak=out_true_peak, max_regions=policy.max_regions,
                         loudness=policy.loudness or policy.target_lufs is not None, channel_mask=mask,
-                        float_overs=is_float(out_subtype)), meta=meta)
+                        over_level=over_level(out_subtype)), meta=meta)
         on_over = ON_OVER[policy.on_over](policy) if policy.target_lufs is None else Target(policy, group)
         out_meter, over = on_over.render(run)
         if on_over.refuse(res, over):
@@ -234,7 +234,7 @@ def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, r
     res = FileResult(input=src.path, relpath=relpath or src.path, status=FAILED, source=src)
     meter = MeterBank(src.rate, src.channels, full_scale=clip_level(src.subtype), true_peak=true_peak,
                       loudness=loudness, channel_mask=getattr(src, "channel_mask", None),
-                      float_overs=is_float(src.subtype))
+                      over_level=over_level(src.subtype))
     try:
         reader = _Blocks(src, block, meter)
         try:
