@@ -14,10 +14,10 @@ from ..errors import AudioError, BatchError
 from ..guard import Assessment, assess, check_raw_sections
 from ..recipe import Recipe, RecipeError
 from ..recipe.channels import channels_misfit
-from ..audio.reader import cut_short, probe
+from ..audio.reader import NoAudioFrames, cut_short, probe
 from ..render import Policy
 from ..render.policy import float_clip_warning
-from ..results import FAILED, REJECTED, FileResult
+from ..results import FAILED, REJECTED, SKIPPED, FileResult
 from ..text import fault, reason as _reason
 from .discover import Job, discover, discover_plan
 
@@ -59,7 +59,11 @@ def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
 
 
 def probe_job(job: Job) -> Source | FileResult:
-    """The header of one discovered input, or a failed result saying in one line why it cannot be read."""
+    """The header of one discovered input, or a failed result saying in one line why it cannot be read.
+
+    A file that holds no audio frames and declares none (a recorder's false start) is skipped with that
+    reason, not failed: there is nothing to render and nothing wrong with it.
+    """
     try:
         with open(job.input, "rb"):     # a plain open first: its error names the cause (permission denied)
             pass
@@ -67,6 +71,8 @@ def probe_job(job: Job) -> Source | FileResult:
         return FileResult(job.input, job.relpath, FAILED, f"cannot read: {_reason(exc)}")
     try:
         src = probe(job.input)
+    except NoAudioFrames as exc:
+        return FileResult(job.input, job.relpath, SKIPPED, str(exc))
     except AudioError as exc:
         return FileResult(job.input, job.relpath, FAILED, str(exc))
     short = cut_short(src)
