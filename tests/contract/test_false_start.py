@@ -67,3 +67,11 @@ def test_a_header_promising_audio_that_is_not_there_still_fails(tmp_path, write_
     entry = next(f for f in report_of(tmp_path / "out")["files"] if f["relpath"] == "tide.wav")
     # analytic: 4000 frames of 16-bit mono are 8000 bytes of audio
     assert entry["status"] == "failed" and "cut short" in entry["message"] and "declares 8000 bytes" in entry["message"]
+
+
+def test_a_folder_holding_only_a_false_start_rendered_nothing(tmp_path, write_audio, write_recipe, run_cli):
+    # the normal rule for a run that found no audio to render (README 'Commands': 1 ... or no audio found)
+    empty = write_audio("in/false_start.wav", np.zeros((0, 1)), 48000, "PCM_24")
+    status, _, err = run_cli("run", write_recipe(RECIPE), tmp_path / "in", "-o", tmp_path / "out")
+    assert status == 1, err
+    assert f"{empty}: note: skipped: no audio frames" in err and "no audio found" in err
