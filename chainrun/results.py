@@ -30,7 +30,7 @@ STATUSES: dict[str, Status] = {s.word: s for s in (
     Status("clipped", 2, "clipped", "delivered, but chainrun hard-clipped samples, or the true peak passes its "
                                     "ceiling"),
     Status("ok", 3, "", "delivered"),
-    Status("skipped", 4, "", "not processed (not audio, or named twice)"),
+    Status("skipped", 4, "", "not processed (not audio, no audio frames, or named twice)"),
 )}
 OK, CLIPPED, REJECTED, FAILED, SKIPPED = "ok", "clipped", "rejected", "failed", "skipped"
 STATUS_ORDER = {word: s.rank for word, s in STATUSES.items()}

@@ -15,7 +15,7 @@ from ..errors import AudioError
 from .source import Source
 
 __all__ = ["Subtype", "Container", "SUBTYPES", "CONTAINERS", "RF64_THRESHOLD", "writable", "sample_bytes",
-           "full_scale", "output_format"]
+           "full_scale", "is_float", "clip_level", "over_level", "output_format"]
 
 RF64_THRESHOLD = 0xFFFFFFFF - (1 << 20)   # bytes; a RIFF size field cannot say more than 4 GiB
 
@@ -88,14 +88,45 @@ def sample_bytes(subtype: str) -> int:
 
 
 def full_scale(subtype: str) -> float:
-    """The largest magnitude ``subtype`` can hold (1.0 = 0 dBFS); a sample there counts as clipped.
+    """The largest magnitude ``subtype`` can code (1.0 = 0 dBFS); in an integer subtype a sample there is clipped.
 
-    For b-bit PCM it is the largest code, ``(2**(b-1) - 1) / 2**(b-1)``.
+    For b-bit PCM it is the largest code, ``(2**(b-1) - 1) / 2**(b-1)``; 1.0 for a float subtype,
+    which also holds samples past it (:func:`clip_level`).
     """
     if subtype in _COMPANDED_FULL_SCALE:
         return _COMPANDED_FULL_SCALE[subtype]
     bits = SUBTYPES.get(subtype, (None,))[0]
     return (2 ** (bits - 1) - 1) / 2 ** (bits - 1) if bits else 1.0
+
+
+def is_float(subtype: str) -> bool:
+    """True for the floating-point subtypes (FLOAT, DOUBLE): they hold samples past full scale as they are."""
+    row = SUBTYPES.get(subtype)
+    return row is not None and row.dtype is not None and np.dtype(row.dtype).kind == "f"
+
+
+def clip_level(subtype: str) -> float:
+    """Where a sample of ``subtype`` counts as clipped: :func:`full_scale`, or infinity for a float subtype.
+
+    A float sample past 1.0 is not clipped: it is kept, and can be brought back under full scale
+    by a gain (it is "over full scale", which the meters count apart: :func:`over_level`).
+    """
+    return float("inf") if is_float(subtype) else full_scale(subtype)
+
+
+# Float subtype -> the largest float64 magnitude it stores at or under 1.0: FLOAT rounds to nearest,
+# ties to even, so values up to 1 + 2**-24 (halfway to the next float32 above 1.0) are stored as 1.0.
+_OVER_LEVEL = {"FLOAT": 1.0 + 2.0 ** -24, "DOUBLE": 1.0}
+
+
+def over_level(subtype: str) -> float:
+    """Past what magnitude a (float64) sample is stored over full scale by ``subtype``; infinity if never.
+
+    Only a float subtype keeps samples over full scale: a FLOAT file holds past 1.0 whatever does not
+    round to 1.0 in single precision, a DOUBLE file anything past 1.0. An integer subtype clips there
+    (:func:`clip_level`). A sample of exactly +-1.0 is at full scale, not over it.
+    """
+    return _OVER_LEVEL.get(subtype, float("inf"))
 
 
 def output_format(src: Source, subtype: str, extra: int = 0) -> tuple[str, str]:

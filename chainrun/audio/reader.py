@@ -20,7 +20,13 @@ from .formats import _UNPACKED_24, sample_bytes
 from .metadata.carry import read_source_meta
 from .source import Source
 
-__all__ = ["probe", "cut_short", "unpack24"]
+__all__ = ["probe", "cut_short", "unpack24", "NoAudioFrames", "NO_AUDIO_FRAMES"]
+
+NO_AUDIO_FRAMES = "no audio frames: an empty file, such as a recording's false start; nothing to filter"
+
+
+class NoAudioFrames(AudioError):
+    """A whole file that holds no audio frames and declares none: nothing to render, nothing wrong with it."""
 
 
 def probe(path: str) -> Source:
@@ -29,7 +35,8 @@ def probe(path: str) -> Source:
     Raises
     ------
     AudioError
-        If the file cannot be opened as audio, holds no frames or has no channels.
+        If the file cannot be opened as audio, holds no frames or has no channels; for a file
+        that declares and holds no frames at all (and is not cut short), :class:`NoAudioFrames`.
     """
     try:
         st = os.stat(path)
@@ -38,13 +45,15 @@ def probe(path: str) -> Source:
         raise AudioError(_why(exc)) from None
     meta = read_source_meta(path, info.format)
     frames = _streamed_frames(meta, int(info.frames))
-    if frames <= 0:
-        raise AudioError("holds no audio frames; nothing to filter")
     if info.channels <= 0 or info.samplerate <= 0:
         raise AudioError("declares no channels or no sample rate; the header is damaged")
-    return Source(path, int(info.samplerate), int(info.channels), frames, info.format, info.subtype,
-                  st.st_size, st.st_mtime_ns, meta.channel_mask if meta else None, meta,
-                  inode=st.st_ino, ctime_ns=st.st_ctime_ns)
+    src = Source(path, int(info.samplerate), int(info.channels), max(frames, 0), info.format, info.subtype,
+                 st.st_size, st.st_mtime_ns, meta.channel_mask if meta else None, meta,
+                 inode=st.st_ino, ctime_ns=st.st_ctime_ns)
+    if frames <= 0:
+        short = cut_short(src)      # a header promising audio the file does not hold: a copy cut short, not empty
+        raise AudioError(short) if short else NoAudioFrames(NO_AUDIO_FRAMES)
+    return src
 
 
 def _streamed_frames(meta, frames: int) -> int:

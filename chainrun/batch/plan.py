@@ -14,9 +14,10 @@ from ..errors import AudioError, BatchError
 from ..guard import Assessment, assess, check_raw_sections
 from ..recipe import Recipe, RecipeError
 from ..recipe.channels import channels_misfit
-from ..audio.reader import cut_short, probe
+from ..audio.reader import NoAudioFrames, cut_short, probe
 from ..render import Policy
-from ..results import FAILED, REJECTED, FileResult
+from ..render.policy import float_clip_warning
+from ..results import FAILED, REJECTED, SKIPPED, FileResult
 from ..text import fault, reason as _reason
 from .discover import Job, discover, discover_plan
 
@@ -58,7 +59,11 @@ def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
 
 
 def probe_job(job: Job) -> Source | FileResult:
-    """The header of one discovered input, or a failed result saying in one line why it cannot be read."""
+    """The header of one discovered input, or a failed result saying in one line why it cannot be read.
+
+    A file that holds no audio frames and declares none (a recorder's false start) is skipped with that
+    reason, not failed: there is nothing to render and nothing wrong with it.
+    """
     try:
         with open(job.input, "rb"):     # a plain open first: its error names the cause (permission denied)
             pass
@@ -66,6 +71,8 @@ def probe_job(job: Job) -> Source | FileResult:
         return FileResult(job.input, job.relpath, FAILED, f"cannot read: {_reason(exc)}")
     try:
         src = probe(job.input)
+    except NoAudioFrames as exc:
+        return FileResult(job.input, job.relpath, SKIPPED, str(exc))
     except AudioError as exc:
         return FileResult(job.input, job.relpath, FAILED, str(exc))
     short = cut_short(src)
@@ -164,7 +171,7 @@ def prepare_plan(plan, outdir: str, policies: list[Policy]) -> Prepared:
             raise BatchError(f"{raw[0]}; no audio was touched")
     found = discover_plan(plan, outdir)
     prep = _prepare(list(plan.recipes), list(policies), found, outdir)
-    prep.warnings, prep.plan_path = list(found.warnings), plan.path
+    prep.warnings, prep.plan_path = list(found.warnings) + prep.warnings, plan.path
     return prep
 
 
@@ -200,5 +207,8 @@ def _prepare(recipes: list[Recipe], policies: list[Policy], plan, outdir: str) -
         first = next(d for ds in designs for d in ds.values() if not d.usable)
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "
                          f"({', '.join(map(str, sorted(rates)))} Hz); no audio was touched")
+    # once per recipe (and once for --on-over clip), however many float files it renders
+    clip_warnings = [float_clip_warning(r, p, [src.subtype for job, src in work if job.recipe == i])
+                     for i, (r, p) in enumerate(zip(recipes, policies))]
     return Prepared(recipes[0], policies[0], outdir, designs[0], work, results, refused,
-                    recipes, policies, designs)
+                    recipes, policies, designs, list(dict.fromkeys(w for w in clip_warnings if w)))

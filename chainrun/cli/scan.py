@@ -56,6 +56,8 @@ def main(args: argparse.Namespace) -> int:
                   f"{fmt_db(loudest(m, 'true_peak_dbtp'), 'dBTP'):>11} "
                   f"{fmt_db(loudest(m, 'rms_dbfs'), 'dBFS'):>11} {clipped:>8} "
                   f"{loudness_text(m.to_dict()):>11}  {shown(r.relpath)}")
+            if r.message and r.status not in (FAILED, CLIPPED):     # float overs: said here, not an error
+                print(f"{'':<8} {shown(r.message)}")
             line = _metadata_line(r.extra.get("metadata"))
             if line:
                 print(f"{'':<8} {line}")

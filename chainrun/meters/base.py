@@ -100,6 +100,11 @@ class ChannelReading:
         Total number of such runs (may exceed ``len(clipped_regions)``).
     nonfinite_samples : int
         Number of NaN and +-Inf samples (left out of every other figure).
+    over_samples : int
+        Number of finite samples past the bank's ``over_level`` (a float
+        stream's: over full scale, kept by the float encoding and recoverable
+        by a gain, so not clipped); 0 for other streams.  Their peak is
+        ``peak``.
     """
 
     peak: float
@@ -110,6 +115,7 @@ class ChannelReading:
     clipped_regions: tuple[tuple[int, int], ...]
     clipped_region_count: int
     nonfinite_samples: int
+    over_samples: int = 0
 
     @property
     def peak_dbfs(self) -> float:
@@ -144,6 +150,7 @@ class ChannelReading:
             "clipped_regions": [[int(s), int(n)] for s, n in self.clipped_regions],
             "clipped_region_count": int(self.clipped_region_count),
             "nonfinite_samples": int(self.nonfinite_samples),
+            "over_samples": int(self.over_samples),
         }
 
     @classmethod
@@ -153,7 +160,7 @@ class ChannelReading:
                    dc_offset=float(d["dc_offset"] or 0.0), clipped_samples=int(d["clipped_samples"]),
                    clipped_regions=tuple((int(a), int(b)) for a, b in d["clipped_regions"]),
                    clipped_region_count=int(d["clipped_region_count"]),
-                   nonfinite_samples=int(d["nonfinite_samples"]))
+                   nonfinite_samples=int(d["nonfinite_samples"]), over_samples=int(d.get("over_samples", 0)))
 
 
 @dataclass(frozen=True)
@@ -245,9 +252,15 @@ class MeterBank:
     channels : int
         Number of channels (>= 1); every block must have this many rows.
     full_scale : float, optional
-        Samples with |x| >= full_scale count as clipped (> 0, finite).  For
-        b-bit PCM pass ``(2**(b-1) - 1) / 2**(b-1)`` so that the largest code
-        counts as at full scale.  The dB figures are always relative to 1.0.
+        Samples with |x| >= full_scale count as clipped (> 0; ``math.inf``: none
+        does).  For b-bit PCM pass ``(2**(b-1) - 1) / 2**(b-1)`` so that the
+        largest code counts as at full scale; for a float encoding, which keeps
+        samples past 1.0, ``math.inf`` (:func:`chainrun.audio.formats.clip_level`).
+        The dB figures are always relative to 1.0.
+    over_level : float, optional
+        Count the samples with |x| > over_level as over full scale
+        (``over_samples``): for a float encoding, which keeps them, 1.0 or
+        :func:`chainrun.audio.formats.over_level` (default infinity: none).
     true_peak : bool, optional
         Meter the true peak (default True).  When False no interpolation is
         computed and ``true_peak`` readings are None.
@@ -282,14 +295,18 @@ class MeterBank:
 
     def __init__(self, rate: int, channels: int, *, full_scale: float = 1.0,
                  true_peak: bool = True, max_regions: int = 20, loudness: bool = False,
-                 channel_mask: int | None = None) -> None:
+                 channel_mask: int | None = None, over_level: float = math.inf) -> None:
         if isinstance(rate, bool) or not isinstance(rate, (int, np.integer)) or rate <= 0:
             raise ValueError(f"rate must be a positive integer number of Hz, got {rate!r}")
         if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) or channels < 1:
             raise ValueError(f"channels must be an integer >= 1, got {channels!r}")
         if not isinstance(full_scale, (int, float, np.floating, np.integer)) or isinstance(full_scale, bool) \
-                or not math.isfinite(full_scale) or full_scale <= 0:
-            raise ValueError(f"full_scale must be a finite number > 0, got {full_scale!r}")
+                or math.isnan(full_scale) or full_scale <= 0:
+            raise ValueError(f"full_scale must be a number > 0 (infinity: nothing counts as clipped), "
+                             f"got {full_scale!r}")
+        if not isinstance(over_level, (int, float, np.floating, np.integer)) or isinstance(over_level, bool) \
+                or math.isnan(over_level) or over_level <= 0:
+            raise ValueError(f"over_level must be a number > 0 (infinity: nothing counts as over), got {over_level!r}")
         if isinstance(max_regions, bool) or not isinstance(max_regions, (int, np.integer)) or max_regions < 0:
             raise ValueError(f"max_regions must be an integer >= 0, got {max_regions!r}")
         self._rate = int(rate)
@@ -298,7 +315,7 @@ class MeterBank:
         self._peak = PeakMeter(self._rate, self._channels)
         self._rms = RMSMeter(self._rate, self._channels)
         self._clipping = ClippingMeter(self._rate, self._channels, full_scale=float(full_scale),
-                                       max_regions=int(max_regions))
+                                       max_regions=int(max_regions), over_level=float(over_level))
         self._true_peak = TruePeakMeter(self._rate, self._channels) if true_peak else None
         self._loudness = LoudnessMeter(self._rate, self._channels, channel_mask) if loudness else None
         self._meters: tuple[Meter, ...] = tuple(m for m in (self._peak, self._true_peak, self._rms, self._clipping,
@@ -359,7 +376,8 @@ class MeterBank:
             peak=pk.peak[c], true_peak=None if tp is None else tp.true_peak[c], rms=rms.rms[c],
             dc_offset=rms.dc_offset[c], clipped_samples=clip.clipped_samples[c],
             clipped_regions=clip.clipped_regions[c], clipped_region_count=clip.clipped_region_count[c],
-            nonfinite_samples=pk.nonfinite_samples[c]) for c in range(self._channels))
+            nonfinite_samples=pk.nonfinite_samples[c], over_samples=clip.over_samples[c])
+            for c in range(self._channels))
         self._reading = MeterReading(channels=chans, frames=self._frames, rate=self._rate,
                                      true_peak_oversampling=None if tp is None else tp.oversampling,
                                      loudness=None if self._loudness is None else self._loudness.reading())

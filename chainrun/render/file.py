@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import soundfile as sf
 
-from ..audio.formats import full_scale, output_format
+from ..audio.formats import clip_level, output_format, over_level
 from ..audio.quantise import Quantiser, seed_for, wants_dither
 from ..audio.reader import _Blocks, _why
 from ..audio.metadata.carry import MetaError, OutputMeta
@@ -31,7 +31,7 @@ from .filter import _Filter
 from .loudness import Group, Target
 from .policy import DEFAULT_BLOCK, ON_OVER, Policy
 
-__all__ = ["render_file", "scan_file", "bext_loudness"]
+__all__ = ["render_file", "scan_file", "bext_loudness", "overs_text"]
 
 
 @dataclass
@@ -95,10 +95,10 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         res.out_format, res.out_subtype = fmt, out_subtype
         res.dither = wants_dither(policy.dither, src.subtype, out_subtype)
         mask = getattr(src, "channel_mask", None)
-        in_meter = MeterBank(src.rate, src.channels, full_scale=full_scale(src.subtype),
+        in_meter = MeterBank(src.rate, src.channels, full_scale=clip_level(src.subtype),
                              true_peak=policy.true_peak, max_regions=policy.max_regions,
-                             loudness=policy.loudness, channel_mask=mask)
-        out_fs = full_scale(out_subtype)
+                             loudness=policy.loudness, channel_mask=mask, over_level=over_level(src.subtype))
+        out_fs = clip_level(out_subtype)
         quantise = Quantiser(out_subtype, res.dither, seed_for(seed_key))
         filt = _Filter(sos, src.channels, bound)
         # A true-peak ceiling is always checked: without true-peak metering (--no-true-peak) the
@@ -106,13 +106,15 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         out_true_peak = policy.true_peak or policy.true_peak_ceiling_dbtp is not None
         run = _Run(src, dst, temp_path_for(dst), fmt, out_subtype, out_fs, res, in_meter, quantise, filt,
                    dict(true_peak=out_true_peak, max_regions=policy.max_regions,
-                        loudness=policy.loudness or policy.target_lufs is not None, channel_mask=mask), meta=meta)
+                        loudness=policy.loudness or policy.target_lufs is not None, channel_mask=mask,
+                        over_level=over_level(out_subtype)), meta=meta)
         on_over = ON_OVER[policy.on_over](policy) if policy.target_lufs is None else Target(policy, group)
         out_meter, over = on_over.render(run)
         if on_over.refuse(res, over):
             _remove_quietly(run.tmp)
             run.tmp = None
             res.input_meters, res.output_meters = in_meter.result(), out_meter.result()
+            _note_overs(res)
             return res
 
         at_ceiling = res.clipped_by_chainrun          # by the clip policy; the rest by the word length
@@ -136,6 +138,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
         elif res.gain_db:
             res.message = (f"scaled by {res.gain_db:.2f} dB to fit the ceiling" if res.gain_db <= -0.005
                            else "scaled by less than 0.01 dB to fit the ceiling")
+        _note_overs(res)
         return res
     except AudioError as exc:
         res.status, res.message = FAILED, str(exc)
@@ -182,6 +185,24 @@ def bext_loudness(reading) -> dict | None:
     return {k: v for k, v in values.items() if v is not None}
 
 
+def overs_text(reading) -> str:
+    """``N sample(s) over full scale (float), peak +X.XX dBFS`` for a reading with float overs, else ""."""
+    if reading is None:
+        return ""
+    n = sum(c.over_samples for c in reading.channels)
+    if not n:
+        return ""
+    return f"{n} sample(s) over full scale (float), peak {_db(max(c.peak for c in reading.channels)):+.2f} dBFS"
+
+
+def _note_overs(res: FileResult) -> None:
+    """Add to the message what the float input holds over full scale (not clipped: a gain recovers it)."""
+    said = overs_text(res.input_meters)
+    if said:
+        said = f"the input has {said}: recoverable, not clipped"
+        res.message = f"{res.message}; {said}" if res.message else said
+
+
 def _clipped_message(at_ceiling: int, out_peak: float, policy: Policy, by_codes: int, out_subtype: str,
                      tp_left: float) -> str:
     """What was clipped, and where: at the ceiling, at the largest code, or a true peak left over its ceiling."""
@@ -205,12 +226,15 @@ def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, r
     """Meter an existing file; nothing is written. Status ok, clipped (samples at full scale) or failed.
 
     ``loudness`` meters its loudness too (BS.1770-4, channel weights from the file's
-    channel mask when it has one).
+    channel mask when it has one). A float file's samples past full scale are not clipped (the
+    file keeps them, a gain brings them back): the file is ok, and its message counts them
+    (:func:`overs_text`); a sample of exactly +-1.0 is at full scale, not over it.
     """
     t0 = time.perf_counter()
     res = FileResult(input=src.path, relpath=relpath or src.path, status=FAILED, source=src)
-    meter = MeterBank(src.rate, src.channels, full_scale=full_scale(src.subtype), true_peak=true_peak,
-                      loudness=loudness, channel_mask=getattr(src, "channel_mask", None))
+    meter = MeterBank(src.rate, src.channels, full_scale=clip_level(src.subtype), true_peak=true_peak,
+                      loudness=loudness, channel_mask=getattr(src, "channel_mask", None),
+                      over_level=over_level(src.subtype))
     try:
         reader = _Blocks(src, block, meter)
         try:
@@ -224,6 +248,8 @@ def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, r
         res.status = CLIPPED if clipped else OK
         if clipped:
             res.message = f"{clipped} sample(s) at or beyond full scale"
+        else:
+            res.message = overs_text(res.input_meters)
     except AudioError as exc:
         res.message = str(exc)
     except (sf.LibsndfileError, RuntimeError, OSError) as exc:

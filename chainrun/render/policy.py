@@ -14,6 +14,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from ..version import __version__
+from ..audio.formats import is_float
 from ..audio.reader import _Blocks
 from ..audio.writer import _Output
 from ..errors import BatchError
@@ -26,7 +27,8 @@ from .pipeline import _Scratch, _pipeline
 if TYPE_CHECKING:
     from ..recipe import Recipe
 
-__all__ = ["Policy", "DEFAULT_BLOCK", "MIN_BLOCK", "MAX_BLOCK", "ON_OVER", "Reject", "Clip", "Scale", "LOUDNESS_LINKS"]
+__all__ = ["Policy", "DEFAULT_BLOCK", "MIN_BLOCK", "MAX_BLOCK", "ON_OVER", "Reject", "Clip", "Scale", "LOUDNESS_LINKS",
+           "float_clip_warning"]
 
 DEFAULT_BLOCK = 65536
 LOUDNESS_LINKS = ("file", "folder", "batch")     # over what one loudness gain is measured
@@ -142,7 +144,7 @@ class OnOver:
 
     :meth:`render` gets the file's ``run`` from ``render_file``: ``src``, ``dst``, ``tmp``
     (the temporary output), ``scratch`` (a scratch file to remove, or None), ``fmt``,
-    ``out_subtype``, ``out_fs`` (its full scale), ``res`` (the FileResult being filled),
+    ``out_subtype``, ``out_fs`` (where its samples clip: infinite for a float output), ``res`` (the FileResult being filled),
     ``in_meter``, ``quantise``, ``filt`` and ``meter_args`` (for the output meters).
     """
 
@@ -309,6 +311,28 @@ def write_from_scratch(run, policy: Policy, gain: float) -> MeterBank:
     _remove_quietly(run.scratch)
     run.scratch = None
     return out_meter
+
+
+def float_clip_warning(recipe, policy: Policy, subtypes) -> str | None:
+    """The warning for ``on_over: clip`` when some output (of input subtypes ``subtypes``) is float, or None.
+
+    A float file keeps samples over full scale, and a gain brings them back; clipping them at the
+    ceiling throws that away for good. The warning is located at the recipe's ``on_over`` key (or
+    names ``--on-over`` when the command line chose clip); a loudness target never clips, so it has none.
+    """
+    if policy.on_over != "clip" or policy.target_lufs is not None:
+        return None
+    if not any(is_float(s if policy.subtype == "same" else policy.subtype) for s in subtypes):
+        return None
+    guard = getattr(recipe, "guard", None)
+    if guard is not None and guard.on_over == "clip":
+        where = guard.where.get("on_over") if getattr(guard, "where", None) else None
+        head = f"{where or recipe.path}: warning: on_over: clip"
+    else:
+        head = "chainrun: warning: --on-over clip"
+    return (f"{head} hard-clips float output at the ceiling, which destroys the headroom a float recording "
+            "keeps over full scale (it is recoverable by a gain); for float takes use on_over: scale or a "
+            "loudness target")
 
 
 # on_over word -> what it does.

@@ -265,8 +265,8 @@ def test_scan_reports_the_constructed_clip_runs(tmp_path, write_audio, run_cli):
     x[20000:20004, 1] = -32768         # channel 2: one run of 4
     write_audio("in/clips16.wav", x, rate, "PCM_16")
     f = np.zeros(9000)
-    f[100:105] = 1.0                   # float file: 1.0 and beyond count
-    f[200:202] = -2.5
+    f[100:105] = 1.0                   # float file: 1.0 is at full scale, not over it; and not clipped
+    f[200:202] = -2.5                  # over full scale, kept by the float file: not clipped either
     f[300] = 0.9999
     write_audio("in/clipsf.wav", f, rate, "FLOAT")
     write_audio("in/clean.wav", np.full(9000, 0.5), rate, "PCM_24")
@@ -279,12 +279,13 @@ def test_scan_reports_the_constructed_clip_runs(tmp_path, write_audio, run_cli):
     assert c1["clipped_region_count"] == 4 and c1["clipped_samples"] == 26
     assert c2["clipped_regions"] == [[20000, 4]] and c2["clipped_samples"] == 4
     (cf,) = files["clipsf.wav"]["input_meters"]["channels"]
-    assert cf["clipped_regions"] == [[100, 5], [200, 2]] and cf["clipped_samples"] == 7
-    assert files["clips16.wav"]["status"] == "clipped" and files["clipsf.wav"]["status"] == "clipped"
+    # analytic: a float file clips nowhere; two samples of -2.5 lie past full scale (|x| > 1.0)
+    assert cf["clipped_regions"] == [] and cf["clipped_samples"] == 0 and cf["over_samples"] == 2
+    assert files["clips16.wav"]["status"] == "clipped" and files["clipsf.wav"]["status"] == "ok"
     assert files["clean.wav"]["status"] == "ok"
     assert files["clean.wav"]["input_meters"]["channels"][0]["clipped_samples"] == 0
     lines = [ln for ln in err.splitlines() if ln.strip()]
-    assert len(lines) == 2 and all("clipped" in ln for ln in lines)
+    assert len(lines) == 1 and "clips16.wav: clipped:" in lines[0]
     assert sorted(audio_files(tmp_path / "in")) == ["clean.wav", "clips16.wav", "clipsf.wav"]   # writes nothing
 
 

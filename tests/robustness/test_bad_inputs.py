@@ -153,8 +153,8 @@ def header_cut_short(ctx):
 
 @case
 def header_without_any_data(ctx):
-    p = ctx.put("curlew.wav", bytes(canonical_wav()[:44]))      # declares 8000 bytes, holds none
-    return Case(p, rel(p, ctx), ("no audio frames",))
+    p = ctx.put("curlew.wav", bytes(canonical_wav()[:44]))      # declares 8000 bytes, holds none: a copy cut short
+    return Case(p, rel(p, ctx), ("cut short", "declares 8000 bytes", "holds 0", "0 of 4000 frames"))
 
 
 @case
@@ -202,12 +202,6 @@ def flac_stream_cut_short(ctx):
     b = wav_bytes(noise(40_000, 2), fmt="FLAC")
     p = ctx.put("reed_warbler.flac", b[: len(b) // 2])     # the frame count is in STREAMINFO; the decoder finds out
     return Case(p, rel(p, ctx), ("not readable as audio",))
-
-
-@case
-def zero_frames(ctx):
-    p = ctx.audio("empty_take.wav", np.zeros((0, 1)))
-    return Case(p, rel(p, ctx), ("no audio frames",))
 
 
 # --- not audio at all, or not an encoding chainrun can deliver ------------------------------------
@@ -554,6 +548,21 @@ def test_a_file_named_twice_is_rendered_once_with_a_note(tmp_path, run_cli, refe
     assert note == f"{good}: note: skipped: the same file as {good}; rendered once"
     assert (ctx.out / GOOD_REL).read_bytes() == reference
     assert (ctx.out / "host_take.wav").exists() is False        # not a second copy at the top
+    assert tree_hashes(ctx.inp) == before
+
+
+def test_a_zero_frame_false_start_is_skipped_with_a_note(tmp_path, run_cli, reference, tree_hashes):
+    ctx, recipe = _batch(tmp_path)
+    empty = ctx.audio("empty_take.wav", np.zeros((0, 1)))       # a header declaring no audio, and none there
+    before = tree_hashes(ctx.inp)
+    status, _, err = run_cli("run", recipe, ctx.inp, "-o", ctx.out, "--workers", "1")
+    assert status == 0, err              # README 'Output and reports': a skipped file is not a failure
+    (note,) = [ln for ln in err.splitlines() if ln.startswith(empty + ":")]
+    entry = [f for f in report_of(ctx.out)["files"] if f["input"] == empty][0]
+    assert entry["status"] == "skipped" and "no audio frames" in entry["message"]
+    assert note == f"{empty}: note: skipped: {entry['message']}"
+    assert not os.path.lexists(ctx.out / "marsh" / "empty_take.wav") and temporaries(ctx.out) == []
+    assert (ctx.out / GOOD_REL).read_bytes() == reference
     assert tree_hashes(ctx.inp) == before
 
 

@@ -424,7 +424,9 @@ def test_a_scale_below_a_hundredth_of_a_db_is_not_shown_as_zero(tmp_path, write_
     out.mkdir()
     res = render_file(src, str(out / "hair.wav"), UNITY, 1.0, Policy(on_over="scale"), "hair.wav")
     assert res.status == "ok" and res.gain_db == pytest.approx(-20 * np.log10(1.0001), abs=1e-9)
-    assert res.message == "scaled by less than 0.01 dB to fit the ceiling"
+    # analytic: the one sample of 1.0001 lies over full scale, by 20*log10(1.0001) = +0.00 dB at two decimals
+    assert res.message == ("scaled by less than 0.01 dB to fit the ceiling; the input has 1 sample(s) over full "
+                           "scale (float), peak +0.00 dBFS: recoverable, not clipped")
 
 
 def test_reject_at_a_peak_one_rounding_above_the_ceiling(tmp_path, write_audio):
