@@ -108,3 +108,76 @@ def test_a_symlink_loop_include_is_called_a_loop(tmp_path, run_cli):
     assert "does not exist" not in str(info.value) and "\n" not in str(info.value)
     status, _, err = run_cli("check", top)
     assert status == 1 and "symbolic link loop" in err and len(err.splitlines()) == 1
+
+
+# =========================================================================== a hand-edited journal (a)
+
+JOURNAL_EDITS = {
+    "seconds as text": (lambda d: d["result"].__setitem__("seconds", "fast"), "entry.result.seconds is text"),
+    "a status nobody writes": (lambda d: d["result"].__setitem__("status", 3), "entry.result.status is 3"),
+    "a peak as text": (lambda d: d["result"]["output_meters"]["channels"][0].__setitem__("true_peak", "loud"),
+                       "entry.result.output_meters.channels[0].true_peak is text"),
+    "a metadata note as a number": (lambda d: d["result"]["metadata"].__setitem__("notes", [7]),
+                                    "entry.result.metadata.notes[0] is an integer"),
+    "relpath as a list": (lambda d: d.__setitem__("relpath", ["a.wav"]), "entry.relpath is a list"),
+}
+
+
+@pytest.mark.parametrize("edit", JOURNAL_EDITS, ids=list(JOURNAL_EDITS))
+def test_a_hand_edited_journal_line_is_ignored_with_a_located_warning(tmp_path, run_cli, write_audio, edit):
+    import json
+
+    import numpy as np
+
+    from chainrun.batch.outdir import JOURNAL_NAME
+
+    rng = np.random.default_rng(3)
+    for name in ("a.wav", "b.wav"):
+        write_audio(f"in/{name}", rng.uniform(-0.3, 0.3, (4800, 2)), subtype="PCM_24")
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text("format: 1\nchain:\n" + GAIN)
+    out = tmp_path / "out"
+    status, _, err = run_cli("run", "-q", "--workers", "1", recipe, tmp_path / "in", "-o", out)
+    assert status == 0, err
+    journal = out / JOURNAL_NAME
+    entries = [json.loads(line) for line in journal.read_text().splitlines()]
+    number = next(i for i, e in enumerate(entries, 1) if e["relpath"] == "a.wav")
+    change, words = JOURNAL_EDITS[edit]
+    change(entries[number - 1])
+    journal.write_text("".join(json.dumps(e) + "\n" for e in entries))
+    report = out / "chainrun-report.json"
+    os.utime(report, ns=(0, 0))
+    # before the fix: "chainrun: internal error: TypeError ..." after rendering, last run's reports left in place
+    status, _, err = run_cli("run", "-q", "--workers", "1", recipe, tmp_path / "in", "-o", out)
+    assert status == 0, err
+    warnings = [line for line in err.splitlines() if ": warning: " in line]
+    assert warnings == [f"{journal}:{number}: warning: {warnings[0].split(': warning: ', 1)[1]}"]
+    assert words in warnings[0] and "line ignored" in warnings[0]
+    assert "1 file(s) already delivered" in err                       # b.wav kept, a.wav rendered again
+    assert os.stat(report).st_mtime_ns > 0                             # the reports are this run's
+    files = {f["relpath"]: f["status"] for f in json.loads(report.read_text())["files"]}
+    assert files == {"a.wav": "ok", "b.wav": "ok"}
+    # a.wav is recorded again by a later line: the next run keeps both files, and has nothing to warn about
+    # unless the bad line does not even say which file it was about
+    status, _, err = run_cli("run", "-q", "--workers", "1", recipe, tmp_path / "in", "-o", out)
+    assert status == 0 and "2 file(s) already delivered" in err
+    assert (": warning: " in err) == (edit == "relpath as a list")
+
+
+def test_journal_types_accept_what_the_renderer_records(tmp_path, write_audio):
+    import json
+
+    import numpy as np
+
+    from chainrun import filter_file, loads
+    from chainrun.batch.journal_types import line_problem
+
+    src = write_audio("a.wav", np.random.default_rng(4).uniform(-0.3, 0.3, (48000, 2)), subtype="PCM_24")
+    r = filter_file(loads("format: 1\nloudness: {target_lufs: -20}\nguard: {on_over: scale}\nchain:\n" + GAIN),
+                    str(src), str(tmp_path / "o.wav"))
+    fp = {"size": 1, "mtime_ns": 2, "inode": 3, "ctime_ns": 4, "sample_sha256": "ab"}
+    line = json.loads(json.dumps({"relpath": "a.wav", "key": "k", "input": fp, "output": fp,
+                                  "result": r.to_record()}))
+    assert r.output_meters.loudness is not None and line_problem(line) is None
+    line["result"]["output_meters"]["loudness"]["channel_weights"] = ["one"]
+    assert line_problem(line) == "entry.result.output_meters.loudness.channel_weights[0] is text, not a number"
