@@ -181,3 +181,51 @@ def test_journal_types_accept_what_the_renderer_records(tmp_path, write_audio):
     assert r.output_meters.loudness is not None and line_problem(line) is None
     line["result"]["output_meters"]["loudness"]["channel_weights"] = ["one"]
     assert line_problem(line) == "entry.result.output_meters.loudness.channel_weights[0] is text, not a number"
+
+
+# =========================================================================== the cluster's last input check (k)
+
+def test_a_cluster_run_checks_the_input_once_more_before_its_journal_line(tmp_path, run_cli, write_audio,
+                                                                           monkeypatch):
+    import importlib.util
+    import json
+
+    import numpy as np
+    import soundfile as sf
+
+    if importlib.util.find_spec("distributed") is None:
+        pytest.skip("Dask's distributed scheduler is not installed")
+    import distributed
+
+    rng = np.random.default_rng(5)
+    for name in ("curlew.wav", "tide.wav"):
+        write_audio(f"in/{name}", rng.uniform(-0.3, 0.3, (20_000, 2)), subtype="PCM_24")
+    victim = tmp_path / "in" / "tide.wav"
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text("format: 1\nchain:\n" + GAIN)
+    real_wait = distributed.wait
+    swapped = []
+
+    def wait_then_swap(futures, *a, **k):
+        # in the parent, after the worker rendered tide.wav and before its result is accounted for: another
+        # recording put in its place (same size and modification time, another inode)
+        done, rest = real_wait(futures, *a, **k)
+        for fut in done:
+            if not swapped and fut.status == "finished" and fut.result().relpath == "tide.wav":
+                st = victim.stat()
+                other = tmp_path / "other.wav"
+                sf.write(str(other), rng.uniform(-0.3, 0.3, (20_000, 2)), 48000, subtype="PCM_24")
+                assert other.stat().st_size == st.st_size
+                os.utime(other, ns=(st.st_atime_ns, st.st_mtime_ns))
+                os.replace(other, victim)
+                swapped.append(fut)
+        return done, rest
+
+    monkeypatch.setattr(distributed, "wait", wait_then_swap)
+    status, _, err = run_cli("run", "-q", recipe, tmp_path / "in", "-o", tmp_path / "out", "--cluster", "local:1")
+    monkeypatch.undo()
+    # chainrun's own contract (RELIABILITY.md, issue 19 item 9): whatever renders the file, an input replaced
+    # after it was rendered is failed and not journaled (before: the cluster recorded it as delivered)
+    assert swapped and status == 1 and "tide.wav" in err and "replaced or changed right after it was rendered" in err, err
+    journal = [json.loads(line)["relpath"] for line in (tmp_path / "out" / ".chainrun-journal.jsonl").open()]
+    assert journal == ["curlew.wav"]
