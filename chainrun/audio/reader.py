@@ -20,7 +20,12 @@ from .formats import _UNPACKED_24, sample_bytes
 from .metadata.carry import read_source_meta
 from .source import Source
 
-__all__ = ["probe", "cut_short", "unpack24"]
+__all__ = ["probe", "cut_short", "unpack24", "MIN_RATE", "MAX_RATE"]
+
+# The sample rates chainrun accepts, in Hz. Above 768 kHz (the highest rate of audio interfaces) there is
+# room for ultrasound recordings; a header declaring more than 1 MHz, less than 1 Hz, NaN or infinity
+# is damaged (libsndfile reads an AIFF rate of NaN or infinity as 67108864 Hz, and 0 as 1 Hz).
+MIN_RATE, MAX_RATE = 1, 1_000_000
 
 
 def probe(path: str) -> Source:
@@ -42,9 +47,20 @@ def probe(path: str) -> Source:
         raise AudioError("holds no audio frames; nothing to filter")
     if info.channels <= 0 or info.samplerate <= 0:
         raise AudioError("declares no channels or no sample rate; the header is damaged")
+    _check_rate(info.samplerate, getattr(meta.layout, "rate", None) if meta is not None else None)
     return Source(path, int(info.samplerate), int(info.channels), frames, info.format, info.subtype,
                   st.st_size, st.st_mtime_ns, meta.channel_mask if meta else None, meta,
                   inode=st.st_ino, ctime_ns=st.st_ctime_ns)
+
+
+def _check_rate(rate: int, written: float | None) -> None:
+    """Refuse a rate outside MIN_RATE..MAX_RATE: libsndfile's, or the one the header writes (AIFF: a float)."""
+    shown = rate if written is None else written
+    if written is not None and not (math.isfinite(written) and MIN_RATE <= written <= MAX_RATE) \
+            or not MIN_RATE <= rate <= MAX_RATE:
+        value = f"{shown:g}" if isinstance(shown, float) else str(shown)
+        raise AudioError(f"its header declares a sample rate of {value} Hz; accepted: {MIN_RATE} to {MAX_RATE} Hz; "
+                         "the header is damaged, not rendered")
 
 
 def _streamed_frames(meta, frames: int) -> int:

@@ -229,3 +229,64 @@ def test_a_cluster_run_checks_the_input_once_more_before_its_journal_line(tmp_pa
     assert swapped and status == 1 and "tide.wav" in err and "replaced or changed right after it was rendered" in err, err
     journal = [json.loads(line)["relpath"] for line in (tmp_path / "out" / ".chainrun-journal.jsonl").open()]
     assert journal == ["curlew.wav"]
+
+
+# =========================================================================== odd AIFF rates (b)
+
+def _aiff_with_rate(path, ext80: bytes):
+    import numpy as np
+    import soundfile as sf
+
+    sf.write(str(path), np.random.default_rng(6).uniform(-0.3, 0.3, (4800, 2)), 48000, subtype="PCM_16")
+    data = bytearray(path.read_bytes())
+    at = data.index(b"COMM") + 16           # id, size, channels (2), frames (4), bits (2): then the rate (10)
+    data[at:at + 10] = ext80
+    path.write_bytes(bytes(data))
+    return path
+
+
+def test_the_aiff_rate_is_read_as_libsndfile_writes_it(tmp_path):
+    import numpy as np
+    import soundfile as sf
+
+    from chainrun.audio.metadata.aiff import extended, read_layout
+
+    # the reference is libsndfile's own writer: each rate it writes reads back exactly
+    for rate in (8000, 11025, 44100, 48000, 96000, 192000, 768000):
+        path = tmp_path / f"r{rate}.aiff"
+        sf.write(str(path), np.zeros((10, 1)), rate, subtype="PCM_16")
+        assert read_layout(str(path)).rate == rate
+    # IEEE 754 double extended: exponent 0x7FFF with a zero fraction is infinity, otherwise NaN
+    assert extended(bytes.fromhex("7fff8000000000000000")) == float("inf")
+    assert extended(bytes.fromhex("ffff8000000000000000")) == float("-inf")
+    assert extended(bytes.fromhex("7fffc000000000000000")) != extended(bytes.fromhex("7fffc000000000000000"))
+    assert extended(bytes(10)) == 0.0 and extended(bytes.fromhex("3ffe8000000000000000")) == 0.5
+
+
+@pytest.mark.parametrize("ext80, shown", [
+    ("7fffc000000000000000", "nan"),       # libsndfile reads it as 67108864 Hz (measured, libsndfile 1.2.2)
+    ("7fff8000000000000000", "inf"),       # the same
+    ("00000000000000000000", "0"),         # libsndfile reads 1 Hz
+    ("3ffe8000000000000000", "0.5"),       # libsndfile reads 1 Hz
+    ("4013f424000000000000", "2e+06"),     # 2 MHz
+])
+def test_an_aiff_with_an_absurd_rate_is_refused_naming_the_rate(tmp_path, run_cli, ext80, shown):
+    (tmp_path / "in").mkdir()
+    src = _aiff_with_rate(tmp_path / "in" / "tideline.aiff", bytes.fromhex(ext80))
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text("format: 1\nchain:\n" + GAIN)
+    # before the fix: designed at 67 MHz (or 1 Hz) and delivered ok
+    status, _, err = run_cli("run", "-q", recipe, src, "-o", tmp_path / "out")
+    lines = [line for line in err.splitlines() if "tideline.aiff" in line]
+    assert status == 1 and len(lines) == 1 and "error:" in lines[0], err
+    assert f"declares a sample rate of {shown} Hz; accepted: 1 to 1000000 Hz" in lines[0]
+    assert not (tmp_path / "out" / "tideline.aiff").exists()
+
+
+def test_a_wav_above_one_megahertz_is_refused(tmp_path, run_cli, write_audio):
+    src = write_audio("fast.wav", [[0.1, -0.1]] * 4800, rate=2_000_000)
+    status, _, err = run_cli("scan", src)
+    assert status == 1 and "declares a sample rate of 2000000 Hz; accepted: 1 to 1000000 Hz" in err
+    ok = write_audio("ok.wav", [[0.1, -0.1]] * 4800, rate=1_000_000)
+    status, _, err = run_cli("scan", ok)
+    assert status == 0, err
