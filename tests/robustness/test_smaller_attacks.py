@@ -290,3 +290,33 @@ def test_a_wav_above_one_megahertz_is_refused(tmp_path, run_cli, write_audio):
     ok = write_audio("ok.wav", [[0.1, -0.1]] * 4800, rate=1_000_000)
     status, _, err = run_cli("scan", ok)
     assert status == 0, err
+
+
+# =========================================================================== float extremes (e)
+
+@pytest.mark.parametrize("policy", ["reject", "clip", "scale"])
+def test_double_samples_near_the_largest_float_meter_without_warnings(tmp_path, run_cli, write_audio, policy):
+    """The meters and each policy read a file of +-1.7977e308 without a numpy warning, with defined figures."""
+    import json
+    import math
+
+    import numpy as np
+
+    big = np.finfo(np.float64).max                     # IEEE 754 binary64: about 1.7977e308
+    x = np.zeros((4800, 2))
+    x[::2], x[1::2] = big, -big                        # the running sum of x overflows to inf, then inf - inf
+    src = write_audio("in/flood.wav", x, subtype="DOUBLE")
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(f"format: 1\nguard: {{on_over: {policy}}}\nchain:\n" + GAIN)
+    # run_cli fails on any Python warning (numpy's "invalid value encountered in reduce" before the fix)
+    status, _, err = run_cli("scan", src)
+    assert status == 1 and "flood.wav: clipped" in err
+    status, _, err = run_cli("run", "-q", recipe, src, "-o", tmp_path / "out")
+    # reject: one line, nothing delivered; clip: delivered, one line; scale: 6165 dB down, delivered ok
+    assert status == (0 if policy == "scale" else 1), err
+    assert len([line for line in err.splitlines() if "flood.wav" in line]) == (policy != "scale")
+    report = json.loads((tmp_path / "out" / "chainrun-report.json").read_text())["files"][0]
+    ch = report["input_meters"]["channels"][0]
+    # analytic: 20*log10(1.7977e308) = 6164.09 dB; the RMS and the DC offset have no binary64 value along the
+    # way (x**2 and the sum overflow) and read None, chainrun's own convention for a non-finite figure
+    assert ch["peak_dbfs"] == pytest.approx(20 * math.log10(big)) and ch["rms"] is None and ch["dc_offset"] is None
