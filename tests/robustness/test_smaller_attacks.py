@@ -320,3 +320,26 @@ def test_double_samples_near_the_largest_float_meter_without_warnings(tmp_path, 
     # analytic: 20*log10(1.7977e308) = 6164.09 dB; the RMS and the DC offset have no binary64 value along the
     # way (x**2 and the sum overflow) and read None, chainrun's own convention for a non-finite figure
     assert ch["peak_dbfs"] == pytest.approx(20 * math.log10(big)) and ch["rms"] is None and ch["dc_offset"] is None
+
+
+# =========================================================================== containers chainrun cannot write (i)
+
+@pytest.mark.parametrize("name, fmt, subtype", [("rip.ogg", "OGG", "VORBIS"), ("memo.opus", "OGG", "OPUS"),
+                                                ("podcast.mp3", "MP3", "MPEG_LAYER_III")])
+@pytest.mark.parametrize("chosen", ["same", "PCM_24"])
+def test_lossy_containers_are_refused_with_what_to_use_instead(tmp_path, run_cli, name, fmt, subtype, chosen):
+    import numpy as np
+    import soundfile as sf
+
+    if subtype not in sf.available_subtypes(fmt):           # pragma: no cover - depends on libsndfile
+        pytest.skip(f"this libsndfile cannot write {fmt} {subtype}")
+    src = tmp_path / name
+    sf.write(str(src), np.random.default_rng(8).uniform(-0.3, 0.3, (9600, 2)), 48000, format=fmt, subtype=subtype)
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(f"format: 1\noutput: {{subtype: {chosen}}}\nchain:\n" + GAIN)
+    status, _, err = run_cli("run", "-q", recipe, src, "-o", tmp_path / "out")
+    # before the fix: "a OGG file cannot hold PCM_24; choose another output.subtype", though none works
+    lines = [line for line in err.splitlines() if name in line]
+    assert status == 1 and len(lines) == 1, err
+    assert f"chainrun cannot write {fmt} files ({subtype})" in lines[0] and "convert the recording to WAV" in lines[0]
+    assert "choose another output.subtype" not in err and not (tmp_path / "out" / name).exists()
