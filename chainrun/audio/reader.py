@@ -26,6 +26,9 @@ __all__ = ["probe", "cut_short", "unpack24", "MIN_RATE", "MAX_RATE"]
 # room for ultrasound recordings; a header declaring more than 1 MHz, less than 1 Hz, NaN or infinity
 # is damaged (libsndfile reads an AIFF rate of NaN or infinity as 67108864 Hz, and 0 as 1 Hz).
 MIN_RATE, MAX_RATE = 1, 1_000_000
+# libsndfile copies a path into a buffer of 1024 bytes: a longer one fails to open as "System error"
+# or "Supplied filename too long" (measured with libsndfile 1.2.2: 1023 bytes open, 1024 do not).
+SNDFILE_MAX_PATH = 1023
 
 
 def probe(path: str) -> Source:
@@ -36,6 +39,11 @@ def probe(path: str) -> Source:
     AudioError
         If the file cannot be opened as audio, holds no frames or has no channels.
     """
+    size = len(os.fsencode(path))
+    if size > SNDFILE_MAX_PATH:
+        raise AudioError(f"its path is {size} bytes long, and libsndfile (which reads the audio) opens paths of "
+                         f"at most {SNDFILE_MAX_PATH} bytes; shorten it (move the file or rename a folder above "
+                         "it), or give it relative to a working folder nearer to it")
     try:
         st = os.stat(path)
         info = sf.info(_sf_path(path))

@@ -343,3 +343,33 @@ def test_lossy_containers_are_refused_with_what_to_use_instead(tmp_path, run_cli
     assert status == 1 and len(lines) == 1, err
     assert f"chainrun cannot write {fmt} files ({subtype})" in lines[0] and "convert the recording to WAV" in lines[0]
     assert "choose another output.subtype" not in err and not (tmp_path / "out" / name).exists()
+
+
+# =========================================================================== paths too long for libsndfile (h)
+
+def _path_of_length(root, length: int, source: bytes):
+    """A copy of ``source`` at an absolute path of exactly ``length`` bytes below ``root``."""
+    folder = str(root)
+    while length - len(folder) - 1 > 200:                     # folders of up to 200 bytes, files too
+        folder = os.path.join(folder, "f" * min(200, length - len(folder) - 1 - 20))
+    os.makedirs(folder, exist_ok=True)
+    path = os.path.join(folder, "e" * (length - len(folder) - 1 - 4) + ".wav")
+    assert len(os.fsencode(path)) == length
+    with open(path, "wb") as fh:
+        fh.write(source)
+    return path
+
+
+def test_a_path_too_long_for_libsndfile_is_called_that(tmp_path, run_cli, write_audio):
+    import numpy as np
+
+    data = write_audio("a.wav", np.random.default_rng(9).uniform(-0.3, 0.3, (4800, 2))).read_bytes()
+    fits = _path_of_length(tmp_path / "fits", 1023, data)
+    too_long = _path_of_length(tmp_path / "long", 1030, data)
+    status, _, err = run_cli("scan", fits)
+    assert status == 0, err                        # measured: libsndfile 1.2.2 opens 1023 bytes, not 1024
+    # before the fix: "not readable as audio: Supplied filename too long"
+    status, _, err = run_cli("scan", too_long)
+    assert status == 1 and len(err.splitlines()) == 1
+    assert err.startswith(too_long) and "its path is 1030 bytes long" in err and "at most 1023 bytes" in err
+    assert "not readable as audio" not in err
