@@ -373,3 +373,31 @@ def test_a_path_too_long_for_libsndfile_is_called_that(tmp_path, run_cli, write_
     assert status == 1 and len(err.splitlines()) == 1
     assert err.startswith(too_long) and "its path is 1030 bytes long" in err and "at most 1023 bytes" in err
     assert "not readable as audio" not in err
+
+
+# =========================================================================== 8SVX / 16SVX reruns (c)
+
+@pytest.mark.parametrize("policy", ["reject", "scale"])
+def test_svx_reruns_are_byte_identical(tmp_path, run_cli, policy):
+    import numpy as np
+    import soundfile as sf
+
+    x = np.random.default_rng(10).uniform(-0.3, 0.3, (9600, 1))
+    (tmp_path / "in").mkdir()
+    for name, subtype in (("gull.8svx", "PCM_S8"), ("heron.16svx", "PCM_16")):
+        sf.write(str(tmp_path / "in" / name), x, 48000, format="SVX", subtype=subtype)
+    recipe = tmp_path / "r.yaml"
+    recipe.write_text(f"format: 1\nguard: {{on_over: {policy}}}\nchain:\n" + GAIN)
+    outs = []
+    for n, workers in enumerate(("1", "1")):
+        status, _, err = run_cli("run", "-q", "--workers", workers, recipe, tmp_path / "in", "-o", tmp_path / f"o{n}")
+        assert status == 0, err
+        outs.append({name: (tmp_path / f"o{n}" / name).read_bytes() for name in ("gull.8svx", "heron.16svx")})
+    # before the fix: libsndfile wrote the temporary name (random) into the NAME chunk, so every run differed
+    assert outs[0] == outs[1]
+    for name, data in outs[0].items():
+        at = data.index(b"NAME")
+        size = int.from_bytes(data[at + 4:at + 8], "big")
+        # the NAME chunk holds the file's own (final) name, as libsndfile writes it for a file it names itself
+        assert data[at + 8:at + 8 + size].rstrip(b"\0") == name.encode()
+        assert sf.info(str(tmp_path / "o0" / name)).frames == 9600
