@@ -27,8 +27,8 @@ from .channels import one_kind_of_channels, read_channels
 from .includes import include_tree, resolve_include
 from .loudness import build_loudness, merge_loudness, read_loudness
 from .model import _GUARD_KEYS, Guard, Output, Recipe, Section
-from .yaml import (MAX_FILE_BYTES, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer, _mapping,
-                   _Node, _number, _read_text, _text)
+from .yaml import (MAX_FILE_BYTES, MAX_NAME_CHARS, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer,
+                   _mapping, _Node, _number, _read_text, _text)
 
 __all__ = ["load", "loads", "from_dict"]
 
@@ -86,7 +86,7 @@ def _section(node: _Node, index: int, path: str) -> Section:
     for key in row.required:
         if key not in entries:
             raise RecipeError.at(node.where, f"{name} ({kind}) needs '{key}'; required keys: {', '.join(row.required)}")
-    label = _text(entries["label"][1], f"{name}.label") if "label" in entries else ""
+    label = _text(entries["label"][1], f"{name}.label", longest=MAX_NAME_CHARS) if "label" in entries else ""
     params: dict[str, Any] = {}
     where = {k: v[1].where for k, v in entries.items()}
     for key, (_, vnode) in entries.items():
@@ -294,7 +294,8 @@ def _recipe(path: str, text: str | None = None, allow_outside: bool = False) -> 
     top = _load_file(path, (), None, text, tree=include_tree(path, allow_outside))
     one_kind_of_channels(top.sections)
     entries = top.entries
-    name = _text(entries["name"][1], "name") if "name" in entries else os.path.splitext(os.path.basename(path))[0]
+    name = _text(entries["name"][1], "name", longest=MAX_NAME_CHARS) if "name" in entries \
+        else os.path.splitext(os.path.basename(path))[0]
     if "notes" in entries:
         _text(entries["notes"][1], "notes")
     block = entries["loudness"][1].where if "loudness" in entries else Location(path, 1, 1)

@@ -401,3 +401,28 @@ def test_svx_reruns_are_byte_identical(tmp_path, run_cli, policy):
         # the NAME chunk holds the file's own (final) name, as libsndfile writes it for a file it names itself
         assert data[at + 8:at + 8 + size].rstrip(b"\0") == name.encode()
         assert sf.info(str(tmp_path / "o0" / name)).frames == 9600
+
+
+# =========================================================================== absurd names (j)
+
+def test_names_and_labels_longer_than_200_characters_are_a_located_error(tmp_path, run_cli):
+    from chainrun.recipe.yaml import MAX_NAME_CHARS
+
+    assert MAX_NAME_CHARS == 200
+    ok = loads(f"format: 1\nname: {'n' * 200}\nchain:\n  - {{type: gain, gain_db: -1, label: {'l' * 200}}}\n")
+    assert len(ok.name) == 200 and len(ok.sections[0].label) == 200
+    with pytest.raises(RecipeError) as info:
+        loads(f"format: 1\nname: {'marsh ' * 150}\nchain:\n" + GAIN)
+    assert (info.value.line, info.value.col) == (2, 7) and "name is 899 characters long; allowed: up to 200" in str(
+        info.value)
+    with pytest.raises(RecipeError) as info:
+        loads(f"format: 1\nchain:\n  - {{type: gain, gain_db: -1, label: {'reed ' * 41}}}\n")
+    assert (info.value.line, info.value.col) == (3, 38) and "chain[0].label is 204 characters long" in str(info.value)
+    # a recipe under 1 MiB with a 900 kB name: one line at once (before: `plot` drew it for 154 s)
+    huge = tmp_path / "huge.yaml"
+    huge.write_text(f"format: 1\nname: \"{'Saltings dawn ' * 64000}\"\nchain:\n" + GAIN)
+    status, _, err = run_cli("plot", huge, "-o", tmp_path / "p.png")
+    assert status == 2 and err.startswith(f"{huge}:2:7: error: name is 896000 characters long") and len(
+        err.splitlines()) == 1
+    assert not (tmp_path / "p.png").exists()
+
