@@ -426,3 +426,36 @@ def test_names_and_labels_longer_than_200_characters_are_a_located_error(tmp_pat
         err.splitlines()) == 1
     assert not (tmp_path / "p.png").exists()
 
+
+# =========================================================================== glyphs the fonts lack (d)
+
+CJK = "format: 1\nname: \"潮汐湿地 🌊 dawn\"\nchain:\n  - {type: peak, freq: 2500, gain_db: 1.5, q: 1, label: \"芦苇 🦆 Été\"}\n"
+
+
+def test_cjk_and_emoji_names_plot_without_glyph_warnings_and_stay_readable(tmp_path, run_cli):
+    from matplotlib import font_manager, ft2font
+
+    from chainrun import assess, design
+    from chainrun.report.figure import response_figure
+
+    from chainrun.report.figure import _glyphs
+
+    if 0x6F6E in _glyphs() or 0x1F30A in _glyphs():             # pragma: no cover - depends on the fonts
+        pytest.skip("matplotlib here has a font with CJK or emoji glyphs")
+    recipe = tmp_path / "cjk.yaml"
+    recipe.write_text(CJK, encoding="utf-8")
+    # run_cli fails on any Python warning: before the fix, matplotlib's "Glyph 28526 ... missing from font(s)"
+    for suffix in ("png", "svg"):
+        status, _, err = run_cli("plot", recipe, "-o", tmp_path / f"p.{suffix}")
+        assert status == 0 and err == "", err
+    r = loads(CJK)
+    chain = design(r, 48000)
+    texts = [t.get_text() for t in response_figure(r, chain, assess(chain, r.guard)).findobj(
+        lambda o: hasattr(o, "get_text"))]
+    title = next(t for t in texts if t.endswith(" at 48000 Hz"))
+    # the default fonts (DejaVu Sans) have no CJK ideographs and no emoji; what they lack reads as \u escapes,
+    # what they have (the accented É, é) stays as it is
+    dejavu = ft2font.FT2Font(font_manager.findfont("DejaVu Sans")).get_charmap()
+    assert 0x6F6E not in dejavu and 0x1F30A not in dejavu and 0xC9 in dejavu
+    assert title == "\\u6f6e\\u6c50\\u6e7f\\u5730 \\U0001f30a dawn at 48000 Hz"
+    assert any("\\u82a6\\u82c7 \\U0001f986 Été" in t for t in texts)
