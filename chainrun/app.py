@@ -63,11 +63,11 @@ def find_recipes(paths: list[str]) -> list[str]:
     return found
 
 
-def check_recipe(path: str, rates: tuple[int, ...]) -> dict:
+def check_recipe(path: str, rates: tuple[int, ...], allow_outside_includes: bool = False) -> dict:
     """Load, design and assess one recipe at each rate; a JSON-safe summary."""
     entry: dict = {"path": path, "accepted": False, "errors": [], "warnings": [], "rates": []}
     try:
-        recipe = load(path)
+        recipe = load(path, allow_outside_includes=allow_outside_includes)
     except RecipeError as exc:
         entry["errors"].append(str(exc))
         return entry
@@ -94,8 +94,11 @@ def check_recipe(path: str, rates: tuple[int, ...]) -> dict:
     return entry
 
 
-def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES) -> list[dict]:
+def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES, *,
+          allow_outside_includes: bool = False) -> list[dict]:
     """Check every recipe named or found in the folders named (see :func:`check_recipe`); writes nothing.
+
+    ``allow_outside_includes``: follow includes out of each recipe's folder tree (see :func:`chainrun.load`).
 
     A batch plan among them (a YAML file whose top level has ``batch:``) stands for every recipe it
     names: each is checked once, its entry carrying ``"plan"``. A plan that cannot be loaded is an
@@ -116,7 +119,7 @@ def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES) -> list[dict
         if real in done:
             return
         done.add(real)
-        entry = check_recipe(path, rates)
+        entry = check_recipe(path, rates, allow_outside_includes)
         if plan is not None:
             entry["plan"] = plan
         entries.append(entry)
@@ -126,7 +129,7 @@ def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES) -> list[dict
             add(p)
             continue
         try:
-            plan = load_plan(p)
+            plan = load_plan(p, allow_outside_includes=allow_outside_includes)
         except RecipeError as exc:
             entries.append({"path": p, "plan": p, "accepted": False, "errors": [str(exc)], "warnings": [],
                             "rates": []})
@@ -228,7 +231,8 @@ def refuse_recipe_inputs(inputs: list[str]) -> None:
 def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers: int | None = None,
         block_size: int | None = None, on_over: str | None = None, report: str | None = None,
         true_peak: bool = True, redo: bool = False, progress=None, command: list[str] | None = None,
-        plan=None, cluster: str | None = None, loudness: bool = True) -> RunOutcome:
+        plan=None, cluster: str | None = None, loudness: bool = True,
+        allow_outside_includes: bool = False) -> RunOutcome:
     """Filter ``inputs`` (files and folders) into ``outdir`` with ``recipe``, and write the reports.
 
     Parameters
@@ -257,6 +261,8 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
     cluster
         Render each file on a Dask cluster instead (:mod:`chainrun.batch.cluster`): a scheduler's address
         (``tcp://host:port``), or ``local:N`` for N worker processes started here; ``workers`` is then unused.
+    allow_outside_includes
+        Follow includes out of the recipe's folder tree, as ``--allow-outside-includes`` (:func:`chainrun.load`).
 
     Raises
     ------
@@ -273,13 +279,13 @@ def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers:
         if isinstance(plan, (str, os.PathLike)):
             from .recipe.plan import load_plan
 
-            plan = load_plan(plan)
+            plan = load_plan(plan, allow_outside_includes=allow_outside_includes)
     else:
         if isinstance(recipe, (str, os.PathLike)):
             refuse_audio_recipe(recipe)
         refuse_recipe_inputs(inputs)
     if isinstance(recipe, (str, os.PathLike)):
-        recipe = load(os.fspath(recipe))
+        recipe = load(os.fspath(recipe), allow_outside_includes=allow_outside_includes)
     if workers is None:
         workers = min(cores(), MAX_WORKERS)
     if not 1 <= workers <= MAX_WORKERS:
@@ -386,10 +392,12 @@ def scan(inputs: list[str], true_peak: bool = True, loudness: bool = True) -> li
 
 # --------------------------------------------------------------------------- plot
 
-def plot(recipe: Recipe | str, rate: int, output: str, *, warn: Callable[[str], None] | None = None):
+def plot(recipe: Recipe | str, rate: int, output: str, *, warn: Callable[[str], None] | None = None,
+         allow_outside_includes: bool = False):
     """Draw the chain's response at ``rate`` to ``output`` (.png or .svg); returns the guard's Assessment.
 
-    ``warn`` is called with each of the assessment's problems before the picture is drawn.
+    ``warn`` is called with each of the assessment's problems before the picture is drawn;
+    ``allow_outside_includes``: as for :func:`chainrun.load`.
 
     Raises
     ------
@@ -401,7 +409,7 @@ def plot(recipe: Recipe | str, rate: int, output: str, *, warn: Callable[[str], 
     if os.path.splitext(output)[1].lower() not in PLOT_SUFFIXES:
         raise BatchError(f"{output}: error: the picture must be a .png or .svg file")
     if isinstance(recipe, (str, os.PathLike)):
-        recipe = load(os.fspath(recipe))
+        recipe = load(os.fspath(recipe), allow_outside_includes=allow_outside_includes)
     chain, assessment = design_and_assess(recipe, rate)
     from .report.plot import save_response
 

@@ -75,6 +75,15 @@ _UNPACKED_24 = {name: c.raw24_magic for name, c in CONTAINERS.items() if c.raw24
 _COMPANDED_FULL_SCALE = {"ULAW": 32124 / 32768, "ALAW": 32256 / 32768}
 
 
+# The subtypes a recipe's output.subtype may name, in the order a message lists them.
+_CHOSEN = ("PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE")
+
+
+def _held(fmt: str) -> list[str]:
+    """The subtypes of :data:`_CHOSEN` a ``fmt`` file can hold (none for Ogg and MP3: lossy codecs only)."""
+    return [s for s in _CHOSEN if sf.check_format(fmt, s)]
+
+
 def writable(subtype: str) -> bool:
     """True if chainrun can write ``subtype``."""
     row = SUBTYPES.get(subtype)
@@ -141,9 +150,14 @@ def output_format(src: Source, subtype: str, extra: int = 0) -> tuple[str, str]:
         If the subtype cannot be written, or the container cannot hold it.
     """
     out_subtype = src.subtype if subtype == "same" else subtype
+    held = _held(src.format)
+    if not held:        # an output keeps its input's container: no output.subtype helps
+        raise AudioError(f"chainrun cannot write {src.format} files ({src.subtype}): an output keeps its input's "
+                         f"container, and {src.format} holds none of the PCM or float encodings chainrun writes; "
+                         "convert the recording to WAV (e.g. PCM_24) or FLAC first, and run that file")
     if not writable(out_subtype):
         raise AudioError(f"its encoding {src.subtype} cannot be written back as it is; "
-                         "set output.subtype to one of PCM_16, PCM_24, PCM_32, FLOAT, DOUBLE")
+                         f"set output.subtype to one of {', '.join(held)}")
     fmt = src.format
     nbytes = src.frames * src.channels * SUBTYPES[out_subtype].width + extra
     row = CONTAINERS.get(fmt)
@@ -153,5 +167,6 @@ def output_format(src: Source, subtype: str, extra: int = 0) -> tuple[str, str]:
                              "choose a smaller output.subtype, or split the recording")
         fmt = row.large
     if not sf.check_format(fmt, out_subtype):
-        raise AudioError(f"a {fmt} file cannot hold {out_subtype}; choose another output.subtype")
+        raise AudioError(f"a {fmt} file cannot hold {out_subtype}; set output.subtype to one of "
+                         f"{', '.join(_held(fmt)) or 'none (write another container)'}")
     return fmt, out_subtype

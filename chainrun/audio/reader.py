@@ -20,13 +20,22 @@ from .formats import _UNPACKED_24, sample_bytes
 from .metadata.carry import read_source_meta
 from .source import Source
 
-__all__ = ["probe", "cut_short", "unpack24", "NoAudioFrames", "NO_AUDIO_FRAMES"]
+__all__ = ["probe", "cut_short", "unpack24", "NoAudioFrames", "NO_AUDIO_FRAMES", "MIN_RATE", "MAX_RATE"]
 
 NO_AUDIO_FRAMES = "no audio frames: an empty file, such as a recording's false start; nothing to filter"
 
 
 class NoAudioFrames(AudioError):
     """A whole file that holds no audio frames and declares none: nothing to render, nothing wrong with it."""
+
+
+# The sample rates chainrun accepts, in Hz. Above 768 kHz (the highest rate of audio interfaces) there is
+# room for ultrasound recordings; a header declaring more than 1 MHz, less than 1 Hz, NaN or infinity
+# is damaged (libsndfile reads an AIFF rate of NaN or infinity as 67108864 Hz, and 0 as 1 Hz).
+MIN_RATE, MAX_RATE = 1, 1_000_000
+# libsndfile copies a path into a buffer of 1024 bytes: a longer one fails to open as "System error"
+# or "Supplied filename too long" (measured with libsndfile 1.2.2: 1023 bytes open, 1024 do not).
+SNDFILE_MAX_PATH = 1023
 
 
 def probe(path: str) -> Source:
@@ -38,6 +47,11 @@ def probe(path: str) -> Source:
         If the file cannot be opened as audio, holds no frames or has no channels; for a file
         that declares and holds no frames at all (and is not cut short), :class:`NoAudioFrames`.
     """
+    size = len(os.fsencode(path))
+    if size > SNDFILE_MAX_PATH:
+        raise AudioError(f"its path is {size} bytes long, and libsndfile (which reads the audio) opens paths of "
+                         f"at most {SNDFILE_MAX_PATH} bytes; shorten it (move the file or rename a folder above "
+                         "it), or give it relative to a working folder nearer to it")
     try:
         st = os.stat(path)
         info = sf.info(_sf_path(path))
@@ -47,6 +61,7 @@ def probe(path: str) -> Source:
     frames = _streamed_frames(meta, int(info.frames))
     if info.channels <= 0 or info.samplerate <= 0:
         raise AudioError("declares no channels or no sample rate; the header is damaged")
+    _check_rate(info.samplerate, getattr(meta.layout, "rate", None) if meta is not None else None)
     src = Source(path, int(info.samplerate), int(info.channels), max(frames, 0), info.format, info.subtype,
                  st.st_size, st.st_mtime_ns, meta.channel_mask if meta else None, meta,
                  inode=st.st_ino, ctime_ns=st.st_ctime_ns)
@@ -54,6 +69,16 @@ def probe(path: str) -> Source:
         short = cut_short(src)      # a header promising audio the file does not hold: a copy cut short, not empty
         raise AudioError(short) if short else NoAudioFrames(NO_AUDIO_FRAMES)
     return src
+
+
+def _check_rate(rate: int, written: float | None) -> None:
+    """Refuse a rate outside MIN_RATE..MAX_RATE: libsndfile's, or the one the header writes (AIFF: a float)."""
+    shown = rate if written is None else written
+    if written is not None and not (math.isfinite(written) and MIN_RATE <= written <= MAX_RATE) \
+            or not MIN_RATE <= rate <= MAX_RATE:
+        value = f"{shown:g}" if isinstance(shown, float) else str(shown)
+        raise AudioError(f"its header declares a sample rate of {value} Hz; accepted: {MIN_RATE} to {MAX_RATE} Hz; "
+                         "the header is damaged, not rendered")
 
 
 def _streamed_frames(meta, frames: int) -> int:

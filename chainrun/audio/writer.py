@@ -1,12 +1,15 @@
 """Writing the output: :class:`_Output`, the temporary file libsndfile writes, and its PEAK time stamp."""
 from __future__ import annotations
 
+import os
+import re
 import sys
 
 import numpy as np
 import soundfile as sf
 
 from ..errors import AudioError
+from ..fsutil import TEMP_TAG
 from . import sndfile
 from .formats import _PACKED_24
 from .metadata.carry import MetaError, OutputMeta
@@ -83,6 +86,8 @@ class _Output:
             raise AudioError(f"cannot finish the output: {_sf_reason(None, exc)}; nothing was delivered") from None
         if self.fmt == "RF64" and self.subtype in ("FLOAT", "DOUBLE"):
             _clear_rf64_peak_time(self.path)
+        elif self.fmt == "SVX":
+            _final_svx_name(self.path)
 
     def __enter__(self) -> "_Output":
         return self
@@ -117,6 +122,37 @@ def _clear_rf64_peak_time(path: str) -> None:
                     fh.write(b"\0\0\0\0")
                 return
             if cid == b"data":
+                return
+            at += 8 + size + (size & 1)
+
+
+_TEMP_SHAPE = re.compile(r"\.(.+)" + re.escape(TEMP_TAG) + r"[0-9a-f]{8}(?:\.f64)?", re.DOTALL)
+
+
+def _final_svx_name(path: str) -> None:
+    """Put the final name, not the temporary one, in an 8SVX or 16SVX file's NAME chunk.
+
+    libsndfile writes the file's own name there (its ANNO chunk is a constant), which for chainrun is
+    the temporary name and its random part, so reruns differed. The name the file is renamed to is
+    written instead, NUL-padded to the chunk's size (the temporary name is always longer). IFF: "FORM",
+    a big-endian size, "8SVX" or "16SV", then chunks (id, big-endian size, payload padded to even),
+    walked from the header up to the audio (BODY).
+    """
+    base = os.path.basename(path)
+    m = _TEMP_SHAPE.fullmatch(base)
+    name = os.fsencode(m.group(1) if m else base)
+    with open(path, "r+b") as fh:
+        head = fh.read(1 << 16)
+        if head[:4] != b"FORM" or head[8:12] not in (b"8SVX", b"16SV"):
+            return
+        at = 12
+        while at + 8 <= len(head):
+            cid, size = head[at:at + 4], int.from_bytes(head[at + 4:at + 8], "big")
+            if cid == b"NAME":
+                fh.seek(at + 8)
+                fh.write(name[:size].ljust(size, b"\0"))
+                return
+            if cid == b"BODY":
                 return
             at += 8 + size + (size & 1)
 

@@ -38,7 +38,7 @@ from ..interrupt import allow_rendering, ctrl_c_stops_rendering, rendering_stopp
 from ..results import FAILED, INTERRUPTED, FileResult
 from ..text import first_line
 from ..version import __version__
-from .executors import Finished, Task, _render_in_worker
+from .executors import Finished, Task, _render_in_worker, still_the_rendered_file
 
 __all__ = ["EXTRA", "ClusterExecutor", "parse_address", "dask_missing"]
 
@@ -336,7 +336,7 @@ class ClusterExecutor:
             else:                                # cancelled: the scheduler went away
                 return
             fut.release()                        # no one wants it now: never recomputed behind the journal
-            finished(job, r)
+            finished(job, still_the_rendered_file(task, r))     # the input checked once more, as the other executors do
 
         try:
             with ctrl_c_stops_rendering():       # here Ctrl-C only sets the flag, read between waits

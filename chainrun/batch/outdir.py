@@ -26,6 +26,7 @@ from dataclasses import dataclass
 
 from ..errors import BatchError
 from ..fsutil import is_temp_name
+from .journal_types import line_problem
 
 __all__ = ["LockedError", "ForeignFileError", "OutdirLock", "check_journal", "clean_leftovers", "fingerprint",
            "Journal", "LOCK_NAME", "JOURNAL_NAME", "claim_outdir"]
@@ -300,23 +301,33 @@ class Journal:
         self.path = os.path.join(outdir, JOURNAL_NAME)
         self.entries: dict[str, Entry] = {}
         self.problem: str | None = None      # why the journal cannot be read, if it cannot
+        self.warnings: list[str] = []        # one located line per line ignored (cut short, edited by hand)
+        bad: list[tuple[int, object, str]] = []
+        last: dict[str, int] = {}
         try:
             with os.fdopen(_open_own_file(self.path, os.O_RDONLY), encoding="utf-8",
                            errors="surrogateescape") as fh:
-                for line in fh:
+                for number, line in enumerate(fh, 1):
+                    if not line.strip():
+                        continue
                     try:
                         d = json.loads(line)
-                        if not all(isinstance(d.get(k), dict) for k in ("input", "output")):
-                            continue
-                        result = d.get("result", {})
-                        self.entries[d["relpath"]] = Entry(d["relpath"], d["key"], d["input"], d["output"],
-                                                           result if isinstance(result, dict) else {})
-                    except (ValueError, KeyError, TypeError, AttributeError):
-                        continue      # a line cut short by a kill, or foreign text: ignored
+                    except ValueError:
+                        d, why = None, "not a complete JSON record (cut short, or edited)"
+                    else:
+                        why = line_problem(d)
+                    if why:
+                        bad.append((number, d.get("relpath") if isinstance(d, dict) else None, why))
+                        continue
+                    self.entries[d["relpath"]] = Entry(d["relpath"], d["key"], d["input"], d["output"], d["result"])
+                    last[d["relpath"]] = number
         except FileNotFoundError:
             pass
         except OSError as exc:      # a folder or a link at its name, no permission: every file is rendered
             self.problem = f"{self.path}: {(exc.strerror or str(exc)).lower()}"
+        # a bad line whose file a later line records again (rendered since) is not worth a warning any more
+        self.warnings = [f"{self.path}:{n}: warning: {why}; line ignored, its file is rendered again"
+                         for n, rel, why in bad if not (isinstance(rel, str) and last.get(rel, 0) > n)]
 
     def finished(self, relpath: str, key: str, input_path: str, output_path: str) -> Entry | None:
         """The entry of a delivered file if input, output and job key all still match."""

@@ -96,6 +96,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     journal = Journal(prep.outdir)
     if journal.problem:
         notes.append(f"the resume journal cannot be read ({journal.problem}); every file is rendered")
+    notes.extend(journal.warnings)
     if prep.warnings:
         notes.extend(prep.warnings)
     keys = [job_key(recipe, policy) for recipe, policy in zip(prep.recipes, prep.policies)]

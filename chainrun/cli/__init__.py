@@ -21,6 +21,12 @@ from ..interrupt import from_ctrl_c as _from_ctrl_c, stop_signals_like_ctrl_c, s
 from ..recipe import RecipeError
 from .common import EXIT_NOT_OK, EXIT_USAGE, UsageError, _err, _positive, _rate
 
+def _includes_argument(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--allow-outside-includes", action="store_true",
+                   help="follow a recipe's include: to a file outside the recipe's own folder tree (refused "
+                        "by default)")
+
+
 def _check_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("recipes", nargs="+", metavar="RECIPE_OR_DIR",
                    help="recipe files or folders searched for *.yaml; a batch plan stands for every recipe it names")
@@ -28,6 +34,7 @@ def _check_arguments(p: argparse.ArgumentParser) -> None:
                    help="sample rate to check; repeat for several (default: 44100, 48000, 96000)")
     p.add_argument("--json", action="store_true", help="print results as JSON on stdout")
     p.add_argument("--strict", action="store_true", help="a recipe with warnings fails the check too (exit 1)")
+    _includes_argument(p)
 
 
 def _run_arguments(p: argparse.ArgumentParser) -> None:
@@ -60,6 +67,7 @@ def _run_arguments(p: argparse.ArgumentParser) -> None:
                         "Needs pip install 'chainrun[cluster]'")
     p.add_argument("-q", "--quiet", action="store_true",
                    help="no progress: neither the bar (on a terminal) nor one line per finished file (otherwise)")
+    _includes_argument(p)
 
 
 def _scan_arguments(p: argparse.ArgumentParser) -> None:
@@ -73,6 +81,7 @@ def _plot_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("recipe", metavar="RECIPE")
     p.add_argument("--rate", type=_rate, default=48000, metavar="HZ", help="sample rate (default 48000)")
     p.add_argument("-o", "--output", required=True, metavar="FILE", help="picture to write, .png or .svg")
+    _includes_argument(p)
 
 
 # One row per command: name -> (help, description, arguments). Its module is chainrun.cli.<name>.

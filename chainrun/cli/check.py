@@ -54,7 +54,7 @@ def _print_check(entry: dict) -> None:
 
 def main(args: argparse.Namespace) -> int:
     rates = tuple(dict.fromkeys(args.rate)) if args.rate else DEFAULT_RATES
-    entries = check(args.recipes, rates)
+    entries = check(args.recipes, rates, allow_outside_includes=args.allow_outside_includes)
     rejected = [e for e in entries if not e["accepted"] or (args.strict and e["warnings"])]
     if args.json:
         json.dump({"version": __version__, "rates": list(rates), "accepted": not rejected,

@@ -9,6 +9,6 @@ from .common import EXIT_OK, _err
 
 
 def main(args: argparse.Namespace) -> int:
-    plot(args.recipe, args.rate, args.output, warn=_err)
+    plot(args.recipe, args.rate, args.output, warn=_err, allow_outside_includes=args.allow_outside_includes)
     print(shown(args.output))
     return EXIT_OK

@@ -90,10 +90,10 @@ def main(args: argparse.Namespace) -> int:
         if args.plan is not None:
             from ..recipe.plan import load_plan
 
-            plan = load_plan(args.plan)
+            plan = load_plan(args.plan, allow_outside_includes=args.allow_outside_includes)
             warnings = [w for r in plan.recipes for w in r.warnings]
         else:
-            recipe = load(args.recipe)
+            recipe = load(args.recipe, allow_outside_includes=args.allow_outside_includes)
             warnings = list(recipe.warnings)
     except RecipeError as exc:
         _err(f"{exc}; no audio was touched")

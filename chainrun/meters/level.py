@@ -105,7 +105,7 @@ class RMSMeter:
         if block.shape[1] == 0:
             return
         hi, lo, bad = _extremes(block, extremes)
-        with np.errstate(over="ignore"):           # |x| > 1e154: RMS reads inf, to_dict() gives None
+        with np.errstate(over="ignore", invalid="ignore"):     # |x| > 1e154: RMS inf, a sum inf - inf: None in JSON
             for c in range(self._channels):
                 row, cnt, _, _ = _finite_row(block, bad, c, float(hi[c]), float(lo[c]))
                 self._finite[c] += cnt

@@ -24,10 +24,11 @@ import yaml
 from ..errors import Location, RecipeError
 from ..section_types import MAX_ABS_GAIN_DB, MAX_BW_OCTAVES, MAX_ORDER, MIN_FREQ_HZ, SECTION_TYPES, SECTIONS
 from .channels import one_kind_of_channels, read_channels
+from .includes import include_tree, resolve_include
 from .loudness import build_loudness, merge_loudness, read_loudness
 from .model import _GUARD_KEYS, Guard, Output, Recipe, Section
-from .yaml import (MAX_FILE_BYTES, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer, _mapping,
-                   _Node, _number, _read_text, _text)
+from .yaml import (MAX_FILE_BYTES, MAX_NAME_CHARS, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer,
+                   _mapping, _Node, _number, _read_text, _text)
 
 __all__ = ["load", "loads", "from_dict"]
 
@@ -85,7 +86,7 @@ def _section(node: _Node, index: int, path: str) -> Section:
     for key in row.required:
         if key not in entries:
             raise RecipeError.at(node.where, f"{name} ({kind}) needs '{key}'; required keys: {', '.join(row.required)}")
-    label = _text(entries["label"][1], f"{name}.label") if "label" in entries else ""
+    label = _text(entries["label"][1], f"{name}.label", longest=MAX_NAME_CHARS) if "label" in entries else ""
     params: dict[str, Any] = {}
     where = {k: v[1].where for k, v in entries.items()}
     for key, (_, vnode) in entries.items():
@@ -219,8 +220,9 @@ class _Loaded(NamedTuple):
     loudness: _Layer = {}         # the loudness keys written along the chain
 
 
-def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: str | None = None) -> _Loaded:
-    """Read one file (or take its ``text``) and, recursively, the files it includes."""
+def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: str | None = None,
+               tree: str | None = None) -> _Loaded:
+    """Read one file (or take its ``text``) and, recursively, the files it includes (inside ``tree``)."""
     real = os.path.realpath(path)
     if real in stack:
         chain = " -> ".join(os.path.basename(p) for p in stack + (real,))
@@ -252,14 +254,8 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
         items = inode.value if isinstance(inode.value, list) else [inode]
         for item in items:
             rel = _text(item, "include")
-            if not rel.strip() or os.path.isabs(rel):
-                raise RecipeError.at(item.where, f"include '{rel}' is not a relative path; "
-                                                 "give a path relative to this recipe's folder")
-            target = os.path.normpath(os.path.join(os.path.dirname(path), rel))
-            if not os.path.exists(target):
-                raise RecipeError.at(item.where, f"included recipe '{rel}' does not exist "
-                                                 f"(looked for {target}); paths are relative to this recipe's folder")
-            inc = _load_file(target, stack + (real,), item.where)
+            target = resolve_include(rel, item.where, path, tree)
+            inc = _load_file(target, stack + (real,), item.where, tree=tree)
             sections.extend(sec if sec.origin else replace(sec, origin=rel) for sec in inc.sections)
             included.extend([target] + inc.included)
             warnings.extend(inc.warnings)
@@ -293,12 +289,13 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
     return _Loaded(entries, sections, included, guard, output, list(dict.fromkeys(warnings)), loudness)
 
 
-def _recipe(path: str, text: str | None = None) -> Recipe:
+def _recipe(path: str, text: str | None = None, allow_outside: bool = False) -> Recipe:
     """The recipe at ``path`` (whose text is ``text`` if given), includes resolved."""
-    top = _load_file(path, (), None, text)
+    top = _load_file(path, (), None, text, tree=include_tree(path, allow_outside))
     one_kind_of_channels(top.sections)
     entries = top.entries
-    name = _text(entries["name"][1], "name") if "name" in entries else os.path.splitext(os.path.basename(path))[0]
+    name = _text(entries["name"][1], "name", longest=MAX_NAME_CHARS) if "name" in entries \
+        else os.path.splitext(os.path.basename(path))[0]
     if "notes" in entries:
         _text(entries["notes"][1], "notes")
     block = entries["loudness"][1].where if "loudness" in entries else Location(path, 1, 1)
@@ -306,13 +303,15 @@ def _recipe(path: str, text: str | None = None) -> Recipe:
                   tuple(top.included), tuple(top.warnings), loudness=build_loudness(top.loudness, block))
 
 
-def load(path: str | os.PathLike) -> Recipe:
+def load(path: str | os.PathLike, *, allow_outside_includes: bool = False) -> Recipe:
     """Load and validate a recipe file.
 
     Parameters
     ----------
     path
         A ``format: 1`` YAML recipe.
+    allow_outside_includes
+        Follow an ``include:`` to a file outside this recipe's folder tree (refused by default).
 
     Returns
     -------
@@ -332,10 +331,10 @@ def load(path: str | os.PathLike) -> Recipe:
     >>> [s.kind for s in recipe.sections]                 # doctest: +SKIP
     ['highpass', 'notch', 'notch', 'notch', 'notch']
     """
-    return _recipe(os.fspath(path))
+    return _recipe(os.fspath(path), allow_outside=allow_outside_includes)
 
 
-def loads(text: str, name: str = "<text>") -> Recipe:
+def loads(text: str, name: str = "<text>", *, allow_outside_includes: bool = False) -> Recipe:
     """Load and validate a recipe given as YAML text, exactly as :func:`load` reads a file.
 
     Parameters
@@ -358,7 +357,8 @@ def loads(text: str, name: str = "<text>") -> Recipe:
     Notes
     -----
     ``include:`` paths in the text are resolved relative to the current working folder
-    (the folder of ``name`` if it names one), since the text has no folder of its own.
+    (the folder of ``name`` if it names one), since the text has no folder of its own, and must
+    stay inside that folder unless ``allow_outside_includes`` (as for :func:`load`).
 
     Examples
     --------
@@ -371,7 +371,7 @@ def loads(text: str, name: str = "<text>") -> Recipe:
     size = len(text.encode("utf-8", "surrogatepass"))
     if size > MAX_FILE_BYTES:
         raise RecipeError(name, 1, 1, f"recipe is {size} bytes; allowed: up to {MAX_FILE_BYTES} bytes")
-    return _recipe(name, text[1:] if text.startswith("\ufeff") else text)
+    return _recipe(name, text[1:] if text.startswith("\ufeff") else text, allow_outside_includes)
 
 
 def _plain(value: Any, name: str, depth: int = 0) -> Any:
@@ -396,7 +396,7 @@ def _plain(value: Any, name: str, depth: int = 0) -> Any:
                                   "use numbers, text, lists and mappings")
 
 
-def from_dict(mapping: Mapping[str, Any], name: str = "<dict>") -> Recipe:
+def from_dict(mapping: Mapping[str, Any], name: str = "<dict>", *, allow_outside_includes: bool = False) -> Recipe:
     """Load and validate a recipe given as a plain mapping (what the YAML would read as).
 
     The mapping is written out as YAML (``yaml.safe_dump``, keys in the order given) and
@@ -422,8 +422,9 @@ def from_dict(mapping: Mapping[str, Any], name: str = "<dict>") -> Recipe:
 
     Notes
     -----
-    ``include:`` paths are resolved relative to the current working folder.
+    ``include:`` paths are resolved relative to the current working folder, and stay inside it
+    unless ``allow_outside_includes``.
     """
     text = yaml.safe_dump(_plain(mapping, name), sort_keys=False, default_flow_style=False,
                           allow_unicode=True, width=1 << 16)
-    return loads(text, name)
+    return loads(text, name, allow_outside_includes=allow_outside_includes)

@@ -66,8 +66,8 @@ def _pattern(node, name: str) -> str:
     return "/".join(p for p in parts if p not in ("", "."))
 
 
-def load_plan(path: str | os.PathLike) -> BatchPlan:
-    """Load a batch plan and every recipe it names.
+def load_plan(path: str | os.PathLike, *, allow_outside_includes: bool = False) -> BatchPlan:
+    """Load a batch plan and every recipe it names (``allow_outside_includes``: as :func:`.load`).
 
     Raises
     ------
@@ -124,7 +124,7 @@ def load_plan(path: str | os.PathLike) -> BatchPlan:
             raise RecipeError.at(rnode_recipe.where, f"{name}.recipe names the plan itself; name a recipe")
         if real not in by_file:
             by_file[real] = len(recipes)
-            recipes.append(load(target))
+            recipes.append(load(target, allow_outside_includes=allow_outside_includes))
         rows.append(PlanRow(i, patterns, by_file[real], rnode.where))
     return BatchPlan(path, folder, tuple(rows), tuple(recipes))
 

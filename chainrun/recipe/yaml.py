@@ -26,6 +26,7 @@ from ..errors import Location, RecipeError
 MAX_FILE_BYTES = 1 << 20          # 1 MiB of YAML
 MAX_NODES = 20_000                # YAML nodes after alias expansion
 MAX_NESTING = 32                  # YAML collections inside collections (aliases followed)
+MAX_NAME_CHARS = 200              # a recipe's name, a section's label: drawn in titles, legends and tables
 
 _STR_TAG, _INT_TAG, _FLOAT_TAG = ("tag:yaml.org,2002:str", "tag:yaml.org,2002:int", "tag:yaml.org,2002:float")
 _RESOLVER = yaml.resolver.Resolver()         # YAML 1.1's implicit tags, to tell an explicit !!str apart
@@ -261,11 +262,14 @@ def _integer(node: _Node, name: str, lo: int, hi: int) -> int:
     return v
 
 
-def _text(node: _Node, name: str, choices: tuple[str, ...] | None = None) -> str:
+def _text(node: _Node, name: str, choices: tuple[str, ...] | None = None, longest: int | None = None) -> str:
     v = node.value
     if not isinstance(v, str):
         allowed = f"one of {', '.join(choices)}" if choices else "text"
         raise RecipeError.at(node.where, f"{name} must be {allowed}; found {_describe(v)}")
+    if longest is not None and len(v) > longest:
+        raise RecipeError.at(node.where, f"{name} is {len(v)} characters long; allowed: up to {longest} "
+                                         "(it is shown in titles, legends and report tables)")
     if choices is not None and v not in choices:
         near = difflib.get_close_matches(v, choices, n=1)
         hint = f" (did you mean '{near[0]}'?)" if near else ""

@@ -23,10 +23,14 @@ needs a display.
 Notes
 -----
 User text (recipe names, section labels) is drawn literally: a ``$`` in a
-label is escaped so matplotlib never reads it as mathematics.
+label is escaped so matplotlib never reads it as mathematics, and a character
+the figure's fonts have no glyph for (CJK, emoji with the default DejaVu fonts)
+is written as its ``\\uXXXX`` escape, readable where matplotlib would draw an
+empty box and warn "Glyph ... missing from font(s)".
 """
 from __future__ import annotations
 
+import functools
 import math
 import os
 from typing import TYPE_CHECKING
@@ -41,8 +45,8 @@ from .response import ACCEPTED_COLOUR as _ACCEPTED_COLOUR, CHAIN_COLOUR as _CHAI
 from .response import FREQ_TICKS as _FREQ_TICKS, GUIDE_COLOUR as _GUIDE_COLOUR, MINOR_TICKS as _MINOR_TICKS
 from .response import REJECTED_COLOUR as _REJECTED_COLOUR, SECTION_COLOURS as _SECTION_COLOURS
 from .response import SECTION_DASHES as _SECTION_DASHES, label_spot as _label_spot, magnitude_range as _y_range
-from .response import (describe_section, freq_grid, guard_lines, hz, literal, response_at, sections_of, signed,
-                       to_db, wrapped, wrapped_phase)
+from .response import (describe_section, freq_grid, guard_lines, hz, literal as _literal, response_at, sections_of,
+                       signed, to_db, wrapped, wrapped_phase)
 
 if TYPE_CHECKING:
     from ..design import Chain
@@ -55,6 +59,30 @@ PNG_DPI = 100
 FIG_WIDTH_IN = 10.0         # the height follows from the number of sections and guard lines
 
 _PATH_DASHES = ("-", (0, (7, 2.5)), (0, (1.5, 1.5)), (0, (7, 2, 1.5, 2)))   # one per channel path
+
+# --------------------------------------------------------------------------- text
+
+@functools.lru_cache(maxsize=None)
+def _glyphs() -> frozenset[int]:
+    """The code points the fonts matplotlib draws text with can show (its sans-serif and monospace lists)."""
+    from matplotlib import font_manager, ft2font, rcParams
+
+    found: set[int] = set()
+    for name in list(rcParams["font.sans-serif"]) + list(rcParams["font.monospace"]):
+        try:
+            path = font_manager.findfont(font_manager.FontProperties(family=name), fallback_to_default=False)
+            found.update(ft2font.FT2Font(path).get_charmap())
+        except (ValueError, OSError, RuntimeError):       # not installed
+            continue
+    return frozenset(found)
+
+
+def literal(text: str) -> str:
+    """User text as it is drawn: see the module notes (``$`` escaped; a glyph no font has as ``\\uXXXX``)."""
+    glyphs = _glyphs()
+    return "".join(c if ord(c) < 0x80 or ord(c) in glyphs else
+                   (f"\\u{ord(c):04x}" if ord(c) <= 0xFFFF else f"\\U{ord(c):08x}") for c in _literal(text))
+
 
 # --------------------------------------------------------------------------- figure
 

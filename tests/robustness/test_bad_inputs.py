@@ -265,7 +265,7 @@ def lossy_vorbis_cannot_be_written_back_as_same(ctx):
     if "VORBIS" not in sf.available_subtypes("OGG"):            # pragma: no cover - depends on libsndfile
         pytest.skip("this libsndfile cannot write Ogg Vorbis test files")
     p = ctx.audio("stream_rip.ogg", noise(4000), fmt="OGG", subtype="VORBIS")
-    return Case(p, rel(p, ctx), ("encoding VORBIS cannot be written back",))
+    return Case(p, rel(p, ctx), ("cannot write OGG files (VORBIS)", "convert the recording to WAV"))
 
 
 # --- samples that must not be passed on, rates the recipe cannot serve ----------------------------

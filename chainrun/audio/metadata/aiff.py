@@ -34,6 +34,7 @@ FORM size patched. Only header bytes are touched, and nothing time-dependent is 
 
 from __future__ import annotations
 
+import math
 import os
 import struct
 from dataclasses import dataclass, field
@@ -84,12 +85,29 @@ class AiffLayout:
     ssnd_offset: int | None        # where the SSND chunk's header starts
     audio_error: str | None        # one line: the audio cannot be trusted; refuse the file
     notes: tuple[str, ...]         # one line each: metadata that is not carried, and why
+    rate: float | None = None      # the COMM chunk's sample rate as written (80-bit extended; NaN, inf...)
 
 
 def _plausible(cid: bytes) -> bool:
     """EA IFF 85: an id is four printable ASCII characters, no leading blank (the filler
     id of four blanks aside)."""
     return len(cid) == 4 and all(0x20 <= c <= 0x7E for c in cid) and (cid[:1] != b" " or cid == b"    ")
+
+
+def extended(raw: bytes) -> float:
+    """An IEEE 754 80-bit extended float (big-endian, as AIFF's COMM rate) as a Python float.
+
+    Sign bit and 15-bit exponent (bias 16383), then a 64-bit significand with an explicit integer bit
+    (Apple, "Audio Interchange File Format" 1.3, and IEEE 754-1985 double extended). Exponent 0x7FFF is
+    infinity (significand fraction 0) or NaN.
+    """
+    sign_exp, mant = struct.unpack(">HQ", raw[:10])
+    sign, exp = -1.0 if sign_exp & 0x8000 else 1.0, sign_exp & 0x7FFF
+    if exp == 0x7FFF:
+        return sign * math.inf if mant & 0x7FFFFFFFFFFFFFFF == 0 else math.nan
+    if exp - 16383 - 63 > 1023:          # beyond a double
+        return sign * math.inf
+    return sign * math.ldexp(mant, exp - 16383 - 63)
 
 
 def _header(fh, at: int, end: int) -> tuple[str, int] | None:
@@ -127,7 +145,7 @@ def _walk(path: str, fh) -> AiffLayout:
         raise MetaError(f"{path}: error: not an AIFF or AIFF-C file")
     kind = head[8:12].decode("latin-1")
     notes, chunks, kept = [], [], 0
-    ssnd = error = None
+    ssnd = error = rate = None
     comm = False
     note = lambda text: notes.append(f"{path}: note: {text}")   # noqa: E731
     form = struct.unpack(">I", head[4:8])[0]
@@ -160,6 +178,8 @@ def _walk(path: str, fh) -> AiffLayout:
             if n < 18 or n > _COMM_MAX:
                 error = f"its 'COMM' chunk has {n} bytes; it needs 18 (AIFF-C: 22 or more)"
                 break
+            fh.seek(pay + 8)                  # channels (2), frames (4), bits (2), then the rate (10)
+            rate = extended(fh.read(10))
         elif cid == "SSND":
             ssnd = at
         elif cid not in _LAYOUT and kept + n <= CARRY_LIMIT:
@@ -175,7 +195,7 @@ def _walk(path: str, fh) -> AiffLayout:
         error = "it has no 'COMM' chunk"
     elif error is None and ssnd is None:
         error = "it has no 'SSND' chunk"
-    return AiffLayout(path, kind, size, tuple(chunks), ssnd, error, tuple(notes))
+    return AiffLayout(path, kind, size, tuple(chunks), ssnd, error, tuple(notes), rate)
 
 
 def plan_carry(layout: AiffLayout, keep: bool = True) -> list[CarryItem]:
