@@ -210,6 +210,10 @@ class ClusterExecutor:
                                       "distributed.scheduler.worker-saturation": 1.0}):
                     self.cluster = LocalCluster(n_workers=self._local_workers, threads_per_worker=1, processes=True,
                                                 host="127.0.0.1", dashboard_address=None,
+                                                # no dashboard, but the scheduler's HTTP endpoints (health,
+                                                # metrics) still start: on any free port, not 8787, which a
+                                                # second run or another program may hold (a warning then)
+                                                scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
                                                 silence_logs=logging.CRITICAL, scheduler_port=0)
                     self.client = Client(self.cluster, timeout=CONNECT_TIMEOUT_S)
                     self.client.register_plugin(_ignore_ctrl_c_plugin())

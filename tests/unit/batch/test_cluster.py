@@ -247,6 +247,30 @@ def test_local_cluster_batch_is_byte_identical_to_a_local_run(batch, tmp_path):
 
 @needs_dask
 @pytest.mark.slow
+def test_a_local_cluster_starts_without_a_warning_when_port_8787_is_taken(batch, tmp_path, run_cli):
+    # Dask's scheduler starts its HTTP endpoints on 8787 by default even with the dashboard off, and
+    # warns when that port is held (by a second run, or any other program): a local cluster must take
+    # any free port instead. run_cli fails the test on any Python warning.
+    import socket
+    d, ref = batch
+    holder = socket.socket()
+    try:
+        holder.bind(("0.0.0.0", 8787))
+    except OSError:
+        pass                            # already held by someone else: the case under test all the same
+    else:
+        holder.listen()
+    try:
+        status, _, err = run_cli("run", "-q", d / "recipe.yaml", d / "in", "-o", tmp_path / "out",
+                                 "--cluster", "local:1")
+    finally:
+        holder.close()
+    assert status == 0, err
+    assert finals(tmp_path / "out") == ref
+
+
+@needs_dask
+@pytest.mark.slow
 def test_a_running_scheduler_renders_the_batch_and_a_second_run_resumes(batch, scheduler, tmp_path):
     d, ref = batch
     out = tmp_path / "out"
