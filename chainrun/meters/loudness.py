@@ -265,8 +265,10 @@ class LoudnessMeter:
         """
         n, period = x.shape[1], _FLUSH_PERIOD
         boundary = (frame0 // period + 1) * period          # first flush point after frame0
-        if boundary > frame0 + n:                           # none inside the block (the usual case)
+        if boundary >= frame0 + n:              # none inside the block, at most one at its end (the usual case)
             y, self._zi = self._lfilter(self._b, self._a, x, axis=1, zi=self._zi)
+            if boundary == frame0 + n:          # blocks of the period's size end on a flush point: no copy
+                self._zi[np.abs(self._zi) < _DENORMAL_FLOOR] = 0.0
             return y
         y, start = np.empty_like(x), 0
         for stop in list(range(boundary - frame0, n, period)) + [n]:
