@@ -162,8 +162,13 @@ class LoudnessMeter:
     over the 10 ms sub-blocks (no copy of the block: only the sub-block that
     straddles two blocks is joined) and window sums over at most 300 sub-block
     energies per gating window and per window that may hold a maximum; no
-    per-sample Python code.  About 0.55 ms of CPU (0.41 of it the filter)
-    per second of stereo 48 kHz audio (``benchmarks/loudness_cost.py``).
+    per-sample Python code.  The filter is about three quarters of the cost
+    (``benchmarks/loudness_cost.py``; figures in ``benchmarks/RESULTS.md``):
+    its recurrence is a chain of dependent operations per channel, about
+    4 ns a sample whatever the library routine (``sosfilt``, two biquads,
+    a complex-valued pair of channels and block matrix forms were measured
+    no faster).  A block ending on a flush point (every block of the
+    renderer's 65536 frames) is filtered in one call, without a copy.
     State: the filter state, at most one sub-block of filtered samples, the
     last 299 sub-block energies and two histograms of 22,000 bins, whatever
     the length of the stream.
