@@ -203,20 +203,34 @@ def test_tech3341_case6_five_channels(mask):
         chans.insert(3, np.zeros_like(t[-28]))
     r = meter(np.vstack(chans), mask=mask)
     assert abs(r.integrated_lufs + 23.0) <= TOL_MSI
+    # analytic, BS.1770-4 Annex 1 eq. 2 with the weights G (1.0 for L, R, C; 1.41 for Ls, Rs): a
+    # steady sine of amplitude A adds G * A**2/2 * |K(1 kHz)|**2 (model: -23.016 LUFS)
+    k2 = abs(signal.sosfreqz(BS1770_TABLE, worN=[1000.0], fs=48000)[1][0]) ** 2
+    power = sum(g * 10.0 ** (lv / 10.0) / 2 * k2 for g, lv in
+                [(1.0, -28), (1.0, -28), (1.0, -24), (1.41, -30), (1.41, -30)])
+    assert abs(r.integrated_lufs - model_lufs(power)) < 1e-4
 
 
 def test_tech3341_case9_short_term_constant():
     # EBU Tech 3341 case 9 (from memory; verify): 1.34 s at -20 dBFS, 1.66 s at -30 dBFS, repeated;
     # S = -23.0 once 3 s are in.  analytic: every 3 s window holds one period: 10log10((1.34*0.01+1.66*0.001)/3)
-    r = meter(stereo_steps([(-20, 1.34), (-30, 1.66)] * 5))
+    steps = [(-20, 1.34), (-30, 1.66)] * 5
+    r = meter(stereo_steps(steps))
     assert abs(r.max_short_term_lufs + 23.0) <= TOL_MSI
+    z = steps_model(steps, 3.0)                 # analytic: every full window the same (model: -22.986)
+    assert np.ptp(z) < 1e-12 * z[0]
+    assert abs(r.max_short_term_lufs - model_lufs(z[0])) < 1e-4
 
 
 def test_tech3341_case12_momentary_constant():
     # EBU Tech 3341 case 12 (from memory; verify): 0.18 s at -20 dBFS, 0.22 s at -30 dBFS, repeated;
     # M = -23.0.  analytic: 10log10((0.18*0.01 + 0.22*0.001)/0.4) = -22.97
-    r = meter(stereo_steps([(-20, 0.18), (-30, 0.22)] * 25))
+    steps = [(-20, 0.18), (-30, 0.22)] * 25
+    r = meter(stereo_steps(steps))
     assert abs(r.max_momentary_lufs + 23.0) <= TOL_MSI
+    z = steps_model(steps, 0.4)                 # analytic: every full window the same (model: -22.960)
+    assert np.ptp(z) < 1e-12 * z[0]
+    assert abs(r.max_momentary_lufs - model_lufs(z[0])) < 1e-4
 
 
 @pytest.mark.parametrize("case, seconds, attr", [(10, 3.0, "max_short_term_lufs"),
