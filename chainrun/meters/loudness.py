@@ -162,8 +162,13 @@ class LoudnessMeter:
     over the 10 ms sub-blocks (no copy of the block: only the sub-block that
     straddles two blocks is joined) and window sums over at most 300 sub-block
     energies per gating window and per window that may hold a maximum; no
-    per-sample Python code.  About 0.55 ms of CPU (0.41 of it the filter)
-    per second of stereo 48 kHz audio (``benchmarks/loudness_cost.py``).
+    per-sample Python code.  The filter is about three quarters of the cost
+    (``benchmarks/loudness_cost.py``; figures in ``benchmarks/RESULTS.md``):
+    its recurrence is a chain of dependent operations per channel, about
+    4 ns a sample whatever the library routine (``sosfilt``, two biquads,
+    a complex-valued pair of channels and block matrix forms were measured
+    no faster).  A block ending on a flush point (every block of the
+    renderer's 65536 frames) is filtered in one call, without a copy.
     State: the filter state, at most one sub-block of filtered samples, the
     last 299 sub-block energies and two histograms of 22,000 bins, whatever
     the length of the stream.
@@ -265,8 +270,10 @@ class LoudnessMeter:
         """
         n, period = x.shape[1], _FLUSH_PERIOD
         boundary = (frame0 // period + 1) * period          # first flush point after frame0
-        if boundary > frame0 + n:                           # none inside the block (the usual case)
+        if boundary >= frame0 + n:              # none inside the block, at most one at its end (the usual case)
             y, self._zi = self._lfilter(self._b, self._a, x, axis=1, zi=self._zi)
+            if boundary == frame0 + n:          # blocks of the period's size end on a flush point: no copy
+                self._zi[np.abs(self._zi) < _DENORMAL_FLOOR] = 0.0
             return y
         y, start = np.empty_like(x), 0
         for stop in list(range(boundary - frame0, n, period)) + [n]:
