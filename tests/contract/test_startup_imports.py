@@ -23,12 +23,19 @@ with open(sys.argv[1], "w") as fh:
 """
 
 
-def _modules_after(tmp_path, *argv) -> tuple[int, set[str]]:
-    """Run ``chainrun ARGV`` in a fresh process; its exit status and the scipy modules it then holds."""
+def _modules_after(tmp_path, *argv, address_space: int | None = None) -> tuple[int, set[str]]:
+    """Run ``chainrun ARGV`` in a fresh process (under an address-space limit of ``address_space``
+    bytes if given); its exit status and the scipy modules it then holds."""
     out = tmp_path / "modules.json"
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(REPO), os.environ.get("PYTHONPATH", "")]))
+
+    def limit():
+        import resource
+        resource.setrlimit(resource.RLIMIT_AS, (address_space, address_space))
+
     proc = subprocess.run([sys.executable, "-c", PROBE, str(out), *map(str, argv)], capture_output=True,
-                          text=True, env=env, cwd=tmp_path, timeout=300)
+                          text=True, env=env, cwd=tmp_path, timeout=300,
+                          preexec_fn=limit if address_space else None)
     assert proc.returncode == 0 and out.exists(), proc.stderr
     seen = json.loads(out.read_text())
     return seen["status"], set(seen["modules"])
@@ -51,6 +58,15 @@ def test_the_run_path_of_a_recipe_without_raw_sections_does_not_import_scipy_sig
                                      "--no-true-peak", "--no-loudness", "-q")
     assert status == 0
     assert (tmp_path / "out" / "dawn_ambience.wav").exists()
+    assert "scipy.signal" not in modules and "scipy.optimize" not in modules, sorted(modules)
+
+
+def test_under_a_memory_limit_check_tries_only_what_it_loads(tmp_path):
+    # under ``ulimit -v`` the command first tries what it will load (chainrun.cli); for check that is
+    # the numpy designs and the sosfilt kernel, not scipy.signal
+    status, modules = _modules_after(tmp_path, "check", REPO / "recipes" / "marsh-cleanup.yaml",
+                                     address_space=2 << 30)
+    assert status == 0
     assert "scipy.signal" not in modules and "scipy.optimize" not in modules, sorted(modules)
 
 
