@@ -15,6 +15,7 @@ import importlib.machinery
 import importlib.util
 import os
 import sys
+import threading
 
 import numpy as np
 
@@ -23,6 +24,7 @@ __all__ = ["sosfilt", "kernel_loaded"]
 _NAME = "scipy.signal._sosfilt"
 _kernel = None          # the compiled kernel, once loaded; False when it cannot serve
 _public = None          # scipy.signal.sosfilt, once imported (the fallback)
+_lock = threading.Lock()   # the render pipeline's threads may ask first at the same time
 
 
 def _load_kernel():
@@ -57,10 +59,12 @@ def _load_kernel():
 def _get_kernel():
     global _kernel
     if _kernel is None:
-        try:
-            _kernel = _load_kernel()
-        except (ImportError, AttributeError, OSError, TypeError, ValueError):
-            _kernel = False
+        with _lock:
+            if _kernel is None:
+                try:
+                    _kernel = _load_kernel()
+                except (ImportError, AttributeError, OSError, TypeError, ValueError):
+                    _kernel = False
     return _kernel
 
 
