@@ -18,7 +18,7 @@ scipy.signal itself is still imported for raw ``iir`` sections (tf2sos), by the 
 it, by the plots, and by the fallback.
 """
 from .butter import butter_sos
-from .response import freqz_sos, minimize_bounded
+from .response import freqz_sos, minimize_bounded, point_response
 from .kernel import sosfilt
 
-__all__ = ["butter_sos", "freqz_sos", "minimize_bounded", "sosfilt"]
+__all__ = ["butter_sos", "freqz_sos", "minimize_bounded", "point_response", "sosfilt"]

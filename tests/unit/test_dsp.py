@@ -9,7 +9,7 @@ import pytest
 from scipy import optimize, signal
 
 from chainrun import designers
-from chainrun.dsp import butter_sos, freqz_sos, minimize_bounded, sosfilt
+from chainrun.dsp import butter_sos, freqz_sos, minimize_bounded, point_response, sosfilt
 from chainrun.dsp import kernel as adapter
 
 RATES = (8000, 22050, 44100, 48000, 88200, 96000, 192000)
@@ -66,6 +66,16 @@ def test_the_response_is_scipys_freqz_sos_bit_for_bit():
         assert freqz_sos(sos, grid, 48000).tobytes() == want.tobytes()
         _, one = signal.freqz_sos(sos, worN=[1234.5], fs=48000)
         assert freqz_sos(sos, [1234.5], 48000).tobytes() == one.tobytes()
+
+
+def test_the_response_at_one_point_is_scipys_bit_for_bit():
+    # scipy.signal.freqz_sos (reference library) at single frequencies, as the guard's minimiser asks
+    rng = np.random.default_rng(8)
+    for sos in _chains():
+        at = point_response(sos)
+        for f in np.concatenate([rng.uniform(0.0, 24000.0, 200), np.geomspace(1e-3, 24000.0, 50)]):
+            _, want = signal.freqz_sos(sos, worN=[f], fs=48000)
+            assert np.complex128(at(f, 48000)).tobytes() == want[0].tobytes(), f
 
 
 def test_a_pole_on_the_unit_circle_gives_what_scipy_gives():
