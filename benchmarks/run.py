@@ -29,8 +29,9 @@ audio). Separately: peak RSS of A on a short vs a long file, 16 files with one v
 (whole process, and the part that grows with the audio: the same minus 16 one-second files),
 digital silence after loud content vs noise (denormals), and true-peak metering on vs off.
 
-Start-up: ``chainrun run`` (default workers) on a 1-second file against C on it, and ``chainrun
-check`` of the benchmark recipe against I0, whole process; the 1-second file is also the short file
+Start-up: ``chainrun run`` (default workers) on a 1-second file against C on it (also with both
+meters off, which shows the design, guard and filter path alone), and ``chainrun check`` of the
+benchmark recipe against I0, whole process; the 1-second file is also the short file
 subtracted for the per-second figures (wall and CPU time). The meters alone: a child process times
 one TruePeakMeter's ``update`` (and benchmarks/loudness_cost.py the loudness meter's) over 600 s of
 stereo noise in blocks, with ``time.process_time`` and one BLAS thread, and gives the true-peak
@@ -370,6 +371,7 @@ def main(argv: list[str] | None = None) -> int:
         **imports,
         "A short": chainrun_cmd(recipe, [short], out("a-short"), "--workers", "1"),
         "S short": chainrun_cmd(recipe, [short], out("s-short")),
+        "S bare short": chainrun_cmd(recipe, [short], out("s-bare-short"), "--no-true-peak", "--no-loudness"),
         "check": [sys.executable, "-m", "chainrun", "check", recipe],
         "A2 short": chainrun_cmd(recipe, [short], out("a2-short"), "--workers", "2"),
         "C short": [sys.executable, floor, short, out("c-short.wav")],
@@ -404,7 +406,9 @@ def main(argv: list[str] | None = None) -> int:
               f"- start-up: `chainrun run` (default workers) on the {short_s:g} s file {m.wall('S short'):.2f} s vs the "
               f"I/O floor C on it {m.wall('C short'):.2f} s: {m.wall('S short') / m.wall('C short'):.2f}; "
               f"`chainrun check` of the benchmark recipe {m.wall('check'):.2f} s vs I0 {m.wall('I0'):.2f} s: "
-              f"{m.wall('check') / m.wall('I0'):.2f}", ""]
+              f"{m.wall('check') / m.wall('I0'):.2f}; `chainrun run` with both meters off (`--no-true-peak "
+              f"--no-loudness`: design, guard, filter and reports only) {m.wall('S bare short'):.2f} s: "
+              f"{m.wall('S bare short') / m.wall('C short'):.2f} of C", ""]
 
     print("true peak on/off...", file=sys.stderr)
     tp = median_rounds({

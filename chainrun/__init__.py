@@ -17,9 +17,11 @@ The public Python API is small, and gives the same results as the command line:
 ``run_batch`` (the batch without reports or pictures) stays importable from here for callers of
 chainrun 0.1; new code calls :func:`run`. Every other name in the package is private.
 
-Importing the package loads numpy, soundfile and PyYAML only. scipy (about 0.6 s and
-76 MB) is imported by the functions that design, check, meter or filter, on first use,
-so that ``chainrun --help``, a usage error or a Ctrl-C at start-up answer at once.
+Importing the package loads numpy, soundfile and PyYAML only. scipy is imported on first use,
+so that ``chainrun --help``, a usage error or a Ctrl-C at start-up answer at once: designing,
+assessing and filtering a recipe without raw ``iir`` sections load only scipy's compiled sosfilt
+kernel (:mod:`chainrun.dsp`); scipy.signal (about 0.6 s and 76 MB) is imported by raw ``iir``
+sections, the meters that use it and the plots.
 """
 from .version import __version__
 

@@ -16,7 +16,8 @@ References
 .. [1] R. Bristow-Johnson, "Audio EQ Cookbook", W3C Working Group Note, 2021
    (https://www.w3.org/TR/audio-eq-cookbook/).
 .. [2] scipy.signal.butter (Butterworth design by the bilinear transform with
-   prewarping) and scipy.signal.tf2sos.
+   prewarping; ported to numpy in :mod:`chainrun.dsp.butter`, bit for bit) and
+   scipy.signal.tf2sos.
 """
 from __future__ import annotations
 
@@ -25,6 +26,8 @@ import warnings
 from typing import Any, Mapping
 
 import numpy as np
+
+from .dsp import butter_sos
 
 __all__ = ["highpass", "lowpass", "low_shelf", "high_shelf", "peak", "notch", "bandpass", "allpass",
            "gain", "iir"]
@@ -50,9 +53,8 @@ def _row(b: tuple[float, float, float], a: tuple[float, float, float]) -> np.nda
 
 
 def _pass(p: Params, rate: float, btype: str) -> np.ndarray:
-    if "q" not in p:
-        from scipy import signal          # imported on first use: see chainrun/__init__.py
-        return signal.butter(p["order"], p["freq"], btype=btype, fs=rate, output="sos")
+    if "q" not in p:     # scipy.signal.butter's rows, to the last bit, without importing scipy.signal
+        return butter_sos(p["order"], p["freq"], rate, btype)
     w0, c, s = _angular(p["freq"], rate)
     alpha = s / (2.0 * p["q"])
     if btype == "lowpass":   # Cookbook LPF

@@ -34,6 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .design import MIDSIDE, Chain
+from .dsp import freqz_sos, minimize_bounded, point_response
 from .impulse import _impulse, _midside_l1
 from .recipe import Guard, Location, Recipe
 from .section_types import raw_sections
@@ -106,14 +107,18 @@ class Assessment:
 def response_db(sos: np.ndarray, freqs: np.ndarray, rate: float) -> np.ndarray:
     """Magnitude of the cascade in dB at ``freqs`` (Hz), floored at FLOOR_DB.
 
-    A pole exactly on the unit circle (a rejected, unstable chain) makes the
-    response infinite there; scipy then yields inf or nan, read here as +inf dB,
-    without numpy's divide/invalid warnings on stderr.
+    The response is scipy.signal.freqz_sos's, computed the same way with numpy alone
+    (:func:`chainrun.dsp.freqz_sos`). A pole exactly on the unit circle (a rejected,
+    unstable chain) makes the response infinite there, inf or nan, read here as +inf
+    dB, without numpy's divide/invalid warnings on stderr.
     """
-    from scipy import signal              # imported on first use: see chainrun/__init__.py
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        _, h = signal.freqz_sos(sos, worN=np.asarray(freqs, dtype=float), fs=rate)
-        db = 20.0 * np.log10(np.abs(h))
+        return _db(freqz_sos(sos, np.asarray(freqs, dtype=float), rate))
+
+
+def _db(h: np.ndarray) -> np.ndarray:
+    """|h| in dB, nan read as +inf, floored at FLOOR_DB (within the caller's errstate)."""
+    db = 20.0 * np.log10(np.abs(h))
     return np.maximum(np.where(np.isnan(db), np.inf, db), FLOOR_DB)
 
 
@@ -187,18 +192,21 @@ def _extremes(sos: np.ndarray, rate: float, extra_hz: list[float]) -> tuple[floa
     grid = np.unique(grid)
     db = response_db(sos, grid, rate)
 
-    from scipy import optimize            # imported on first use: see chainrun/__init__.py
+    at = point_response(sos)          # response_db at one frequency, the same number, faster
+
+    def db_at(f: float) -> float:
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            return _db(np.atleast_1d(at(f, rate)))[0]
 
     def refine(i: int, sign: float) -> tuple[float, float]:
         lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, len(grid) - 1)]
         best = (float(db[i]), float(grid[i]))
         if hi > lo:
-            res = optimize.minimize_scalar(lambda f: -sign * response_db(sos, [f], rate)[0],
-                                           bounds=(lo, hi), method="bounded",
-                                           options={"xatol": max(lo, 1e-3) * 1e-7})
-            val = -sign * float(res.fun)
+            # scipy.optimize.minimize_scalar(method="bounded"), step for step (chainrun.dsp)
+            x, fun = minimize_bounded(lambda f: -sign * db_at(f), lo, hi, xatol=max(lo, 1e-3) * 1e-7)
+            val = -sign * float(fun)
             if sign * val > sign * best[0]:
-                best = (val, float(res.x))
+                best = (val, float(x))
         return best
 
     hi_db, hi_hz = refine(int(np.argmax(db)), +1.0)

@@ -10,6 +10,8 @@ import math
 
 import numpy as np
 
+from .dsp import sosfilt
+
 __all__ = ["IMPULSE_BLOCK", "IMPULSE_CAP", "IMPULSE_WORK", "TAIL_REL"]
 
 IMPULSE_BLOCK = 1 << 16     # impulse response computed in blocks of this many samples
@@ -82,7 +84,8 @@ def _cascade_tail(zi: np.ndarray, factors: tuple[np.ndarray, ...], row_l1: np.nd
 def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool]:
     """L1 norm of the impulse response, bounded from above, and whether it is exact.
 
-    The response is run block by block with carried state (scipy.signal.sosfilt, float64) and
+    The response is run block by block with carried state (scipy.signal.sosfilt's kernel through
+    :func:`chainrun.dsp.sosfilt`, float64) and
     ``sum |h[n]|`` summed; after each block the rest, ``sum_{n >= N} |h[n]|``, is bounded from the
     state by :func:`_cascade_tail`, without diagonalising anything, so repeated and near-equal
     poles are bounded as safely as any. The run stops when that bound is below ``TAIL_REL`` of the
@@ -93,7 +96,6 @@ def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool]:
     The figure is ``inf`` only when no finite bound was found. (The 60 dB decay time is not
     measured here: :func:`chainrun.guard.decay_60db` gives it from the largest pole radius.)
     """
-    from scipy import signal              # imported on first use: see chainrun/__init__.py
     sos = np.asarray(sos, dtype=np.float64)
     factors = _tail_factors(sos)
     after_impulse = np.stack([sos[:, 1] - sos[:, 4] * sos[:, 0], sos[:, 2] - sos[:, 5] * sos[:, 0]], axis=1)
@@ -107,7 +109,7 @@ def _impulse(sos: np.ndarray, rate: float, r_max: float) -> tuple[float, bool]:
     n, tail = 0, math.inf
     with np.errstate(over="ignore", invalid="ignore"):
         while True:
-            y, zi = signal.sosfilt(sos, impulse if n == 0 else silence, zi=zi)
+            y, zi = sosfilt(sos, impulse if n == 0 else silence, zi)
             sums.append(float(np.abs(y).sum()))
             n += IMPULSE_BLOCK
             total = math.fsum(sums)
@@ -140,7 +142,6 @@ def _midside_l1(sos_m: np.ndarray, sos_s: np.ndarray, r_max: float) -> tuple[flo
     responses' magnitudes cross. Both cascades run side by side as in :func:`_impulse`; the rest
     after N samples is at most the sum of the two tails' bounds (:func:`_cascade_tail`).
     """
-    from scipy import signal              # imported on first use: see chainrun/__init__.py
     cascades = [np.asarray(s, dtype=np.float64) for s in (sos_m, sos_s)]
     factors, row_l1s = [], []
     for sos in cascades:
@@ -160,7 +161,7 @@ def _midside_l1(sos_m: np.ndarray, sos_s: np.ndarray, r_max: float) -> tuple[flo
         while True:
             ys = []
             for k, sos in enumerate(cascades):
-                y, zis[k] = signal.sosfilt(sos, impulse if n == 0 else silence, zi=zis[k])
+                y, zis[k] = sosfilt(sos, impulse if n == 0 else silence, zis[k])
                 ys.append(np.abs(y))
             sums.append(float(np.maximum(ys[0], ys[1]).sum()))
             n += IMPULSE_BLOCK

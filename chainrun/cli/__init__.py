@@ -129,7 +129,7 @@ def main(argv: list[str] | None = None) -> int:
     except SystemExit as exc:      # usage error (2) or --help/--version (0)
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     args.argv = list(argv) if argv is not None else sys.argv[1:]
-    short = _memory_limit_problem()
+    short = _memory_limit_problem(args)
     if short:
         _err(short)
         return EXIT_USAGE
@@ -146,14 +146,17 @@ def main(argv: list[str] | None = None) -> int:
 _HEADROOM_MIB = 200
 
 
-def _memory_limit_problem() -> str | None:
+def _memory_limit_problem(args=None) -> str | None:
     """Under an address-space limit (``ulimit -v``): a line saying that it is too small, else None.
 
-    OpenBLAS starts one thread per core when scipy is first imported, each with its own buffers and
-    malloc arena; under a limit of a few hundred MB its start-up retries its allocations for ever. So
-    under a limit BLAS is kept to one thread (before scipy is imported), and what every command needs
-    (scipy.signal, a design, a block of samples) is tried once here: a limit too small for it is one
-    line and exit 2 before anything is touched, not a hang, a traceback, or a valid recipe rejected.
+    OpenBLAS starts one thread per core when scipy's linear algebra is first loaded, each with its own
+    buffers and malloc arena; under a limit of a few hundred MB its start-up retries its allocations for
+    ever. So under a limit BLAS is kept to one thread (before scipy is imported), and what the command
+    loads is tried once here: a limit too small for it is one line and exit 2 before anything is
+    touched, not a hang, a traceback, or a valid recipe rejected. Every command designs, assesses and
+    filters with :mod:`chainrun.dsp` (numpy and scipy's compiled sosfilt kernel, not scipy.signal);
+    ``run`` and ``scan`` also build the meters they will use (which import what they need), ``plot``
+    imports scipy.signal. Raw ``iir`` sections import scipy.signal later; the headroom allows for it.
     """
     try:
         import resource
@@ -177,13 +180,25 @@ def _memory_limit_problem() -> str | None:
         held = 0
     if held and limit < held + (_HEADROOM_MIB << 20):
         return message
+    command = getattr(args, "command", None)
     try:
         import numpy as np
-        from scipy import signal as _signal
 
-        sos = _signal.butter(4, 0.01, output="sos")
-        _signal.sosfilt(sos, np.zeros((2, 65536)), axis=-1)
-        _signal.sosfreqz(sos, worN=8192)
+        from ..dsp import butter_sos, freqz_sos, sosfilt
+
+        sos = butter_sos(4, 240.0, 48000, "lowpass")
+        sosfilt(sos, np.zeros((2, 65536)), np.zeros((len(sos), 2, 2)))
+        freqz_sos(sos, np.geomspace(1.0, 24000.0, 8192), 48000)
+        if command in ("run", "scan"):
+            from ..meters.loudness import LoudnessMeter
+            from ..meters.truepeak import TruePeakMeter
+
+            if not getattr(args, "no_true_peak", False):
+                TruePeakMeter(48000, 2)
+            if not getattr(args, "no_loudness", False):
+                LoudnessMeter(48000, 2)
+        elif command == "plot":
+            importlib.import_module("scipy.signal")
     except (MemoryError, ImportError, OSError):     # a library that cannot be mapped: "failed to map segment"
         return message
     return None

@@ -1,5 +1,9 @@
 """Filtering one file's blocks: sosfilt with the state carried, and the runtime guard.
 
+The filter is scipy.signal.sosfilt's compiled kernel, reached through :func:`chainrun.dsp.sosfilt`
+(the one adapter; scipy.signal.sosfilt itself when the kernel cannot be loaded): the same bytes
+without scipy.signal's import.
+
 A chain without channel paths filters every channel with its one cascade. A chain with paths
 (:class:`chainrun.design.Chain`, ``routing`` TRACKS) filters each group of tracks with its own
 cascade and state; a MIDSIDE chain encodes the two channels to ``M = (L + R) / 2`` and
@@ -12,6 +16,7 @@ import math
 import numpy as np
 
 from ..design import EVERY, MIDSIDE
+from ..dsp import sosfilt
 from ..errors import AudioError
 
 __all__ = ["_Filter"]
@@ -33,8 +38,6 @@ class _Filter:
     def __init__(self, sos, channels: int, bound: float):
         """``sos``: one cascade (S x 6) for every channel, or a Chain with channel paths
         (``Chain.filters``); ``bound``: the guard's worst-case peak gain of any output channel."""
-        from scipy.signal import sosfilt      # imported on first use: see chainrun/__init__.py
-        self._sosfilt = sosfilt
         self.routing = getattr(sos, "routing", EVERY)
         self.bound = bound
         self.in_peak = 0.0
@@ -80,13 +83,13 @@ class _Filter:
     def _apply(self, x: np.ndarray) -> np.ndarray:
         """One stretch of frames through the cascade(s), the state carried."""
         if self.routing == EVERY:
-            y, self.zi = self._sosfilt(self.sos, x, axis=-1, zi=self.zi)
+            y, self.zi = sosfilt(self.sos, x, self.zi)
             return y
         if self.routing == MIDSIDE:
             x = np.stack([(x[0] + x[1]) * 0.5, (x[0] - x[1]) * 0.5])     # M, S
         y = np.empty_like(x)
         for k, (sos, rows, zi) in enumerate(self._paths):
-            y[rows], zi_new = self._sosfilt(sos, x[rows], axis=-1, zi=zi)
+            y[rows], zi_new = sosfilt(sos, x[rows], zi)
             self._paths[k] = (sos, rows, zi_new)
         if self.routing == MIDSIDE:
             y = np.stack([y[0] + y[1], y[0] - y[1]])                     # L = M + S, R = M - S

@@ -23,6 +23,7 @@ from chainrun.audio.quantise import Quantiser, seed_for
 from chainrun.audio.reader import probe
 from chainrun.meters import MeterBank
 from chainrun.render import Policy, file as render_mod, render_file, scan_file
+from chainrun.render import filter as filter_mod
 
 RATE = 48000
 # A hand-typed stable resonance, poles at radius 0.99 and angle 0.1 rad (about 764 Hz at 48 kHz),
@@ -264,17 +265,17 @@ def test_filter_turning_nan_mid_file_delivers_nothing(tmp_path, write_audio, mon
     src = probe(str(_noise_file(write_audio)))
     out = tmp_path / "out"
     out.mkdir()
-    real = signal.sosfilt
+    real = filter_mod.sosfilt
     calls = []
 
-    def nan_on_third(sos, x, axis=-1, zi=None):
-        y, zf = real(sos, x, axis=axis, zi=zi)
+    def nan_on_third(sos, x, zi):
+        y, zf = real(sos, x, zi)
         calls.append(1)
         if len(calls) == 3:
             y[1, 17] = np.nan
         return y, zf
 
-    monkeypatch.setattr(signal, "sosfilt", nan_on_third)
+    monkeypatch.setattr(filter_mod, "sosfilt", nan_on_third)       # the filter's one call to sosfilt
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
     assert res.status == "failed" and res.output is None
     assert "\n" not in res.message and "non-finite" in res.message
@@ -303,7 +304,7 @@ def test_unexpected_fault_is_a_failed_file_not_an_exception(tmp_path, write_audi
     def broken(*args, **kwargs):
         raise ValueError("simulated fault\nsecond line")
 
-    monkeypatch.setattr(signal, "sosfilt", broken)
+    monkeypatch.setattr(filter_mod, "sosfilt", broken)
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
     # README.md 'Output and reports': failed = "unreadable input, NaN samples, a fault; nothing delivered"; one line
     assert res.status == "failed" and "\n" not in res.message and "simulated fault" in res.message

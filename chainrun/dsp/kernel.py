@@ -1,0 +1,107 @@
+"""The one adapter to scipy's compiled sosfilt kernel: the filter without scipy.signal's import.
+
+``from scipy.signal import sosfilt`` runs scipy.signal's package import (about 0.6 s and 75 MB,
+benchmarks/RESULTS.md) for one compiled loop. :func:`sosfilt` loads that loop's extension module,
+``scipy/signal/_sosfilt``, straight from its file (a few ms; the module registers itself under its
+own name, so a later ``import scipy.signal`` finds it and loads nothing twice) and does around it
+what scipy.signal.sosfilt does around it for float64: the same copies and layouts, so the output
+is the same to the last bit (tests/unit/test_dsp.py compares the two). When the kernel cannot be
+loaded or does not behave as expected on a small probe (another scipy layout or signature:
+ImportError, AttributeError, OSError, TypeError, ValueError), scipy.signal.sosfilt itself is used.
+"""
+from __future__ import annotations
+
+import importlib.machinery
+import importlib.util
+import os
+import sys
+import threading
+
+import numpy as np
+
+__all__ = ["sosfilt", "kernel_loaded"]
+
+_NAME = "scipy.signal._sosfilt"
+_kernel = None          # the compiled kernel, once loaded; False when it cannot serve
+_public = None          # scipy.signal.sosfilt, once imported (the fallback)
+_lock = threading.Lock()   # the render pipeline's threads may ask first at the same time
+
+
+def _load_kernel():
+    """scipy.signal._sosfilt._sosfilt, loaded from its file without importing scipy.signal."""
+    module = sys.modules.get(_NAME)
+    if module is None:
+        spec = importlib.util.find_spec("scipy")          # finds the package; runs none of its code
+        if spec is None or not spec.submodule_search_locations:
+            raise ImportError("scipy is not installed")
+        folder = os.path.join(list(spec.submodule_search_locations)[0], "signal")
+        for suffix in importlib.machinery.EXTENSION_SUFFIXES:
+            path = os.path.join(folder, "_sosfilt" + suffix)
+            if os.path.isfile(path):
+                break
+        else:
+            raise ImportError(f"no compiled _sosfilt module in {folder}")
+        loader = importlib.machinery.ExtensionFileLoader(_NAME, path)
+        module = importlib.util.module_from_spec(importlib.util.spec_from_file_location(_NAME, path, loader=loader))
+        loader.exec_module(module)
+        sys.modules.setdefault(_NAME, module)
+    kernel = module._sosfilt
+    # Probe: one first-order row, y[n] = 0.5 x[n] + 0.25 x[n-1] + 0.5 y[n-1], state carried in and out.
+    sos = np.array([[0.5, 0.25, 0.0, 1.0, -0.5, 0.0]])
+    x = np.array([[1.0, 0.0, 2.0, 0.0]])
+    zi = np.array([[[1.0, 0.0]]])
+    kernel(sos, x, zi)
+    if x.tolist() != [[1.5, 1.0, 1.5, 1.25]] or zi.tolist() != [[[0.625, 0.0]]]:
+        raise ValueError("scipy's compiled sosfilt kernel did not give the expected result")
+    return kernel
+
+
+def _get_kernel():
+    global _kernel
+    if _kernel is None:
+        with _lock:
+            if _kernel is None:
+                try:
+                    _kernel = _load_kernel()
+                except (ImportError, AttributeError, OSError, TypeError, ValueError):
+                    _kernel = False
+    return _kernel
+
+
+def kernel_loaded() -> bool:
+    """Whether :func:`sosfilt` runs scipy's compiled kernel directly (False: scipy.signal.sosfilt)."""
+    return bool(_get_kernel())
+
+
+def _public_sosfilt(sos, x, zi):
+    global _public
+    if _public is None:
+        from scipy.signal import sosfilt as public     # the fallback: scipy.signal's public function
+        _public = public
+    return _public(sos, x, axis=-1, zi=zi)
+
+
+def sosfilt(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``scipy.signal.sosfilt(sos, x, axis=-1, zi=zi)`` for float64: ``(y, zf)``.
+
+    ``sos`` (S, 6) with ``a0 == 1``; ``x`` (..., N) float64, filtered along its last axis; ``zi``
+    (S, ..., 2), the state carried in. Neither input is modified.
+    """
+    kernel = _get_kernel()
+    x = np.asarray(x)
+    sos = np.asarray(sos)
+    zi = np.asarray(zi)
+    if not kernel or x.dtype != np.float64 or sos.dtype != np.float64 or zi.dtype != np.float64:
+        return _public_sosfilt(sos, x, zi)
+    if sos.ndim != 2 or sos.shape[1] != 6 or not np.all(sos[:, 3] == 1):
+        raise ValueError("sos must have shape (n_sections, 6) with sos[:, 3] all ones")
+    n_sections = sos.shape[0]
+    if zi.shape != (n_sections,) + x.shape[:-1] + (2,):
+        raise ValueError(f"zi must have shape {(n_sections,) + x.shape[:-1] + (2,)}, got {zi.shape}")
+    # as scipy.signal.sosfilt does: the signals as C-ordered rows, the state as (signals, sections, 2),
+    # both copies that the kernel then overwrites
+    x_shape, zi_shape = x.shape, np.moveaxis(zi, 0, -2).shape
+    y = np.array(np.reshape(x, (-1, x.shape[-1])), np.float64, order="C")
+    z = np.array(np.reshape(np.moveaxis(zi, 0, -2), (-1, n_sections, 2)), np.float64, order="C")
+    kernel(np.ascontiguousarray(sos), y, z)
+    return y.reshape(x_shape), np.moveaxis(z.reshape(zi_shape), -2, 0)
