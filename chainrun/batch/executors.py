@@ -21,7 +21,6 @@ task to a worker running :func:`_render_in_worker`, and passes Ctrl-C on to its 
 from __future__ import annotations
 
 import errno
-import importlib
 import multiprocessing
 import os
 import signal
@@ -32,6 +31,7 @@ from dataclasses import replace
 from typing import Callable, NamedTuple, Protocol, Sequence
 
 from ..audio.source import Source
+from ..dsp.kernel import preload_kernels
 from ..interrupt import (allow_rendering, ctrl_c_stops_rendering, rendering_stopped, stop_point as _stop_point,
                          worker_rendering, worker_signals)
 from ..render import MAX_BLOCK, MIN_BLOCK, Policy, render_file
@@ -296,9 +296,10 @@ class PoolExecutor:
         return InlineExecutor(1).run(rest, finished)
 
     def run(self, tasks: Sequence[Task], finished: Finished) -> bool:
-        # The workers are forked: what the parent has imported they share. The guard has
-        # imported scipy.signal already; make sure, so that no worker pays its import again.
-        importlib.import_module("scipy.signal")
+        # The workers are forked: what the parent has loaded they share. Load the compiled filter
+        # loops the render path uses (scipy.signal itself only when a raw iir section or a fallback
+        # has imported it already), so that no worker pays for loading them again.
+        preload_kernels()
         allow_rendering()           # the workers fork with the flag as it is here
         interrupted = False
         tried_again: set[str] = set()      # files a broken worker pool took down, rendered once more

@@ -11,14 +11,18 @@ sections is small, so it is here:
 * :func:`freqz_sos` and :func:`minimize_bounded` (response.py): the guard's frequency response
   (scipy.signal.freqz_sos at given frequencies) and its bounded scalar minimiser
   (scipy.optimize.minimize_scalar, ``method="bounded"``), ported the same way;
-* :func:`sosfilt` (kernel.py): the ONE adapter to scipy's compiled sosfilt kernel, loaded
-  without running scipy.signal's package import, with scipy.signal.sosfilt as its fallback.
+* :func:`sosfilt` and :func:`lfilter` (kernel.py): the ONE adapter to scipy's compiled filter
+  loops (sosfilt for the chain, lfilter's for the loudness meter's K-weighting), loaded without
+  running scipy.signal's package import, with scipy.signal's public functions as the fallback;
+* :func:`kaiser_lowpass` (fir.py): scipy.signal.firwin's Kaiser-window low-pass, the true-peak
+  meter's interpolator, to the last bit.
 
-scipy.signal itself is still imported for raw ``iir`` sections (tf2sos), by the meters that use
-it, by the plots, and by the fallback.
+scipy.signal itself is still imported for raw ``iir`` sections (tf2sos), by the plots, and by the
+fallbacks.
 """
 from .butter import butter_sos
 from .response import freqz_sos, minimize_bounded, point_response
-from .kernel import sosfilt
+from .fir import kaiser_lowpass
+from .kernel import lfilter, sosfilt
 
-__all__ = ["butter_sos", "freqz_sos", "minimize_bounded", "point_response", "sosfilt"]
+__all__ = ["butter_sos", "freqz_sos", "kaiser_lowpass", "lfilter", "minimize_bounded", "point_response", "sosfilt"]

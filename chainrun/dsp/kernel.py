@@ -19,32 +19,43 @@ import threading
 
 import numpy as np
 
-__all__ = ["sosfilt", "kernel_loaded"]
+__all__ = ["sosfilt", "kernel_loaded", "lfilter", "sos2tf", "preload_kernels"]
 
-_NAME = "scipy.signal._sosfilt"
+_NAME = "scipy.signal._sosfilt"   # the module of the sosfilt kernel
 _kernel = None          # the compiled kernel, once loaded; False when it cannot serve
 _public = None          # scipy.signal.sosfilt, once imported (the fallback)
+_linear = None          # scipy.signal._sigtools._linear_filter, once loaded; False when it cannot serve
+_public_lfilter = None  # scipy.signal.lfilter, once imported (its fallback)
 _lock = threading.Lock()   # the render pipeline's threads may ask first at the same time
 
 
-def _load_kernel():
-    """scipy.signal._sosfilt._sosfilt, loaded from its file without importing scipy.signal."""
-    module = sys.modules.get(_NAME)
+def _extension(stem: str):
+    """scipy.signal's compiled module ``stem`` (``_sosfilt``, ``_sigtools``), loaded from its file
+    without running scipy.signal's package import; registered under its own name, so that a later
+    ``import scipy.signal`` finds it and loads nothing twice."""
+    name = f"scipy.signal.{stem}"
+    module = sys.modules.get(name)
     if module is None:
         spec = importlib.util.find_spec("scipy")          # finds the package; runs none of its code
         if spec is None or not spec.submodule_search_locations:
             raise ImportError("scipy is not installed")
         folder = os.path.join(list(spec.submodule_search_locations)[0], "signal")
         for suffix in importlib.machinery.EXTENSION_SUFFIXES:
-            path = os.path.join(folder, "_sosfilt" + suffix)
+            path = os.path.join(folder, stem + suffix)
             if os.path.isfile(path):
                 break
         else:
-            raise ImportError(f"no compiled _sosfilt module in {folder}")
-        loader = importlib.machinery.ExtensionFileLoader(_NAME, path)
-        module = importlib.util.module_from_spec(importlib.util.spec_from_file_location(_NAME, path, loader=loader))
+            raise ImportError(f"no compiled {stem} module in {folder}")
+        loader = importlib.machinery.ExtensionFileLoader(name, path)
+        module = importlib.util.module_from_spec(importlib.util.spec_from_file_location(name, path, loader=loader))
         loader.exec_module(module)
-        sys.modules.setdefault(_NAME, module)
+        sys.modules.setdefault(name, module)
+    return module
+
+
+def _load_kernel():
+    """scipy.signal._sosfilt._sosfilt, loaded from its file without importing scipy.signal."""
+    module = _extension("_sosfilt")
     kernel = module._sosfilt
     # Probe: one first-order row, y[n] = 0.5 x[n] + 0.25 x[n-1] + 0.5 y[n-1], state carried in and out.
     sos = np.array([[0.5, 0.25, 0.0, 1.0, -0.5, 0.0]])
@@ -105,3 +116,55 @@ def sosfilt(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray,
     z = np.array(np.reshape(np.moveaxis(zi, 0, -2), (-1, n_sections, 2)), np.float64, order="C")
     kernel(np.ascontiguousarray(sos), y, z)
     return y.reshape(x_shape), np.moveaxis(z.reshape(zi_shape), -2, 0)
+
+
+def _load_linear():
+    """scipy.signal._sigtools._linear_filter (lfilter's compiled loop), checked on a small probe."""
+    linear = _extension("_sigtools")._linear_filter
+    # Probe: y[n] = x[n] + 0.5 y[n-1] over two rows, state carried in and out.
+    y, zf = linear(np.array([1.0, 0.0]), np.array([1.0, -0.5]), np.array([[1.0, 0.0, 0.0], [0.0, 2.0, 0.0]]),
+                   -1, np.array([[0.0], [1.0]]))
+    if y.tolist() != [[1.0, 0.5, 0.25], [1.0, 2.5, 1.25]] or zf.tolist() != [[0.125], [0.625]]:
+        raise ValueError("scipy's compiled linear filter did not give the expected result")
+    return linear
+
+
+def lfilter(b: np.ndarray, a: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``scipy.signal.lfilter(b, a, x, axis=-1, zi=zi)`` for float64 and ``len(a) > 1``: ``(y, zf)``.
+
+    scipy.signal.lfilter hands exactly these arguments to its compiled loop on this path, so the
+    output is the same to the last bit (tests/unit/test_dsp.py); the public function is the fallback.
+    """
+    global _linear, _public_lfilter
+    if _linear is None:
+        with _lock:
+            if _linear is None:
+                try:
+                    _linear = _load_linear()
+                except (ImportError, AttributeError, OSError, TypeError, ValueError):
+                    _linear = False
+    b, a = np.atleast_1d(b), np.atleast_1d(a)
+    if _linear and len(a) > 1 and b.ndim == a.ndim == 1 and all(
+            np.asarray(v).dtype == np.float64 for v in (b, a, x, zi)):
+        return _linear(b, a, np.asarray(x), -1, np.asarray(zi))
+    if _public_lfilter is None:
+        from scipy.signal import lfilter as public        # the fallback: scipy.signal's public function
+        _public_lfilter = public
+    return _public_lfilter(b, a, x, axis=-1, zi=zi)
+
+
+def sos2tf(sos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``scipy.signal.sos2tf``: the cascade's numerator and denominator polynomials, float64."""
+    sos = np.asarray(sos, dtype=np.float64)
+    b = np.array([1.0])
+    a = np.array([1.0])
+    for row in sos:
+        b = np.convolve(b, row[:3])
+        a = np.convolve(a, row[3:])
+    return b, a
+
+
+def preload_kernels() -> None:
+    """Load both compiled loops now (before worker processes fork, so that they share them)."""
+    _get_kernel()
+    lfilter(np.array([1.0, 0.0]), np.array([1.0, -0.5]), np.zeros((1, 1)), np.zeros((1, 1)))

@@ -72,6 +72,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..dsp.kernel import lfilter, sos2tf
 from .gating import _GATE_POWER, _REL_GATE_LRA, _Histogram, _lufs, integrated_of
 from .weighting import channel_weights, k_weighting_sos
 
@@ -156,7 +157,7 @@ class LoudnessMeter:
 
     Notes
     -----
-    Cost: per block one ``scipy.signal.lfilter`` (both K-weighting stages as
+    Cost: per block one lfilter (scipy's compiled loop, through chainrun.dsp) (both K-weighting stages as
     one 4th-order filter) over the weighted channels (LFE and other 0-weight
     channels are not filtered), a square in place, a ``numpy.add.reduceat``
     over the 10 ms sub-blocks (no copy of the block: only the sub-block that
@@ -193,11 +194,10 @@ class LoudnessMeter:
         self._channels = int(channels)
         self._weights, self._note = channel_weights(self._channels, channel_mask)
         self._used = [c for c, g in enumerate(self._weights) if g != 0.0]
-        from scipy import signal              # imported on first use: see chainrun/__init__.py
-        self._lfilter = signal.lfilter
+        self._lfilter = lfilter               # scipy's compiled loop without scipy.signal's import (dsp)
         # Both stages as one 4th-order filter: one pass over the samples instead of two (the
         # readings move by less than 1e-9 LU from the cascade's, at 192 kHz; 1e-12 LU at 48 kHz).
-        self._b, self._a = signal.sos2tf(self._sos)
+        self._b, self._a = sos2tf(self._sos)
         self._zi = np.zeros((len(self._used), len(self._a) - 1))
         self._carry = np.zeros((len(self._used), 0))     # filtered samples of the incomplete sub-block
         self._subs = 0                                    # complete sub-blocks so far
@@ -271,14 +271,14 @@ class LoudnessMeter:
         n, period = x.shape[1], _FLUSH_PERIOD
         boundary = (frame0 // period + 1) * period          # first flush point after frame0
         if boundary >= frame0 + n:              # none inside the block, at most one at its end (the usual case)
-            y, self._zi = self._lfilter(self._b, self._a, x, axis=1, zi=self._zi)
+            y, self._zi = self._lfilter(self._b, self._a, x, self._zi)
             if boundary == frame0 + n:          # blocks of the period's size end on a flush point: no copy
                 self._zi[np.abs(self._zi) < _DENORMAL_FLOOR] = 0.0
             return y
         y, start = np.empty_like(x), 0
         for stop in list(range(boundary - frame0, n, period)) + [n]:
             if stop > start:
-                y[:, start:stop], self._zi = self._lfilter(self._b, self._a, x[:, start:stop], axis=1, zi=self._zi)
+                y[:, start:stop], self._zi = self._lfilter(self._b, self._a, x[:, start:stop], self._zi)
             if (frame0 + stop) % period == 0:
                 self._zi[np.abs(self._zi) < _DENORMAL_FLOOR] = 0.0
             start = stop

@@ -7,6 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..dsp.fir import kaiser_lowpass
+
 __all__ = ["TruePeakMeter", "TruePeakReading"]
 
 # --- true-peak interpolator -------------------------------------------------
@@ -47,9 +49,8 @@ def _interpolation_branches(factor: int) -> np.ndarray:
     windowed-sinc prototype is the identity and is not returned: the samples
     themselves stand for it.
     """
-    from scipy import signal              # imported on first use: see chainrun/__init__.py
     half = _TP_TAPS // 2
-    proto = signal.firwin(2 * half * factor + 1, 1.0 / factor, window=("kaiser", _TP_BETA)) * factor
+    proto = kaiser_lowpass(2 * half * factor + 1, 1.0 / factor, _TP_BETA) * factor   # firwin's taps, bit for bit
     k = np.arange(_TP_TAPS)
     centre = half * factor
     return np.array([proto[centre + (half - 1 - k) * factor + p] for p in range(1, factor)])

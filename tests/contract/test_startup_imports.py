@@ -61,6 +61,17 @@ def test_the_run_path_of_a_recipe_without_raw_sections_does_not_import_scipy_sig
     assert "scipy.signal" not in modules and "scipy.optimize" not in modules, sorted(modules)
 
 
+def test_the_default_run_path_with_every_meter_does_not_import_scipy_signal(tmp_path):
+    # the meters take the true-peak interpolator (a Kaiser-window low-pass) and the K-weighting filter's
+    # compiled loop from chainrun.dsp; two workers, so the loops are loaded before the workers fork
+    status, modules = _modules_after(tmp_path, "run", REPO / "recipes" / "boathouse-stems.yaml",
+                                     REPO / "samples", "-o", tmp_path / "out", "--workers", "2", "-q")
+    assert status == 0
+    assert (tmp_path / "out" / "boathouse" / "host_stem.wav").exists()
+    assert "scipy.signal" not in modules and "scipy.optimize" not in modules, sorted(modules)
+    assert {"scipy.signal._sosfilt", "scipy.signal._sigtools"} <= modules
+
+
 def test_under_a_memory_limit_check_tries_only_what_it_loads(tmp_path):
     # under ``ulimit -v`` the command first tries what it will load (chainrun.cli); for check that is
     # the numpy designs and the sosfilt kernel, not scipy.signal
