@@ -177,10 +177,7 @@ def _write_reports(result: BatchResult, report: str | None, command: list[str] |
         paths = write_reports(result, report, command=command)
     except ReportsInterrupted as exc:
         result.interrupted = True
-        paths = exc.written
-        if not paths:
-            errors = [f"{report or outdir}: error: interrupted while the reports were written: no report was "
-                      "written or replaced (an earlier run's reports there are left as they were)"]
+        paths = exc.written             # empty: none was replaced; the closing line of the run says so
     except ReportError as exc:
         paths = exc.written
         errors = exc.problems

@@ -163,7 +163,7 @@ def interrupted_line(document: dict, paths: dict[str, str] | None) -> str:
         parts.append(f"{left} not rendered (no partial file was left; the next run renders them)")
     head = "chainrun: interrupted" + ("" if left else " after the last file was rendered")
     where = (f"reports written to {', '.join(shown(p) for p in paths.values())}" if paths
-             else "no report was written (see above)")
+             else "no report was written or replaced (an earlier run's reports are left as they were)")
     return f"{head}: {', '.join(parts)}; {where}"
 
 
