@@ -219,3 +219,42 @@ def test_a_second_run_keeps_the_first_run_s_reports_under_a_dated_name(batch, ru
     run_cli("run", recipe, src, "-o", out, "--workers", "1", "--report", out / "named.json")
     assert sorted(n for n in os.listdir(out) if n.startswith("named")) == ["named.csv", "named.html", "named.json"]
     assert len([n for n in os.listdir(out) if n.startswith("chainrun-report")]) == 3 + 3 + 1
+
+
+# --------------------------------------------------------------------------- plot: section numbers
+
+NUMBERED = """\
+format: 1
+name: Saltings shelves
+chain:
+  - {type: low_shelf, freq: 120, gain_db: 4}
+  - {type: highpass, freq: 40, order: 2}
+  - {type: high_shelf, freq: 6000, gain_db: 3}
+  - {type: peak, freq: 1000, gain_db: -3, q: 2}
+  - {type: notch, freq: 50, q: 10}
+"""
+
+
+def test_section_numbers_sit_at_each_section_s_own_frequency(write_recipe):
+    # Before, a shelf was numbered where its plateau began (the first largest boost on the grid: a 6 kHz high
+    # shelf near Nyquist) and a high-pass at the far left. Now each number sits at the section's freq.
+    from chainrun import assess, design, load
+    from chainrun.report import svgchart
+    from chainrun.report.figure import response_figure
+    from chainrun.report.response import freq_grid
+
+    recipe = load(str(write_recipe(NUMBERED)))
+    chain = design(recipe, 48000)
+    assessment = assess(chain, recipe.guard, recipe)
+    fig = response_figure(recipe, chain, assessment)
+    badges = {a.get_text(): a.xy for a in fig.axes[0].texts if a.get_text().isdigit()}
+    freqs = [s.params["freq"] for s in recipe.sections]
+    assert {k: pytest.approx(x) for k, (x, _) in badges.items()} == {str(i + 1): f for i, f in enumerate(freqs)}
+    # the same in the HTML report's inline picture: each circle's centre is the section's freq on the log axis
+    svg = svgchart.response_svg(recipe, chain, assessment)
+    grid = freq_grid(chain, recipe, assessment)
+    lo, hi = np.log(grid[0]), np.log(grid[-1])
+    circles = [float(x) for x in re.findall(r'<circle cx="([\d.]+)" cy="[\d.]+" r="8.5"', svg)]
+    expected = [svgchart.LEFT + (np.log(f) - lo) / (hi - lo) * (svgchart.RIGHT - svgchart.LEFT) for f in freqs]
+    expected[4] += 13                          # the notch's centre runs off the bottom: its number sits beside it
+    assert circles == pytest.approx(expected, abs=0.06)
