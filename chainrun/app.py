@@ -171,11 +171,16 @@ def _check_report_folder(report: str) -> None:
 
 def _write_reports(result: BatchResult, report: str | None, command: list[str] | None,
                    outdir: str) -> tuple[dict[str, str], list[str]]:
-    from .report.write import ReportError, write_reports
+    """Write the three reports; returns the paths written and a line for each problem. A Ctrl-C meanwhile
+    marks the run as interrupted (the reports are then all three in place, or none was replaced)."""
+    from .report.write import ReportError, ReportsInterrupted, write_reports
 
     errors: list[str] = []
     try:
         paths = write_reports(result, report, command=command)
+    except ReportsInterrupted as exc:
+        result.interrupted = True
+        paths = exc.written             # empty: none was replaced; the closing line of the run says so
     except ReportError as exc:
         paths = exc.written
         errors = exc.problems
@@ -183,7 +188,7 @@ def _write_reports(result: BatchResult, report: str | None, command: list[str] |
         paths = {}
         errors = [f"{exc.filename or report or outdir}: error: cannot write the report: "
                   f"{(exc.strerror or str(exc)).lower()}"]
-    if errors:
+    if errors and not result.interrupted:
         errors[-1] += "; the files listed above as ok were delivered"
     return paths, errors
 

@@ -11,8 +11,8 @@ from typing import NamedTuple
 from .meters import MeterReading
 from .audio.source import Source
 
-__all__ = ["Status", "STATUSES", "STATUS_ORDER", "OK", "CLIPPED", "REJECTED", "FAILED", "SKIPPED", "DELIVERED",
-           "INTERRUPTED", "NOT_AUDIO", "MAC_METADATA", "QUIET_SKIPS", "FileResult"]
+__all__ = ["Status", "STATUSES", "STATUS_ORDER", "OK", "CLIPPED", "REJECTED", "FAILED", "SKIPPED", "NOT_RENDERED",
+           "DELIVERED", "INTERRUPTED", "css_name", "NOT_AUDIO", "MAC_METADATA", "QUIET_SKIPS", "FileResult"]
 
 
 class Status(NamedTuple):
@@ -29,15 +29,24 @@ STATUSES: dict[str, Status] = {s.word: s for s in (
                                       "nothing delivered"),
     Status("clipped", 2, "clipped", "delivered, but chainrun hard-clipped samples, or the true peak passes its "
                                     "ceiling"),
-    Status("ok", 3, "", "delivered"),
-    Status("skipped", 4, "", "not processed (not audio, no audio frames, or named twice)"),
+    Status("not rendered", 3, "not rendered", "the run was interrupted before this file was delivered; nothing "
+                                              "of it was left, and the next run renders it"),
+    Status("ok", 4, "", "delivered"),
+    Status("skipped", 5, "", "not processed (not audio, no audio frames, or named twice)"),
 )}
-OK, CLIPPED, REJECTED, FAILED, SKIPPED = "ok", "clipped", "rejected", "failed", "skipped"
+OK, CLIPPED, REJECTED, FAILED, SKIPPED, NOT_RENDERED = "ok", "clipped", "rejected", "failed", "skipped", "not rendered"
 STATUS_ORDER = {word: s.rank for word, s in STATUSES.items()}
 DELIVERED = frozenset({OK, CLIPPED})                  # statuses whose output is in place
 
+
+
+def css_name(word: str) -> str:
+    """A status word as an HTML class or anchor name (``not rendered`` -> ``not-rendered``)."""
+    return word.replace(" ", "-")
+
+
 # Messages that other modules recognise.
-INTERRUPTED = "not rendered: the batch was interrupted"
+INTERRUPTED = "the run was interrupted before this file was delivered"
 NOT_AUDIO = "not audio (by name and by content)"
 MAC_METADATA = "a macOS metadata file, not audio"
 QUIET_SKIPS = frozenset({NOT_AUDIO, MAC_METADATA})     # skips not worth a line on stderr

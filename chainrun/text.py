@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 import re
 
-__all__ = ["one_line", "shown", "db", "fmt_db", "reason", "first_line", "fault"]
+__all__ = ["one_line", "shown", "db", "fmt_db", "clock", "reason", "first_line", "fault"]
 
 _CONTROL_RE = re.compile(r"[\x00-\x1f\x7f]")
 
@@ -63,6 +63,19 @@ def fmt_db(x: float | None, unit: str = "dB") -> str:
     if math.isinf(x):
         return f"{'+' if x > 0 else '-'}inf {unit}"
     return f"{x:+.2f} {unit}"
+
+
+def clock(frames: int | None, rate: int | None, places: int = 3) -> str:
+    """Where sample ``frames`` falls at ``rate``, as ``h:mm:ss.mmm`` (``places`` decimals of a second, 0 for
+    ``h:mm:ss``), cut down to the last whole tick, never rounded up: exact for any whole frame count.
+    ``clock(178_800_024, 48000)`` is ``1:02:05.000``; ``-`` when either is unknown."""
+    if frames is None or not rate or frames < 0:
+        return "-"
+    unit = 10 ** places
+    s, frac = divmod(int(frames) * unit // int(rate), unit)
+    h, s = divmod(s, 3600)
+    m, s = divmod(s, 60)
+    return f"{h}:{m:02d}:{s:02d}" + (f".{frac:0{places}d}" if places else "")
 
 
 def reason(exc: BaseException) -> str:

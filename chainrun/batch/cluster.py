@@ -35,7 +35,7 @@ from typing import Sequence
 
 from ..errors import BatchError
 from ..interrupt import allow_rendering, ctrl_c_stops_rendering, rendering_stopped, stop_rendering
-from ..results import FAILED, INTERRUPTED, FileResult
+from ..results import FAILED, INTERRUPTED, NOT_RENDERED, FileResult
 from ..text import first_line
 from ..version import __version__
 from .executors import Finished, Task, _render_in_worker, still_the_rendered_file
@@ -112,7 +112,7 @@ def _render_on_worker(task: Task, event_name: str) -> FileResult:
     try:
         stop = Event(event_name)
         if stop.is_set():           # Ctrl-C, or the run is over: render nothing
-            r = FileResult(task.job.input, task.job.relpath, FAILED, INTERRUPTED, source=task.src)
+            r = FileResult(task.job.input, task.job.relpath, NOT_RENDERED, INTERRUPTED, source=task.src)
         else:
             threading.Thread(target=_watch, args=(stop, done), daemon=True, name="chainrun-stop-watch").start()
             try:

@@ -35,7 +35,7 @@ from ..dsp.kernel import preload_kernels
 from ..interrupt import (allow_rendering, ctrl_c_stops_rendering, rendering_stopped, stop_point as _stop_point,
                          worker_rendering, worker_signals)
 from ..render import MAX_BLOCK, MIN_BLOCK, Policy, render_file
-from ..results import DELIVERED, FAILED, INTERRUPTED, FileResult
+from ..results import DELIVERED, FAILED, INTERRUPTED, NOT_RENDERED, FileResult
 from ..fsutil import HELD_FOLDERS as _HELD_FOLDERS, open_below as _open_below, still_at as _still_at
 from ..text import first_line, reason as _reason
 from .discover import Job, foreign_run_folder, foreign_run_message
@@ -222,7 +222,7 @@ def _worker_init(parent: int | None = None) -> None:
 
 
 def _render_in_worker(job: Job, src: Source, sos, bound: float, policy: Policy, group=None) -> FileResult:
-    interrupted = FileResult(job.input, job.relpath, FAILED, INTERRUPTED, source=src)
+    interrupted = FileResult(job.input, job.relpath, NOT_RENDERED, INTERRUPTED, source=src)
     if rendering_stopped():
         return interrupted
     try:

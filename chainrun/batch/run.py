@@ -18,7 +18,7 @@ from ..version import __version__
 from ..errors import BatchError
 from ..recipe import Recipe
 from ..render import Policy
-from ..results import DELIVERED, FAILED, INTERRUPTED, OK, REJECTED, SKIPPED, FileResult
+from ..results import DELIVERED, FAILED, NOT_RENDERED, INTERRUPTED, OK, REJECTED, SKIPPED, FileResult
 from ..text import reason as _reason
 from .discover import Job
 from .executors import Executor, InlineExecutor, PoolExecutor, Task
@@ -162,7 +162,7 @@ def execute(prep: Prepared, workers: int = 1, progress=None, resume: bool = True
     done_inputs = {r.input for r in results}
     for job, src in prep.work:
         if job.input not in done_inputs:
-            results.append(FileResult(job.input, job.relpath, FAILED, INTERRUPTED, source=src))
+            results.append(FileResult(job.input, job.relpath, NOT_RENDERED, INTERRUPTED, source=src))
     order = {job.input: i for i, (job, _) in enumerate(prep.work)}
     results.sort(key=lambda r: (order.get(r.input, -1), r.relpath))
     recipe_of = {job.input: job.recipe for job, _ in prep.work} | {job.input: job.recipe for job, _ in prep.refused}
@@ -177,7 +177,7 @@ def _note_earlier_output(job: Job, r: FileResult) -> None:
     That file is left as it was (its recipe may no longer exist, so it could not be made again), but
     it is not this run's result, and someone collecting OUTDIR must not take it for one.
     """
-    if r.status not in (REJECTED, FAILED) or r.message == INTERRUPTED or r.output is not None:
+    if r.status not in (REJECTED, FAILED) or r.output is not None:
         return
     try:
         if not os.path.isfile(job.output) or os.path.samefile(job.output, job.input):

@@ -7,7 +7,7 @@ import sys
 from ..app import refuse_audio_recipe, refuse_recipe_inputs, run
 from ..batch.run import MAX_WORKERS
 from ..recipe import RecipeError, load
-from ..results import FAILED, INTERRUPTED, SKIPPED
+from ..results import SKIPPED
 from ..text import shown
 from .common import EXIT_NOT_OK, EXIT_OK, EXIT_USAGE, _err
 
@@ -68,7 +68,7 @@ class _Progress:
 
 def main(args: argparse.Namespace) -> int:
     from ..report.document import files_document
-    from ..report.table import console_summary, error_lines
+    from ..report.table import console_summary, error_lines, interrupted_line
 
     if args.workers is not None and args.workers > MAX_WORKERS:
         _err(f"--workers {args.workers} is out of range; allowed: 1 to {MAX_WORKERS}; no audio was touched")
@@ -115,12 +115,7 @@ def main(args: argparse.Namespace) -> int:
     for line in outcome.report_errors:
         _err(line)
     if result.interrupted:
-        left = sum(r.status == FAILED and r.message == INTERRUPTED for r in result.results)
-        if left:
-            _err(f"chainrun: interrupted; {left} file(s) not rendered (listed in the report as failed); "
-                 "no partial file was left, and the next run resumes")
-        else:
-            _err("chainrun: interrupted after the last file was rendered; every file is in the report")
+        _err(interrupted_line(document, outcome.report_paths))
     if not result.interrupted and all(r.status == SKIPPED for r in result.results):
         # an empty or wrong input folder is not a successful run: say what was searched
         searched = args.inputs or [getattr(args, "plan", None) or "the plan"]

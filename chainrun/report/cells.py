@@ -6,7 +6,7 @@ import math
 import re
 from typing import Any
 
-from ..results import SKIPPED, STATUSES
+from ..results import SKIPPED, STATUSES, css_name
 from ..text import fmt_db, one_line
 from .table import channels_of, meter_figure
 
@@ -74,7 +74,8 @@ def _fmt_db(x: float) -> str:
 
 def clipped_total(meters: dict | None) -> int | None:
     chans = channels_of(meters)
-    return sum(int(c.get("clipped_samples") or 0) for c in chans) if chans else None
+    counts = [int(c["clipped_samples"]) for c in chans if c.get("clipped_samples") is not None]
+    return sum(counts) if counts else None       # None: not measured, or no output (rejected, failed)
 
 
 def seconds_text(x: float | None) -> str:
@@ -86,7 +87,7 @@ def seconds_text(x: float | None) -> str:
 def status_badge(status: Any) -> str:
     s = plain(status)
     cls = s if s in STATUSES else SKIPPED
-    return f'<span class="status st-{cls}">{esc(s)}</span>'
+    return f'<span class="status st-{css_name(cls)}">{esc(s)}</span>'
 
 
 def num_text(x: Any, fmt: str, none: str = "-") -> str:

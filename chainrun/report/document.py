@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING, Any
 from ..version import __version__
 from .. import meters as meters_module
 from ..results import DELIVERED, STATUS_ORDER, FileResult
-from ..text import shown
+from ..text import clock, shown
 
 if TYPE_CHECKING:
     from ..batch.run import BatchResult
@@ -60,13 +60,19 @@ def headline_fields() -> list[dict]:
     return out
 
 
-def _meters_dict(reading) -> dict | None:
-    """A meter reading as JSON, each clipped region also given as [start in seconds, length in samples]."""
+def _meters_dict(reading, output_exists: bool = True) -> dict | None:
+    """A meter reading as JSON, each clipped region also given as [start in seconds, length in samples] and
+    as where it starts, ``h:mm:ss.mmm``. The meters of an output that was not delivered (rejected,
+    failed, not rendered) keep their levels, the levels it would have had, but count no clipped samples
+    (null): no output holds them."""
     if reading is None:
         return None
     d = reading.to_dict()
     for ch in d["channels"]:
+        if not output_exists:
+            ch.update(clipped_samples=None, clipped_region_count=None, clipped_regions=[])
         ch["clipped_regions_s"] = [[round(start / reading.rate, 6), length] for start, length in ch["clipped_regions"]]
+        ch["clipped_regions_at"] = [clock(start, reading.rate) for start, _ in ch["clipped_regions"]]
     return d
 
 
@@ -81,6 +87,7 @@ def _metadata_dict(m: dict | None) -> dict | None:
 def file_dict(r: FileResult) -> dict:
     """One file's result as JSON-safe data."""
     s = r.source
+    delivered = r.status in DELIVERED          # only a delivered file has an output whose clipping can be counted
     d = {
         "input": shown(r.input), "relpath": shown(r.relpath), "output": shown(r.output),
         "status": r.status, "message": shown(r.message),
@@ -89,11 +96,11 @@ def file_dict(r: FileResult) -> dict:
         "format": s.format if s else None, "subtype": s.subtype if s else None,
         "out_format": r.out_format, "out_subtype": r.out_subtype, "dither": r.dither if r.out_subtype else None,
         "over_db": _num(r.over_db), "trim_db": _num(r.trim_db), "gain_db": _num(r.gain_db),
-        "clipped_by_chainrun": r.clipped_by_chainrun, "seconds": round(r.seconds, 4),
+        "clipped_by_chainrun": r.clipped_by_chainrun if delivered else None, "seconds": round(r.seconds, 4),
         "loudness_gain_db": _num(getattr(r, "loudness_gain_db", None)),
         "loudness_shortfall_lu": _num(getattr(r, "loudness_shortfall_lu", None)),
         "input_meters": _meters_dict(r.input_meters),
-        "output_meters": _meters_dict(r.output_meters),
+        "output_meters": _meters_dict(r.output_meters, delivered),
         "metadata": _metadata_dict(r.metadata),
     }
     d.update(r.extra)

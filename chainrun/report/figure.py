@@ -185,7 +185,7 @@ def response_figure(recipe: Recipe, chain: Chain, assessment: Assessment) -> Fig
         colour = _SECTION_COLOURS[k % len(_SECTION_COLOURS)]
         dash = _SECTION_DASHES[(k + k // len(_SECTION_COLOURS)) % len(_SECTION_DASHES)]
         ax.plot(freqs, np.clip(db, bottom - 10, top + 10), color=colour, lw=1.2, alpha=0.65, ls=dash, zorder=2)
-        x, y, dy = _label_spot(freqs, db, k, bottom, top)
+        x, y, dy = _label_spot(freqs, db, k, bottom, top, section.params.get("freq"))
         offset = (9, 0) if dy is None else (0, dy)
         ax.annotate(str(i + 1), xy=(x, y), xytext=offset, textcoords="offset points", fontsize=7.5, color=colour,
                     weight="bold", ha="center", va="center", zorder=6,

@@ -25,10 +25,11 @@ from importlib import resources
 from typing import Any, Iterable
 
 from ..section_types import param_text
-from ..results import CLIPPED, DELIVERED, STATUS_ORDER, STATUSES
+from ..results import CLIPPED, DELIVERED, STATUS_ORDER, STATUSES, css_name
+from ..text import clock
 from .cells import (clipped_total, db_cell, esc, gain_cell, loudness_cell, num_text, plain, seconds_text,
                     status_badge)
-from .table import channels_of, worst_first
+from .table import channels_of, duration_text, worst_first
 
 __all__ = ["render_html"]
 
@@ -78,8 +79,8 @@ def _summary(data: dict, ordered: list[dict]) -> list[str]:
     counts = {s: sum(f.get("status") == s for f in ordered) for s in STATUS_ORDER}
     out = ['<h2 id="summary">Summary</h2>']
     if summary.get("interrupted"):
-        out.append('<p class="banner"><strong>Interrupted.</strong> The batch was stopped; files not yet rendered '
-                   "are listed as failed, and no partial output was left.</p>")
+        out.append('<p class="banner"><strong>Interrupted.</strong> The batch was stopped; files it did not '
+                   "deliver are listed as not rendered, and no partial output was left.</p>")
     attention = sum(counts[s] for s in _ATTENTION)
     if attention:
         out.append(f'<p class="banner"><strong>{attention} of {total} file(s) need attention</strong>: '
@@ -91,12 +92,13 @@ def _summary(data: dict, ordered: list[dict]) -> list[str]:
     out.append('<ul class="counts">')
     for s in STATUS_ORDER:
         n = counts[s]
-        inner = (f'<span class="n">{n}</span><span class="status st-{s}">{s}</span> '
+        c = css_name(s)
+        inner = (f'<span class="n">{n}</span><span class="status st-{c}">{s}</span> '
                  f'<span class="what">{esc(STATUSES[s].meaning)}</span>')
         if n:
-            out.append(f'<li><a href="#first-{s}" class="b-{s}">{inner}</a></li>')
+            out.append(f'<li><a href="#first-{c}" class="b-{c}">{inner}</a></li>')
         else:
-            out.append(f'<li><span class="box zero b-{s}">{inner}</span></li>')
+            out.append(f'<li><span class="box zero b-{c}">{inner}</span></li>')
     out.append("</ul>")
     out.append(f"<p>{total} file(s); {seconds_text(summary.get('audio_seconds_delivered'))} of audio delivered in "
                f"{seconds_text(summary.get('wall_seconds'))}.</p>")
@@ -199,18 +201,21 @@ def _files_table(ordered: list[dict], with_recipe: bool = False) -> list[str]:
            '<th class="num">output clipped <span class="unit">samples</span></th>'
            '<th class="num">input loudness <span class="unit">LUFS</span></th>'
            '<th class="num">output loudness <span class="unit">LUFS</span></th>'
-           '<th class="num">loudness gain <span class="unit">dB</span></th><th>message</th></tr></thead>', "<tbody>"]
+           '<th class="num">loudness gain <span class="unit">dB</span></th><th class="num">rate <span class="unit">Hz'
+           '</span></th><th class="num">channels</th><th class="num">duration</th><th>message</th></tr></thead>',
+           "<tbody>"]
     seen: set[str] = set()
     for k, f in enumerate(ordered, 1):
         status = plain(f.get("status"))
         anchor = ""
         if status not in seen:
             seen.add(status)
-            anchor = f' id="first-{esc(status)}"'
+            anchor = f' id="first-{esc(css_name(status))}"'
         om, im = f.get("output_meters"), f.get("input_meters")
         clipped = clipped_total(om)
         if clipped is None:
-            clip_cell = '<td class="num"><span class="na" title="not measured">&ndash;</span></td>'
+            why = "not measured" if om is None or status in DELIVERED else "no output: not delivered"
+            clip_cell = f'<td class="num"><span class="na" title="{why}">&ndash;</span></td>'
         else:
             text = str(clipped or 0)
             flagged = _has_regions(f) or status == CLIPPED
@@ -218,7 +223,7 @@ def _files_table(ordered: list[dict], with_recipe: bool = False) -> list[str]:
             clip_cell = f'<td class="num">{link}</td>'
         title = f' title="{esc(f.get("input"))}"' if f.get("input") else ""
         out.append(
-            f"<tr{anchor} class=\"row-{esc(status)}\"><td class=\"num\">{k}</td>"
+            f"<tr{anchor} class=\"row-{esc(css_name(status))}\"><td class=\"num\">{k}</td>"
             f"<td class=\"file\"{title}>{esc(f.get('relpath') or f.get('input'))}</td>"
             + (f'<td title="{esc(f.get("recipe_path"))}">{esc(f.get("recipe_name"))}</td>' if with_recipe else "")
             +             f"<td>{status_badge(status)}</td>"
@@ -227,6 +232,8 @@ def _files_table(ordered: list[dict], with_recipe: bool = False) -> list[str]:
             + db_cell(om, "true_peak_dbtp")
             + clip_cell
             + loudness_cell(im) + loudness_cell(om) + gain_cell(f.get("loudness_gain_db"))
+            + "".join(f'<td class="num">{esc(num_text(f.get(k), ".0f"))}</td>' for k in ("rate_hz", "channels"))
+            + f'<td class="num" title="{esc(num_text(f.get("duration_s"), ".3f"))} s">{esc(duration_text(f))}</td>'
             + f"<td class=\"msg\">{esc(f.get('message'))}{_metadata_line(f)}</td></tr>")
     out += ["</tbody></table></div>"]
     return out
@@ -262,8 +269,8 @@ def _regions(ordered: list[dict]) -> list[str]:
         return out
     out.append(f"<p>{len(flagged)} output file(s) hold samples at full scale or were clipped by chainrun. "
                "Each region is a run of consecutive "
-               "clipped samples in one channel: where it starts (seconds from the start of the file, and the frame "
-               "number) and how many samples it lasts.</p>")
+               "clipped samples in one channel: where it starts (h:mm:ss.mmm from the start of the file, cut to the "
+               "millisecond, and the frame number) and how many samples it lasts.</p>")
     for n, (k, f) in enumerate(flagged):
         om = f.get("output_meters") or {}
         rate = om.get("rate") or f.get("rate_hz")
@@ -277,7 +284,7 @@ def _regions(ordered: list[dict]) -> list[str]:
             regions = c.get("clipped_regions") or []
             more += max(0, int(c.get("clipped_region_count") or len(regions)) - len(regions))
             for start, length in regions:
-                t = f"{start / rate:.6f} s" if rate else "&ndash;"
+                t = clock(start, rate) if rate else "&ndash;"
                 dur = f"{1000.0 * length / rate:.3f} ms" if rate else "&ndash;"
                 rows.append(f'<tr><td class="num">{ch}</td><td class="num">{t}</td><td class="num">{int(start)}</td>'
                             f'<td class="num">{int(length)}</td><td class="num">{dur}</td></tr>')

@@ -155,19 +155,26 @@ def magnitude_range(chain_db: np.ndarray, parts, recipe: Recipe, assessment: Ass
     return min(bottom, top - 12.0), top
 
 
-def label_spot(freqs: np.ndarray, db: np.ndarray, k: int, bottom: float, top: float):
+def label_spot(freqs: np.ndarray, db: np.ndarray, k: int, bottom: float, top: float, freq: float | None = None):
     """Where to number a section's curve: (frequency, dB, vertical offset in points or None).
 
-    At its largest boost if it boosts by 1 dB or more (or more than it cuts), else at its deepest cut;
-    a flat section (a gain) is numbered at a staggered place along the axis.
-    None means the cut runs off the bottom: number it beside the dip.
+    At the section's own frequency ``freq`` (its ``freq``, which :func:`freq_grid` puts on the grid), on its
+    curve: above it where the curve is at or above 0 dB, below it where it is under. A section without a
+    frequency on the axis (a gain, a raw ``iir``) is numbered at its largest boost if it boosts by 1 dB or
+    more (or more than it cuts), else at its deepest cut; a flat one at a staggered place along the axis.
+    None means the curve runs off the bottom there (a notch's centre): number it beside the dip.
     """
+    pad = 0.05 * (top - bottom)
+    if freq is not None and freqs[0] <= freq <= freqs[-1]:
+        j = int(np.argmin(np.abs(freqs - freq)))
+        if np.isfinite(db[j]):
+            v = float(np.clip(db[j], bottom + pad, top - pad))
+            return float(freqs[j]), v, (None if db[j] <= bottom + pad else 10 if db[j] >= 0 else -10)
     logf = np.log(freqs)
     lo, hi = logf[0], logf[-1]
     inside = (logf > lo + 0.03 * (hi - lo)) & (logf < hi - 0.03 * (hi - lo)) & np.isfinite(db)
     if not inside.any():
         return float(freqs[len(freqs) // 2]), 0.0, 0
-    pad = 0.05 * (top - bottom)
     vals = np.where(inside, np.clip(db, bottom + pad, top - pad), np.nan)
     if float(np.nanmax(vals) - np.nanmin(vals)) < 0.5:
         x = math.exp(lo + (0.1 + 0.1 * (k % 9)) * (hi - lo))

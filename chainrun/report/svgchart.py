@@ -179,8 +179,8 @@ def _max_gain(ax: _Axes, assessment: Assessment, freqs: np.ndarray) -> list[str]
     return out
 
 
-def _badge(ax: _Axes, freqs: np.ndarray, db: np.ndarray, k: int, i: int, colour: str) -> str:
-    f, v, dy = label_spot(freqs, db, k, ax.bottom, ax.top)
+def _badge(ax: _Axes, freqs: np.ndarray, db: np.ndarray, k: int, i: int, colour: str, freq=None) -> str:
+    f, v, dy = label_spot(freqs, db, k, ax.bottom, ax.top, freq)
     x, y = float(ax.x(f)), float(ax.y(v))
     if dy is None:
         x += 13
@@ -258,7 +258,8 @@ def response_svg(recipe: Recipe, chain: Chain, assessment: Assessment) -> str:
     body.append(f'<path class="chain" d="{ax.path(freqs, chain_db, 2)}" stroke="{CHAIN_COLOUR}" stroke-width="2.6"/>')
     body.append("</g>")
     body += _max_gain(ax, assessment, freqs)
-    body += [_badge(ax, freqs, db, k, i, SECTION_COLOURS[k % len(SECTION_COLOURS)]) for k, (i, _, db) in enumerate(parts)]
+    body += [_badge(ax, freqs, db, k, i, SECTION_COLOURS[k % len(SECTION_COLOURS)], section.params.get("freq"))
+             for k, (i, section, db) in enumerate(parts)]
     if not accepted:
         cx, cy = (LEFT + RIGHT) / 2, TOP + 0.45 * HEIGHT
         body.append(_text(cx, cy, "REJECTED", f' font-size="64" font-weight="bold" fill="{REJECTED_COLOUR}" '

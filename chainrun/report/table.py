@@ -12,11 +12,11 @@ import io
 import math
 from typing import Any
 
-from ..results import DELIVERED, INTERRUPTED, QUIET_SKIPS, SKIPPED, STATUS_ORDER, STATUSES
-from ..text import fmt_db, shown
+from ..results import DELIVERED, FAILED, NOT_RENDERED, QUIET_SKIPS, REJECTED, SKIPPED, STATUS_ORDER, STATUSES
+from ..text import clock, fmt_db, shown
 
-__all__ = ["CSV_FILE_FIELDS", "channels_of", "worst_first", "meter_figure", "loudness_text", "console_summary",
-           "error_lines", "csv_fields", "csv_text", "BELOW_GATE"]
+__all__ = ["CSV_FILE_FIELDS", "channels_of", "worst_first", "meter_figure", "loudness_text", "duration_text",
+           "console_summary", "interrupted_line", "error_lines", "csv_fields", "csv_text", "BELOW_GATE"]
 
 # The file columns of the CSV, split where the meter columns (in_<key>, out_<key>) go.
 CSV_FILE_FIELDS = ("input", "output", "status", "message", "rate_hz", "channels", "duration_s", "format", "subtype",
@@ -31,14 +31,17 @@ _CSV_TEXT_FIELDS = ("input", "output", "status", "message", "format", "subtype",
 # programs; a leading apostrophe makes it text.
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
-# The console table's meter columns: (heading, width, which meters, key, unit).
+# The console table (at most 80 columns before the file name): (heading, width, which meters, key); the unit is
+# in the heading, dBFS for the sample peak and dBTP for the true peak. The input's peak is in the other reports.
 _CONSOLE_COLUMNS = (
-    ("out peak", 11, "output_meters", "peak_dbfs", "dBFS"),
-    ("out true peak", 13, "output_meters", "true_peak_dbtp", "dBTP"),
-    ("in peak", 11, "input_meters", "peak_dbfs", "dBFS"),
+    ("out dBFS", 8, "output_meters", "peak_dbfs"),
+    ("out dBTP", 8, "output_meters", "true_peak_dbtp"),
 )
 # Its loudness columns, shown when some file's loudness was metered: (heading, width, which meters).
-_CONSOLE_LOUDNESS = (("in loudness", 11, "input_meters"), ("out loudness", 12, "output_meters"))
+_CONSOLE_LOUDNESS = (("in LUFS", 10, "input_meters"), ("out LUFS", 10, "output_meters"))
+# Its format columns, first: (heading, width).
+_CONSOLE_FORMAT = (("rate", 6), ("ch", 3), ("length", 9))
+_STATUS_WIDTH = max(len(word) for word in STATUS_ORDER)
 BELOW_GATE = "below gate"     # a loudness below the -70 LUFS gate: silence, or shorter than one 400 ms block
 
 
@@ -62,8 +65,9 @@ def meter_figure(meters: dict | None, key: str, unit: str = "") -> Any:
         return None
     if not any(key in c for c in chans):           # a figure of the whole stream, not of each channel
         return (meters.get("headline") or {}).get(key)
-    if unit == "samples":
-        return sum(int(c.get(key) or 0) for c in chans)
+    if unit == "samples":               # a count; null on every channel for an output that does not exist
+        counts = [int(c[key]) for c in chans if c.get(key) is not None]
+        return sum(counts) if counts else None
     vals = [c.get(key) for c in chans if c.get(key) is not None]
     if vals:
         return max(vals)
@@ -95,8 +99,23 @@ def _audio_seconds(document: dict) -> float:
                if f.get("duration_s") is not None and f.get("status") in DELIVERED)
 
 
+def duration_text(f: dict, places: int = 3) -> str:
+    """A file's duration as ``h:mm:ss.mmm`` (``places`` decimals), from its frames and rate; ``-`` if unknown."""
+    return clock(f.get("frames"), f.get("rate_hz"), places)
+
+
+def _number(x: Any) -> str:
+    """A dB or LUFS figure for the console table without its unit: ``-6.17``, ``-inf``, ``-`` for none."""
+    return fmt_db(x, "").strip()
+
+
+def _loudness_number(meters: dict | None) -> str:
+    text = loudness_text(meters)
+    return text[:-len(" LUFS")] if text.endswith(" LUFS") else text
+
+
 def console_summary(document: dict, paths: dict[str, str] | None = None, limit: int = 40) -> str:
-    """A short table, worst files first, and a totals line.
+    """A short table, worst files first, and a totals line; the table fits 80 columns before the file name.
 
     Every name and message is passed through :func:`~chainrun.text.shown` (again: a document read
     back from JSON, or report paths under a folder whose name is not UTF-8, hold raw text), so the
@@ -105,11 +124,14 @@ def console_summary(document: dict, paths: dict[str, str] | None = None, limit: 
     rows = worst_first(document.get("files") or [])
     loud = _CONSOLE_LOUDNESS if any((f.get(m) or {}).get("loudness") for f in rows
                                     for _, _, m in _CONSOLE_LOUDNESS) else ()
-    lines = [f"{'status':<9} " + " ".join(f"{h:>{w}}" for h, w, *_ in _CONSOLE_COLUMNS + loud) + "  file"]
+    heads = [(h, w) for h, w in _CONSOLE_FORMAT] + [(h, w) for h, w, *_ in _CONSOLE_COLUMNS + loud]
+    lines = [f"{'status':<{_STATUS_WIDTH}} " + " ".join(f"{h:>{w}}" for h, w in heads) + "  file"]
     for f in rows[:limit]:
-        figures = " ".join(f"{fmt_db(meter_figure(f.get(m), key), unit):>{w}}" for _, w, m, key, unit in _CONSOLE_COLUMNS)
-        figures += "".join(f" {loudness_text(f.get(m)):>{w}}" for _, w, m in loud)
-        lines.append(f"{shown(str(f['status'])):<9} {figures}  {shown(f['relpath'])}"
+        cells = [num_text(f.get("rate_hz")), num_text(f.get("channels")), duration_text(f, 1)]
+        cells += [_number(meter_figure(f.get(m), key)) for _, _, m, key in _CONSOLE_COLUMNS]
+        cells += [_loudness_number(f.get(m)) for _, _, m in loud]
+        lines.append(f"{shown(str(f['status'])):<{_STATUS_WIDTH}} "
+                     + " ".join(f"{c:>{w}}" for c, (_, w) in zip(cells, heads)) + f"  {shown(f['relpath'])}"
                      + (f"  ({shown(f['message'])})" if f.get("message") else ""))
     if len(rows) > limit:
         lines.append(f"... and {len(rows) - limit} more in the report")
@@ -123,6 +145,28 @@ def console_summary(document: dict, paths: dict[str, str] | None = None, limit: 
     return "\n".join(lines)
 
 
+def num_text(x: Any) -> str:
+    return "-" if x is None else str(x)
+
+
+def _files(n: int) -> str:
+    return f"{n} file{'' if n == 1 else 's'}"
+
+
+def interrupted_line(document: dict, paths: dict[str, str] | None) -> str:
+    """The closing line of an interrupted run: what was delivered, what was not rendered, where the reports are."""
+    summary = document.get("summary") or {}
+    delivered = sum(summary.get(s) or 0 for s in DELIVERED)
+    left = summary.get(NOT_RENDERED) or 0
+    parts = [f"{_files(delivered)} delivered"] + [f"{summary[s]} {s}" for s in (FAILED, REJECTED) if summary.get(s)]
+    if left:
+        parts.append(f"{left} not rendered (no partial file was left; the next run renders them)")
+    head = "chainrun: interrupted" + ("" if left else " after the last file was rendered")
+    where = (f"reports written to {', '.join(shown(p) for p in paths.values())}" if paths
+             else "no report was written or replaced (an earlier run's reports are left as they were)")
+    return f"{head}: {', '.join(parts)}; {where}"
+
+
 def error_lines(document: dict) -> list[str]:
     """One line per file that needs attention (failed, rejected, clipped), naming it first, for stderr
     (names and messages through :func:`~chainrun.text.shown`).
@@ -132,12 +176,11 @@ def error_lines(document: dict) -> list[str]:
     link loop); not for files that are plainly not audio. After Ctrl-C, the files
     not rendered because of it are left to the report and the closing line.
     """
-    interrupted = (document.get("summary") or {}).get("interrupted")
     lines = []
     for f in worst_first(document.get("files") or []):
         status, message = f.get("status"), f.get("message")
         word = STATUSES[status].error_word if status in STATUSES else ""
-        if word and not (interrupted and message == INTERRUPTED):
+        if word and status != NOT_RENDERED:           # files a Ctrl-C left: the closing line counts them
             lines.append(f"{shown(f['input'])}: {word}: {shown(message)}")
         elif status == SKIPPED and message not in QUIET_SKIPS:
             lines.append(f"{shown(f['input'])}: note: skipped: {shown(message)}")

@@ -210,8 +210,10 @@ def test_file_size_limit_in_a_real_process(tmp_path, season, tree_hashes):
     assert temporaries(out) == [] and tree_hashes(season) == before
 
 
-def test_html_report_too_large_keeps_the_json_and_csv(tmp_path, season, tree_hashes):
-    """RLIMIT_FSIZE at 30 kB: the stems (6 kB each) and the JSON and CSV reports fit, the HTML report does not."""
+def test_html_report_too_large_puts_no_report_in_place_and_keeps_the_json_aside(tmp_path, season, tree_hashes):
+    """RLIMIT_FSIZE at 30 kB: the stems (6 kB each) and the JSON and CSV reports fit, the HTML report does not;
+    the three are written together or none is, so none is put in OUTDIR and the JSON and CSV go to the
+    temporary folder."""
     out = tmp_path / "out"
     os.remove(season / "marsh" / "dawn.wav")
     proc = chainrun_proc("run", tmp_path / "recipe.yaml", season, "-o", out, "--workers", "1",
@@ -219,12 +221,18 @@ def test_html_report_too_large_keeps_the_json_and_csv(tmp_path, season, tree_has
     stdout, err = proc.communicate(timeout=300)
     assert proc.returncode == 1, err                     # the batch is ok, but a report is missing
     html = out / "chainrun-report.html"
-    assert err.splitlines()[-1] == (f"{html}: error: cannot write the report: file too large; the files listed "
-                                    "above as ok were delivered"), err
-    rep = report_of(out / "chainrun-report.json")
+    last = err.splitlines()[-1]
+    assert last.startswith(f"{html}: error: cannot write the report: file too large; the reports were written to "), err
+    assert last.endswith(" instead, all three together or none; the files listed above as ok were delivered"), err
+    aside = last.split("the reports were written to ")[1].split(" instead")[0].split(", ")
+    assert [os.path.splitext(p)[1] for p in aside] == [".json", ".csv"]        # the HTML page fits nowhere
+    rep = report_of(Path(aside[0]))
     assert {f["status"] for f in rep["files"]} == {"ok"}
-    assert (out / "chainrun-report.csv").exists() and not html.exists() and temporaries(out) == []
-    assert f"report: {out / 'chainrun-report.json'}, {out / 'chainrun-report.csv'}" in stdout
+    assert not any((out / f"chainrun-report.{k}").exists() for k in ("json", "csv", "html"))
+    assert temporaries(out) == []
+    assert f"report: {', '.join(aside)}" in stdout
+    for p in aside:
+        os.remove(p)
 
 
 def test_report_that_cannot_be_written_where_asked_goes_to_the_temporary_folder(tmp_path, season, run_cli,
@@ -243,8 +251,10 @@ def test_report_that_cannot_be_written_where_asked_goes_to_the_temporary_folder(
                              "--report", disk / "season.json")
     assert status == 1, err
     (fallback,) = spare.glob("chainrun-report-*.json")
-    assert f"{disk / 'season.json'}: error: cannot write the report: no space left on device; it was written to " \
-           f"{fallback} instead" in err.splitlines()
+    stem = str(fallback)[:-len(".json")]
+    assert f"{disk / 'season.json'}: error: cannot write the report: no space left on device; the reports were " \
+           f"written to {stem}.json, {stem}.csv, {stem}.html instead, all three together or none; the files " \
+           "listed above as ok were delivered" in err.splitlines()
     rep = report_of(fallback)
     assert {f["relpath"]: f["status"] for f in rep["files"]} == {"boathouse/guest.wav": "ok",
                                                                  "boathouse/host.wav": "ok", "marsh/dawn.wav": "ok"}

@@ -70,7 +70,7 @@ def finals(outdir: Path) -> dict[str, bytes]:
     out = {}
     for root, _, files in os.walk(outdir):
         for f in files:
-            if f.startswith(".") or f in REPORTS:
+            if f.startswith(".") or f.startswith("chainrun-report"):     # reports, and earlier runs' dated ones
                 continue
             p = os.path.join(root, f)
             out[os.path.relpath(p, outdir)] = Path(p).read_bytes()
@@ -196,9 +196,12 @@ def test_killed_batch_loses_nothing_and_the_next_run_resumes(case, season, tmp_p
             assert report["summary"]["interrupted"] is True
             delivered_at_stop = {f["relpath"] for f in report["files"] if f["status"] == "ok"}
             assert delivered_at_stop <= set(before)
-            n = int(said[0].split("interrupted; ")[1].split(" ")[0])
-            assert n == sum(f["message"] == "not rendered: the batch was interrupted" for f in report["files"])
-            assert n + len(delivered_at_stop) == len(FILES)
+            # the closing line: "chainrun: interrupted: 1 file delivered, 3 not rendered (...); reports written to ..."
+            delivered = int(said[0].split("interrupted: ")[1].split(" ")[0])
+            n = int(said[0].split(" not rendered")[0].rsplit(" ", 1)[1])
+            assert n == sum(f["status"] == "not rendered" for f in report["files"])
+            assert delivered == len(delivered_at_stop) and n + delivered == len(FILES)
+            assert f"reports written to {out / 'chainrun-report.json'}" in said[0]
             figure["delivered_at_stop"] = len(delivered_at_stop)
         else:
             delivered_at_stop = set()           # stopped before rendering began, or while writing the reports
@@ -407,7 +410,7 @@ def test_a_ctrl_c_inside_a_finaliser_still_stops_the_file(workers, tmp_path, wri
                              "--block-size", "4000")
     assert status == 1, err
     assert "Exception ignored" not in err
-    assert "interrupted; 1 file(s) not rendered" in err
+    assert "chainrun: interrupted: 0 files delivered, 1 not rendered" in err
     assert finals(tmp_path / "out") == {} and temporaries(tmp_path / "out") == []
     assert len(calls) == 3                        # analytic: it stopped before reading the 4th of 10 blocks
     assert signal.getsignal(signal.SIGINT) is before and not interrupt.rendering_stopped()
@@ -427,7 +430,7 @@ def test_a_worker_s_ctrl_c_handler_never_raises(tmp_path, write_audio):
         interrupt.on_sigint(signal.SIGINT, None)           # would raise in the middle of anything if it could
         assert interrupt.rendering_stopped()
         r = executors._render_in_worker(job, src, np.array([[1.0, 0, 0, 1, 0, 0]]), 1.0, render.Policy())
-        assert r.status == "failed" and r.message == INTERRUPTED and not os.path.exists(job.output)
+        assert r.status == "not rendered" and r.message == INTERRUPTED and not os.path.exists(job.output)
     finally:
         interrupt.allow_rendering()
 
@@ -452,7 +455,8 @@ def test_a_ctrl_c_after_the_last_block_still_counts(tmp_path, write_audio, run_c
     before = signal.getsignal(signal.SIGINT)
     status, _, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", "1")
     assert status == 1, err
-    assert err.splitlines()[-1] == "chainrun: interrupted after the last file was rendered; every file is in the report"
+    assert err.splitlines()[-1] == ("chainrun: interrupted after the last file was rendered: 1 file delivered; "
+                                    f"reports written to {', '.join(str(tmp_path / 'out' / n) for n in REPORTS)}")
     assert finals(tmp_path / "out") == {"take.wav": (tmp_path / "out" / "take.wav").read_bytes()}
     assert signal.getsignal(signal.SIGINT) is before and not interrupt.rendering_stopped()
 

@@ -294,10 +294,10 @@ def test_reports_show_input_and_output_loudness_and_the_gain(tmp_path, write_aud
     assert f["output_meters"]["headline"]["integrated_lufs"] == f["output_meters"]["loudness"]["integrated_lufs"]
     assert f["loudness_gain_db"] == pytest.approx(res.loudness_gain_db)
     text = console_summary(doc)
-    assert "in loudness" in text and "out loudness" in text
+    assert "in LUFS" in text and "out LUFS" in text
     line = next(li for li in text.splitlines() if li.endswith(")") and "take.wav" in li)
-    assert f"{res.output_meters.loudness.integrated_lufs:.1f} LUFS" in line
-    assert f"{res.input_meters.loudness.integrated_lufs:.1f} LUFS" in line
+    assert f" {res.output_meters.loudness.integrated_lufs:.1f} " in line
+    assert f" {res.input_meters.loudness.integrated_lufs:.1f} " in line
     rows = list(csv.DictReader(io.StringIO(csv_text(doc))))
     row = next(r for r in rows if r["input"].endswith("take.wav"))
     assert abs(float(row["out_integrated_lufs"]) + 18.0) <= 0.1 and row["in_integrated_lufs"]

@@ -27,7 +27,7 @@ guard:
   ceiling_dbfs: 0.0
 """
 # issue #6: the order a report lists files in
-RANK = {"failed": 0, "rejected": 1, "clipped": 2, "ok": 3, "skipped": 4}
+RANK = {"failed": 0, "rejected": 1, "clipped": 2, "ok": 4, "skipped": 5}     # 3: not rendered (no such file here)
 VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source", "track", "wbr"}
 
 
@@ -237,9 +237,13 @@ def test_clipped_regions_in_seconds_and_samples(report):
     assert regions
     start, length = regions[0]
     section = page[page.index('<h2 id="clipping">'):page.index('<h2 id="responses">')]
-    # analytic: time = start frame / sample rate
-    assert f'<td class="num">{start / RATE:.6f} s</td><td class="num">{start}</td><td class="num">{length}</td>' \
-        in section
+    # analytic: time = start frame / sample rate, as h:mm:ss.mmm cut to the millisecond, beside the frame number
+    for start, length in regions:
+        at = f"0:00:00.{start * 1000 // RATE:03d}"           # the file lasts 0.2 s
+        assert f'<td class="num">{at}</td><td class="num">{start}</td><td class="num">{length}</td>' in section
+    assert hot["output_meters"]["channels"][0]["clipped_regions_at"] == [f"0:00:00.{s * 1000 // RATE:03d}"
+                                                                         for s, _ in regions]
+    assert regions[-1][0] * 1000 // RATE > 0                 # some region starts past 1 ms: not all 0:00:00.000
     assert section.count("<details") == 1                    # only the file whose output clipped
 
 

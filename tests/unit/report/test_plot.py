@@ -119,8 +119,10 @@ def test_plot_unwritable_folder_exit_2(repo_root, tmp_path, capsys):
 def test_plot_of_rejected_recipe_says_rejected(repo_root, tmp_path, capsys):
     path = repo_root / "recipes" / "unstable-hand-typed.yaml"
     status, _, err = run_main(["plot", path, "-o", tmp_path / "x.png"], capsys)
-    assert status == 0                                  # the picture is the point: it shows why
+    assert status == 1                                  # rejected, as `check` says; the picture is still drawn
     assert "unstable" in err
+    assert err.splitlines()[-1] == (f"{path}: rejected: the guard rejects this chain at 48000 Hz (the picture "
+                                    "shows why); it would not be applied to any file")
     assert (tmp_path / "x.png").read_bytes()[:8] == PNG_SIGNATURE
     svg = response_svg(*chain_of(path))
     assert "REJECTED by the guard" in svg
