@@ -17,7 +17,7 @@
  * compiler neither fuses a product into an add (FMA contraction: setup.py passes
  * -ffp-contract=off; the pragmas below say the same to compilers that read them) nor reorders or
  * flushes anything (-ffast-math is refused below), and if doubles are evaluated as doubles
- * (FLT_EVAL_METHOD 0, not x87 extended precision).  A build where these cannot be promised
+ * (FLT_EVAL_METHOD 0, 1 or 16; not x87 extended precision).  A build where these cannot be promised
  * fails on purpose; the extension is optional, so chainrun then uses scipy's sosfilt.
  * tests/unit/render/test_kernel.py compares the bytes with scipy.signal.sosfilt.
  *
@@ -32,8 +32,11 @@
 #if defined(__FAST_MATH__)
 #error "chainrun's cascade kernel must not be built with -ffast-math (it would change the output bytes)"
 #endif
-#if defined(FLT_EVAL_METHOD) && FLT_EVAL_METHOD != 0
-#error "chainrun's cascade kernel needs doubles evaluated as doubles (FLT_EVAL_METHOD 0)"
+/* 0: every type in its own precision; 1: float as double; 16 (ISO/IEC TS 18661-3, e.g. with
+ * AVX512-FP16): _Float16 in its own, the rest as 0.  Doubles stay doubles in all three; 2 (x87
+ * long double) and -1 (unknown) would change the roundings. */
+#if defined(FLT_EVAL_METHOD) && FLT_EVAL_METHOD != 0 && FLT_EVAL_METHOD != 1 && FLT_EVAL_METHOD != 16
+#error "chainrun's cascade kernel needs doubles evaluated as doubles (FLT_EVAL_METHOD 0, 1 or 16)"
 #endif
 
 #if defined(__clang__)

@@ -35,6 +35,9 @@ class _Filter:
         (``Chain.filters``); ``bound``: the guard's worst-case peak gain of any output channel."""
         from scipy.signal import sosfilt      # imported on first use: see chainrun/__init__.py
         self._sosfilt = sosfilt
+        # Optional compiled cascade (render/kernel.py): the same bytes as sosfilt, when built.
+        from .kernel import cascade
+        self._sosfilt = cascade or self._sosfilt
         self.routing = getattr(sos, "routing", EVERY)
         self.bound = bound
         self.in_peak = 0.0
