@@ -22,7 +22,7 @@ from chainrun.audio import writer
 from chainrun.audio.quantise import Quantiser, seed_for
 from chainrun.audio.reader import probe
 from chainrun.meters import MeterBank
-from chainrun.render import Policy, file as render_mod, render_file, scan_file
+from chainrun.render import Policy, file as render_mod, kernel, render_file, scan_file
 
 RATE = 48000
 # A hand-typed stable resonance, poles at radius 0.99 and angle 0.1 rad (about 764 Hz at 48 kHz),
@@ -275,6 +275,7 @@ def test_filter_turning_nan_mid_file_delivers_nothing(tmp_path, write_audio, mon
         return y, zf
 
     monkeypatch.setattr(signal, "sosfilt", nan_on_third)
+    monkeypatch.setattr(kernel, "cascade", None)     # the fault goes in where the filter calls sosfilt
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
     assert res.status == "failed" and res.output is None
     assert "\n" not in res.message and "non-finite" in res.message
@@ -304,6 +305,7 @@ def test_unexpected_fault_is_a_failed_file_not_an_exception(tmp_path, write_audi
         raise ValueError("simulated fault\nsecond line")
 
     monkeypatch.setattr(signal, "sosfilt", broken)
+    monkeypatch.setattr(kernel, "cascade", None)     # the fault goes in where the filter calls sosfilt
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
     # README.md 'Output and reports': failed = "unreadable input, NaN samples, a fault; nothing delivered"; one line
     assert res.status == "failed" and "\n" not in res.message and "simulated fault" in res.message
