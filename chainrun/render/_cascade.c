@@ -123,8 +123,7 @@ get_doubles(PyObject *obj, Py_buffer *view, int writable, int ndim, const char *
     if (PyObject_GetBuffer(obj, view, flags) < 0)
         return -1;
     if (view->ndim != ndim || view->itemsize != 8 || view->format == NULL
-        || !(strcmp(view->format, "d") == 0 || strcmp(view->format, "<d") == 0
-             || strcmp(view->format, "=d") == 0)) {
+        || !(strcmp(view->format, "d") == 0 || strcmp(view->format, "=d") == 0)) {   /* native order */
         PyErr_Format(PyExc_TypeError, "cascade: %s must be a C-contiguous %d-d float64 array", name, ndim);
         PyBuffer_Release(view);
         return -1;
