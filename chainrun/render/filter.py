@@ -38,6 +38,11 @@ class _Filter:
     def __init__(self, sos, channels: int, bound: float):
         """``sos``: one cascade (S x 6) for every channel, or a Chain with channel paths
         (``Chain.filters``); ``bound``: the guard's worst-case peak gain of any output channel."""
+        # The optional compiled cascade (render/kernel.py) when it is built: the same bytes as sosfilt,
+        # in about half its time; else scipy's sosfilt kernel through the dsp adapter (module-level
+        # ``sosfilt``, looked up here so that a test can stand in for it).
+        from . import kernel
+        self._sosfilt = kernel.cascade or sosfilt
         self.routing = getattr(sos, "routing", EVERY)
         self.bound = bound
         self.in_peak = 0.0
@@ -83,13 +88,13 @@ class _Filter:
     def _apply(self, x: np.ndarray) -> np.ndarray:
         """One stretch of frames through the cascade(s), the state carried."""
         if self.routing == EVERY:
-            y, self.zi = sosfilt(self.sos, x, self.zi)
+            y, self.zi = self._sosfilt(self.sos, x, zi=self.zi)
             return y
         if self.routing == MIDSIDE:
             x = np.stack([(x[0] + x[1]) * 0.5, (x[0] - x[1]) * 0.5])     # M, S
         y = np.empty_like(x)
         for k, (sos, rows, zi) in enumerate(self._paths):
-            y[rows], zi_new = sosfilt(sos, x[rows], zi)
+            y[rows], zi_new = self._sosfilt(sos, x[rows], zi=zi)
             self._paths[k] = (sos, rows, zi_new)
         if self.routing == MIDSIDE:
             y = np.stack([y[0] + y[1], y[0] - y[1]])                     # L = M + S, R = M - S

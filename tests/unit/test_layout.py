@@ -37,6 +37,8 @@ def _modules() -> dict[str, Path]:
         parts = path.relative_to(PKG.parent).with_suffix("").parts
         name = ".".join(parts[:-1] if parts[-1] == "__init__" else parts)
         out[name] = path
+    for path in PKG.rglob("*.c"):          # a C extension's source: a module that imports nothing of ours
+        out[".".join(path.relative_to(PKG.parent).with_suffix("").parts)] = path
     return out
 
 
@@ -56,6 +58,8 @@ def _floor(name: str) -> int:
 
 
 def _imports(name: str, path: Path, known: set[str]) -> set[str]:
+    if path.suffix == ".c":
+        return set()
     is_pkg = path.name == "__init__.py"
     base = name.split(".") if is_pkg else name.split(".")[:-1]
     found = set()

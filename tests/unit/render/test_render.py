@@ -22,7 +22,7 @@ from chainrun.audio import writer
 from chainrun.audio.quantise import Quantiser, seed_for
 from chainrun.audio.reader import probe
 from chainrun.meters import MeterBank
-from chainrun.render import Policy, file as render_mod, render_file, scan_file
+from chainrun.render import Policy, file as render_mod, kernel, render_file, scan_file
 from chainrun.render import filter as filter_mod
 
 RATE = 48000
@@ -276,6 +276,7 @@ def test_filter_turning_nan_mid_file_delivers_nothing(tmp_path, write_audio, mon
         return y, zf
 
     monkeypatch.setattr(filter_mod, "sosfilt", nan_on_third)       # the filter's one call to sosfilt
+    monkeypatch.setattr(kernel, "cascade", None)     # the fault goes in where the filter calls sosfilt
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
     assert res.status == "failed" and res.output is None
     assert "\n" not in res.message and "non-finite" in res.message
@@ -304,7 +305,8 @@ def test_unexpected_fault_is_a_failed_file_not_an_exception(tmp_path, write_audi
     def broken(*args, **kwargs):
         raise ValueError("simulated fault\nsecond line")
 
-    monkeypatch.setattr(filter_mod, "sosfilt", broken)
+    monkeypatch.setattr(filter_mod, "sosfilt", broken)       # the filter's one call to sosfilt
+    monkeypatch.setattr(kernel, "cascade", None)     # the fault goes in where the filter calls sosfilt
     res = render_file(src, str(out / "take.wav"), UNITY, 1.0, Policy(block_size=1000), "take.wav")
     # README.md 'Output and reports': failed = "unreadable input, NaN samples, a fault; nothing delivered"; one line
     assert res.status == "failed" and "\n" not in res.message and "simulated fault" in res.message

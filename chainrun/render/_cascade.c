@@ -1,0 +1,216 @@
+/* chainrun.render._cascade: an optional compiled biquad cascade, bit for bit scipy.signal.sosfilt.
+ *
+ * One function, cascade(sos, x, zi, y): filters the channel-major float64 block x (C x N) through
+ * the S second-order sections in sos (S x 6, rows [b0, b1, b2, 1, a1, a2]) into y (C x N), with
+ * the state zi (C x S x 2) updated in place.  All four are C-contiguous float64 buffers; the
+ * Python side (chainrun/render/kernel.py) arranges them.  No numpy headers: only the buffer
+ * protocol, so building needs a C compiler and Python's headers and nothing else.
+ *
+ * Exactness.  Every sample goes through the sections in order, with the same operations in the
+ * same order as scipy's _sosfilt.pyx (transposed direct form II):
+ *
+ *     y  = b0*x + z0
+ *     z0 = (b1*x - a1*y) + z1
+ *     z1 = b2*x - a2*y
+ *
+ * Each product and sum is one IEEE-754 double operation, rounded once.  That holds only if the
+ * compiler neither fuses a product into an add (FMA contraction: setup.py passes
+ * -ffp-contract=off; the pragmas below say the same to compilers that read them) nor reorders or
+ * flushes anything (-ffast-math is refused below), and if doubles are evaluated as doubles
+ * (FLT_EVAL_METHOD 0, 1 or 16; not x87 extended precision).  A build where these cannot be promised
+ * fails on purpose; the extension is optional, so chainrun then uses scipy's sosfilt.
+ * tests/unit/render/test_kernel.py compares the bytes with scipy.signal.sosfilt.
+ *
+ * Speed comes from running two channels side by side in one 2-lane vector (GCC/Clang vector
+ * extensions: SSE2 on x86-64, NEON on AArch64): lane-wise IEEE operations, so each lane's
+ * result is exactly the scalar one.  An odd last channel runs the scalar loop.
+ */
+#define PY_SSIZE_T_CLEAN
+#include <Python.h>
+#include <float.h>
+
+#if defined(__FAST_MATH__)
+#error "chainrun's cascade kernel must not be built with -ffast-math (it would change the output bytes)"
+#endif
+/* 0: every type in its own precision; 1: float as double; 16 (ISO/IEC TS 18661-3, e.g. with
+ * AVX512-FP16): _Float16 in its own, the rest as 0.  Doubles stay doubles in all three; 2 (x87
+ * long double) and -1 (unknown) would change the roundings. */
+#if defined(FLT_EVAL_METHOD) && FLT_EVAL_METHOD != 0 && FLT_EVAL_METHOD != 1 && FLT_EVAL_METHOD != 16
+#error "chainrun's cascade kernel needs doubles evaluated as doubles (FLT_EVAL_METHOD 0, 1 or 16)"
+#endif
+
+#if defined(__clang__)
+#pragma STDC FP_CONTRACT OFF
+#elif defined(_MSC_VER)
+#pragma fp_contract(off)
+#endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
+
+/* Bump when the calling convention changes; kernel.py refuses a build of another version. */
+#define CASCADE_ABI 1
+
+#ifndef CASCADE_SOURCE_DIGEST
+#define CASCADE_SOURCE_DIGEST ""
+#endif
+
+/* Sections held on the stack by the two-lane loop; a longer cascade runs the scalar loop. */
+#define PAIR_MAX_SECTIONS 64
+
+static void
+cascade_one(const double *sos, Py_ssize_t n_sections, const double *x, double *y,
+            Py_ssize_t n_samples, double *zi)
+{
+    for (Py_ssize_t n = 0; n < n_samples; n++) {
+        double x_cur = x[n];
+        for (Py_ssize_t s = 0; s < n_sections; s++) {
+            const double *c = sos + 6 * s;
+            double *z = zi + 2 * s;
+            double x_new = c[0] * x_cur + z[0];
+            z[0] = c[1] * x_cur - c[4] * x_new + z[1];
+            z[1] = c[2] * x_cur - c[5] * x_new;
+            x_cur = x_new;
+        }
+        y[n] = x_cur;
+    }
+}
+
+#if defined(__GNUC__) || defined(__clang__)
+#define CASCADE_HAVE_PAIR 1
+typedef double pair_t __attribute__((vector_size(16)));
+
+static void
+cascade_pair(const double *sos, Py_ssize_t n_sections, const double *x0, const double *x1,
+             double *y0, double *y1, Py_ssize_t n_samples, double *zi0, double *zi1)
+{
+    pair_t b0[PAIR_MAX_SECTIONS], b1[PAIR_MAX_SECTIONS], b2[PAIR_MAX_SECTIONS];
+    pair_t a1[PAIR_MAX_SECTIONS], a2[PAIR_MAX_SECTIONS];
+    pair_t z0[PAIR_MAX_SECTIONS], z1[PAIR_MAX_SECTIONS];
+    for (Py_ssize_t s = 0; s < n_sections; s++) {
+        const double *c = sos + 6 * s;
+        b0[s] = (pair_t){c[0], c[0]};
+        b1[s] = (pair_t){c[1], c[1]};
+        b2[s] = (pair_t){c[2], c[2]};
+        a1[s] = (pair_t){c[4], c[4]};
+        a2[s] = (pair_t){c[5], c[5]};
+        z0[s] = (pair_t){zi0[2 * s], zi1[2 * s]};
+        z1[s] = (pair_t){zi0[2 * s + 1], zi1[2 * s + 1]};
+    }
+    for (Py_ssize_t n = 0; n < n_samples; n++) {
+        pair_t x_cur = {x0[n], x1[n]};
+        for (Py_ssize_t s = 0; s < n_sections; s++) {
+            pair_t x_new = b0[s] * x_cur + z0[s];
+            z0[s] = b1[s] * x_cur - a1[s] * x_new + z1[s];
+            z1[s] = b2[s] * x_cur - a2[s] * x_new;
+            x_cur = x_new;
+        }
+        y0[n] = x_cur[0];
+        y1[n] = x_cur[1];
+    }
+    for (Py_ssize_t s = 0; s < n_sections; s++) {
+        zi0[2 * s] = z0[s][0];
+        zi1[2 * s] = z0[s][1];
+        zi0[2 * s + 1] = z1[s][0];
+        zi1[2 * s + 1] = z1[s][1];
+    }
+}
+#else
+#define CASCADE_HAVE_PAIR 0
+#endif
+
+static int
+get_doubles(PyObject *obj, Py_buffer *view, int writable, int ndim, const char *name)
+{
+    int flags = PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | (writable ? PyBUF_WRITABLE : 0);
+    if (PyObject_GetBuffer(obj, view, flags) < 0)
+        return -1;
+    if (view->ndim != ndim || view->itemsize != 8 || view->format == NULL
+        || !(strcmp(view->format, "d") == 0 || strcmp(view->format, "=d") == 0)) {   /* native order */
+        PyErr_Format(PyExc_TypeError, "cascade: %s must be a C-contiguous %d-d float64 array", name, ndim);
+        PyBuffer_Release(view);
+        return -1;
+    }
+    return 0;
+}
+
+static PyObject *
+cascade(PyObject *self, PyObject *args)
+{
+    PyObject *o_sos, *o_x, *o_zi, *o_y;
+    Py_buffer sos, x, zi, y;
+    if (!PyArg_ParseTuple(args, "OOOO:cascade", &o_sos, &o_x, &o_zi, &o_y))
+        return NULL;
+    if (get_doubles(o_sos, &sos, 0, 2, "sos") < 0)
+        return NULL;
+    if (get_doubles(o_x, &x, 0, 2, "x") < 0)
+        goto fail_sos;
+    if (get_doubles(o_zi, &zi, 1, 3, "zi") < 0)
+        goto fail_x;
+    if (get_doubles(o_y, &y, 1, 2, "y") < 0)
+        goto fail_zi;
+
+    Py_ssize_t n_sections = sos.shape[0], n_signals = x.shape[0], n_samples = x.shape[1];
+    if (sos.shape[1] != 6 || zi.shape[0] != n_signals || zi.shape[1] != n_sections || zi.shape[2] != 2
+        || y.shape[0] != n_signals || y.shape[1] != n_samples) {
+        PyErr_SetString(PyExc_ValueError, "cascade: shapes must be sos (S, 6), x and y (C, N), zi (C, S, 2)");
+        goto fail_y;
+    }
+    {
+        const double *c = sos.buf, *xs = x.buf;
+        double *ys = y.buf, *zs = zi.buf;
+        Py_ssize_t i = 0;
+        Py_BEGIN_ALLOW_THREADS
+#if CASCADE_HAVE_PAIR
+        if (n_sections <= PAIR_MAX_SECTIONS) {
+            for (; i + 1 < n_signals; i += 2)
+                cascade_pair(c, n_sections, xs + i * n_samples, xs + (i + 1) * n_samples,
+                             ys + i * n_samples, ys + (i + 1) * n_samples, n_samples,
+                             zs + i * 2 * n_sections, zs + (i + 1) * 2 * n_sections);
+        }
+#endif
+        for (; i < n_signals; i++)
+            cascade_one(c, n_sections, xs + i * n_samples, ys + i * n_samples, n_samples,
+                        zs + i * 2 * n_sections);
+        Py_END_ALLOW_THREADS
+    }
+    PyBuffer_Release(&y);
+    PyBuffer_Release(&zi);
+    PyBuffer_Release(&x);
+    PyBuffer_Release(&sos);
+    Py_RETURN_NONE;
+
+fail_y:
+    PyBuffer_Release(&y);
+fail_zi:
+    PyBuffer_Release(&zi);
+fail_x:
+    PyBuffer_Release(&x);
+fail_sos:
+    PyBuffer_Release(&sos);
+    return NULL;
+}
+
+static PyMethodDef methods[] = {
+    {"cascade", cascade, METH_VARARGS,
+     "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
+     "C-contiguous float64 buffers; the same arithmetic as scipy.signal.sosfilt."},
+    {NULL, NULL, 0, NULL},
+};
+
+static struct PyModuleDef module = {
+    PyModuleDef_HEAD_INIT, "_cascade",
+    "chainrun's optional compiled biquad cascade (see chainrun/render/kernel.py).", -1, methods,
+};
+
+PyMODINIT_FUNC
+PyInit__cascade(void)
+{
+    PyObject *m = PyModule_Create(&module);
+    if (m == NULL)
+        return NULL;
+    if (PyModule_AddIntConstant(m, "ABI", CASCADE_ABI) < 0
+        || PyModule_AddStringConstant(m, "SOURCE_DIGEST", CASCADE_SOURCE_DIGEST) < 0
+        || PyModule_AddIntConstant(m, "PAIRED", CASCADE_HAVE_PAIR) < 0) {
+        Py_DECREF(m);
+        return NULL;
+    }
+    return m;
+}

@@ -1,0 +1,70 @@
+"""The optional compiled biquad cascade: the same bytes as scipy.signal.sosfilt, in less CPU.
+
+``cascade`` is a drop-in for ``sosfilt(sos, x, axis=-1, zi=zi) -> (y, zf)`` on channel-major
+float64 blocks, backed by the C extension ``chainrun.render._cascade`` (_cascade.c), or None when
+that is not usable; ``AVAILABLE`` says which and ``REASON`` why. The extension is built by
+``pip install`` when the machine has a C compiler and Python's headers, and skipped otherwise:
+chainrun then filters with scipy's sosfilt, byte for byte the same output.
+
+Set ``CHAINRUN_NO_KERNEL=1`` to leave the extension unused (to compare, or to rule it out).
+A build whose source digest differs from a ``_cascade.c`` lying beside it (an in-place build
+older than an edit of the source) is refused, so a stale build never stands in for the source.
+"""
+from __future__ import annotations
+
+import hashlib
+import os
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade"]
+
+ENV_OFF = "CHAINRUN_NO_KERNEL"
+_ABI = 1                                   # CASCADE_ABI in _cascade.c
+_SOURCE = Path(__file__).with_name("_cascade.c")
+
+
+def _load():
+    """(the extension module or None, why)."""
+    if os.environ.get(ENV_OFF, "").strip() not in ("", "0"):
+        return None, f"left unused: {ENV_OFF} is set"
+    try:
+        from . import _cascade
+    except ImportError as exc:
+        return None, f"not built ({exc}); scipy.signal.sosfilt is used"
+    if getattr(_cascade, "ABI", None) != _ABI:
+        return None, "built from another version of chainrun; rebuild it (DEVELOPERS.md)"
+    if _SOURCE.is_file() and hashlib.sha256(_SOURCE.read_bytes()).hexdigest() != _cascade.SOURCE_DIGEST:
+        return None, (f"stale: {_cascade.__file__} was built from another _cascade.c; "
+                      "rebuild with `python setup.py build_ext --inplace`")
+    return _cascade, f"compiled ({_cascade.__file__})"
+
+
+_module, REASON = _load()
+AVAILABLE = _module is not None
+
+
+def _cascade(sos, x, axis=-1, zi=None):
+    """sosfilt's call for chainrun's blocks: ``x`` (channels, frames), ``zi`` (sections, channels, 2).
+
+    Returns ``(y, zf)`` like ``scipy.signal.sosfilt(sos, x, axis=-1, zi=zi)``; inputs are not
+    modified. Anything else than float64 2-d blocks along the last axis goes to sosfilt itself."""
+    sos, x, zi = np.asarray(sos), np.asarray(x), np.asarray(zi)
+    if (axis not in (-1, 1) or x.ndim != 2 or sos.ndim != 2 or zi.ndim != 3
+            or np.result_type(sos, x, zi) != np.float64):
+        from scipy.signal import sosfilt
+        return sosfilt(sos, x, axis=axis, zi=zi)
+    if sos.shape[1] != 6 or zi.shape != (len(sos), len(x), 2):
+        raise ValueError(f"cascade: sos {sos.shape}, x {x.shape} and zi {zi.shape} do not fit together")
+    sos = np.ascontiguousarray(sos, dtype=np.float64)
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    state = np.ascontiguousarray(zi.transpose(1, 0, 2), dtype=np.float64)   # (channels, sections, 2)
+    if np.shares_memory(state, zi):
+        state = state.copy()                                                  # zi is never modified
+    y = np.empty_like(x)
+    _module.cascade(sos, x, state, y)
+    return y, state.transpose(1, 0, 2)
+
+
+cascade = _cascade if AVAILABLE else None

@@ -1,0 +1,165 @@
+"""render.kernel: the optional compiled cascade gives scipy.signal.sosfilt's bytes, or stays unused.
+
+The reference is scipy.signal.sosfilt (reference library), run on the same blocks with its own
+carried state; "identical" means the same float64 bytes for every output sample and every final
+state value. The cascades are stable biquads from the W3C Audio EQ Cookbook formulas, written out
+here (formulas from memory of the W3C Audio EQ Cookbook; verify), so no chainrun designer is used
+as a reference. The tests of the compiled code skip when the extension is not built; the tests of
+the fallback run everywhere.
+"""
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+from scipy import signal
+
+import chainrun.render.kernel as kernel
+from chainrun.render.filter import _Filter, sosfilt as filter_sosfilt
+from support import REPO
+
+# A stale build is not skipped: its tests fail, saying to rebuild.
+built = pytest.mark.skipif(not kernel.AVAILABLE and not kernel.REASON.startswith("stale"),
+                           reason=f"compiled cascade not in use: {kernel.REASON}")
+
+
+def cookbook(kind: str, f0: float, q: float, db: float, rate: float) -> np.ndarray:
+    """One SOS row [b0, b1, b2, 1, a1, a2] by the W3C Audio EQ Cookbook's formulas."""
+    w0 = 2 * np.pi * f0 / rate
+    cw, alpha, big_a = np.cos(w0), np.sin(w0) / (2 * q), 10 ** (db / 40)
+    sq = 2 * np.sqrt(big_a) * alpha
+    if kind == "peak":
+        b, a = (1 + alpha * big_a, -2 * cw, 1 - alpha * big_a), (1 + alpha / big_a, -2 * cw, 1 - alpha / big_a)
+    elif kind == "lowpass":
+        b, a = ((1 - cw) / 2, 1 - cw, (1 - cw) / 2), (1 + alpha, -2 * cw, 1 - alpha)
+    elif kind == "highpass":
+        b, a = ((1 + cw) / 2, -(1 + cw), (1 + cw) / 2), (1 + alpha, -2 * cw, 1 - alpha)
+    elif kind == "lowshelf":
+        b = (big_a * ((big_a + 1) - (big_a - 1) * cw + sq), 2 * big_a * ((big_a - 1) - (big_a + 1) * cw),
+             big_a * ((big_a + 1) - (big_a - 1) * cw - sq))
+        a = ((big_a + 1) + (big_a - 1) * cw + sq, -2 * ((big_a - 1) + (big_a + 1) * cw),
+             (big_a + 1) + (big_a - 1) * cw - sq)
+    else:                                                                   # highshelf
+        b = (big_a * ((big_a + 1) + (big_a - 1) * cw + sq), -2 * big_a * ((big_a - 1) + (big_a + 1) * cw),
+             big_a * ((big_a + 1) + (big_a - 1) * cw - sq))
+        a = ((big_a + 1) - (big_a - 1) * cw + sq, 2 * ((big_a - 1) - (big_a + 1) * cw),
+             (big_a + 1) - (big_a - 1) * cw - sq)
+    row = np.array([b[0], b[1], b[2], a[0], a[1], a[2]]) / a[0]
+    # analytic: a biquad is stable iff |a2| < 1 and |a1| < 1 + a2 (the stability triangle)
+    assert abs(row[5]) < 1 and abs(row[4]) < 1 + row[5]
+    return row
+
+
+def random_cascade(rng, rate=48000.0) -> np.ndarray:
+    kinds = ["peak", "lowpass", "highpass", "lowshelf", "highshelf"]
+    return np.array([cookbook(kinds[rng.integers(5)], rng.uniform(20, 0.45 * rate), rng.uniform(0.3, 12),
+                              rng.uniform(-18, 18), rate) for _ in range(rng.integers(1, 9))])
+
+
+def run_both(sos, blocks, channels):
+    """Feed the same blocks to the kernel and to sosfilt, each carrying its own state; compare
+    the bytes of every block's output and state."""
+    zk = zs = np.zeros((len(sos), channels, 2))
+    for x in blocks:
+        yk, zk = kernel.cascade(sos, x, axis=-1, zi=zk)
+        ys, zs = signal.sosfilt(sos, x, axis=-1, zi=zs)          # scipy.signal (reference library)
+        assert yk.shape == ys.shape and zk.shape == zs.shape
+        assert yk.tobytes() == ys.tobytes() and np.array_equal(yk, ys, equal_nan=True)
+        assert np.ascontiguousarray(zk).tobytes() == np.ascontiguousarray(zs).tobytes()
+
+
+@built
+def test_the_built_extension_is_current_and_in_use():
+    # A build from another _cascade.c is refused (kernel.REASON says "stale"): rebuild it.
+    assert kernel.AVAILABLE, kernel.REASON
+
+
+@built
+@pytest.mark.parametrize("seed", range(40))
+def test_kernel_gives_sosfilts_bytes_over_random_cascades_blocks_and_channels(seed):
+    rng = np.random.default_rng(seed)
+    sos, channels = random_cascade(rng), int(rng.integers(1, 9))
+    sizes = [int(rng.integers(0, 700)) * 2 + 1 for _ in range(4)] + [1]   # odd sizes
+    level = 10 ** rng.uniform(-3, 0)
+    blocks = [level * rng.standard_normal((channels, n)) for n in sizes]
+    run_both(sos, blocks, channels)
+
+
+@built
+@pytest.mark.parametrize("channels", [1, 2, 3])
+def test_kernel_gives_sosfilts_bytes_through_the_subnormal_range(channels):
+    rng = np.random.default_rng(7)
+    sos = np.array([cookbook("peak", 9000, 0.7, 6, 48000), cookbook("highpass", 3000, 0.5, 0, 48000)])
+    tiny = 1e-310 * rng.standard_normal((channels, 999))          # IEEE 754: subnormal doubles
+    loud_then_quiet = np.concatenate([1e-300 * rng.standard_normal((channels, 101)),
+                                      np.zeros((channels, 20001))], axis=1)
+    run_both(sos, [tiny, loud_then_quiet[:, :5001], loud_then_quiet[:, 5001:]], channels)
+
+
+@built
+def test_kernel_gives_sosfilts_bytes_at_huge_values_and_overflow():
+    rng = np.random.default_rng(8)
+    sos = np.array([cookbook("peak", 100, 8, 18, 48000), cookbook("lowshelf", 60, 0.7, 12, 48000)])
+    blocks = [1e300 * rng.standard_normal((2, 333)), 1e150 * rng.standard_normal((2, 777))]
+    run_both(sos, blocks, 2)
+
+
+@built
+def test_kernel_gives_sosfilts_bytes_on_long_cascades_and_strided_blocks():
+    rng = np.random.default_rng(9)
+    sos = np.concatenate([random_cascade(rng) for _ in range(12)])     # past the 64-section pair path
+    wide = rng.standard_normal((5, 4001))
+    run_both(sos, [wide[:, 1::2], wide[:, ::3]], 5)                     # non-contiguous views
+
+
+@built
+def test_kernel_leaves_its_inputs_untouched():
+    rng = np.random.default_rng(10)
+    sos, x = random_cascade(rng), rng.standard_normal((2, 301))
+    zi = rng.standard_normal((len(sos), 2, 2))
+    copies = [a.copy() for a in (sos, x, zi)]
+    kernel.cascade(sos, x, zi=zi)
+    assert all(np.array_equal(a, c) for a, c in zip((sos, x, zi), copies))
+
+
+@built
+def test_a_stale_build_is_refused(tmp_path, monkeypatch):
+    edited = tmp_path / "_cascade.c"
+    edited.write_text((REPO / "chainrun/render/_cascade.c").read_text() + "\n/* edited */\n")
+    monkeypatch.setattr(kernel, "_SOURCE", edited)
+    module, reason = kernel._load()
+    assert module is None and reason.startswith("stale")
+
+
+def test_the_environment_switch_leaves_the_kernel_unused():
+    code = "import chainrun.render.kernel as k; print(k.AVAILABLE, k.cascade is None, k.REASON)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                         env={"PYTHONPATH": str(REPO), kernel.ENV_OFF: "1"}, cwd=REPO).stdout
+    assert out.startswith("False True left unused"), out
+
+
+def _filter_signal(chain, channels, x, blocks):
+    f = _Filter(chain, channels, 1e6)
+    out, frame = [], 0
+    for n in blocks:
+        out.append(f(x[:, frame:frame + n].copy(), frame, float(np.abs(x[:, frame:frame + n]).max())))
+        frame += n
+    return f, np.concatenate(out, axis=1)
+
+
+@pytest.mark.parametrize("channels", [1, 2, 6])
+def test_the_filter_path_gives_the_same_bytes_with_and_without_the_kernel(monkeypatch, channels):
+    rng = np.random.default_rng(11)
+    sos = random_cascade(rng)
+    blocks = [65535, 2, 40001, 1]                      # across the 65536-frame denormal flush point
+    x = 0.25 * rng.standard_normal((channels, sum(blocks)))
+    with_kernel, y_k = _filter_signal(sos, channels, x, blocks)
+    assert with_kernel._sosfilt is (kernel.cascade or filter_sosfilt)
+    monkeypatch.setattr(kernel, "cascade", None)       # as when the extension is not built
+    without, y_s = _filter_signal(sos, channels, x, blocks)
+    assert without._sosfilt is filter_sosfilt
+    assert y_k.tobytes() == y_s.tobytes()
+    # scipy.signal (reference library): the whole signal at once, no state carried by chainrun
+    assert np.array_equal(y_s, signal.sosfilt(sos, x, axis=-1))
