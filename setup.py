@@ -1,7 +1,7 @@
 """Build hook for chainrun's one optional C extension; everything else is in pyproject.toml.
 
-chainrun.render._cascade is a compiled biquad cascade giving the same bytes as
-scipy.signal.sosfilt, faster (chainrun/render/kernel.py, DEVELOPERS.md "The compiled cascade").
+chainrun.dsp._cascade is a compiled biquad cascade giving the same bytes as
+scipy.signal.sosfilt, faster (chainrun/dsp/compiled.py, DEVELOPERS.md "The compiled cascade").
 It is optional: without a C compiler or Python's headers the build prints a warning, the
 install goes on, and chainrun filters with scipy's sosfilt.
 """
@@ -11,7 +11,7 @@ from pathlib import Path
 from setuptools import Extension, setup
 from setuptools.command.build_ext import build_ext
 
-SOURCE = "chainrun/render/_cascade.c"
+SOURCE = "chainrun/dsp/_cascade.c"
 # The source's digest is built into the module; kernel.py refuses a build whose digest does not
 # match a _cascade.c lying beside it (a stale in-place build after an edit of the source).
 DIGEST = hashlib.sha256((Path(__file__).parent / SOURCE).read_bytes()).hexdigest()
@@ -31,7 +31,7 @@ class BuildExact(build_ext):
 
 
 setup(
-    ext_modules=[Extension("chainrun.render._cascade", [SOURCE], optional=True,
+    ext_modules=[Extension("chainrun.dsp._cascade", [SOURCE], optional=True,
                            define_macros=[("CASCADE_SOURCE_DIGEST", f'"{DIGEST}"')])],
     cmdclass={"build_ext": BuildExact},
 )

@@ -1,4 +1,4 @@
-"""CPU cost of the filter call: the compiled cascade (chainrun.render.kernel) against scipy's sosfilt.
+"""CPU cost of the filter call: the compiled cascade (chainrun.dsp.compiled) against scipy's sosfilt.
 
 Part 1, in process: generates stereo 48 kHz noise (about -20 dBFS RMS) in blocks of 65536 frames,
 designs the benchmark's six biquads (benchmarks/run.py's RECIPE), and filters all of it with the
@@ -31,7 +31,7 @@ sys.path.insert(0, HERE)
 from run import RECIPE, make_noise_file  # noqa: E402  (benchmarks/run.py: the same chain and files)
 
 import chainrun  # noqa: E402
-from chainrun.render import kernel  # noqa: E402
+from chainrun.dsp import compiled as kernel  # noqa: E402
 
 RATE, CHANNELS, BLOCK = 48000, 2, 65536
 

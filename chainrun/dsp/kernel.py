@@ -19,6 +19,8 @@ import threading
 
 import numpy as np
 
+from . import compiled
+
 __all__ = ["sosfilt", "kernel_loaded", "lfilter", "sos2tf", "preload_kernels"]
 
 _NAME = "scipy.signal._sosfilt"   # the module of the sosfilt kernel
@@ -144,6 +146,10 @@ def lfilter(b: np.ndarray, a: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tupl
                 except (ImportError, AttributeError, OSError, TypeError, ValueError):
                     _linear = False
     b, a = np.atleast_1d(b), np.atleast_1d(a)
+    if compiled.linear is not None:                # the optional compiled loop (compiled.py), when built
+        done = compiled.linear(b, a, x, zi)
+        if done is not None:
+            return done
     if _linear and len(a) > 1 and b.ndim == a.ndim == 1 and all(
             np.asarray(v).dtype == np.float64 for v in (b, a, x, zi)):
         return _linear(b, a, np.asarray(x), -1, np.asarray(zi))

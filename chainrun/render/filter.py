@@ -16,7 +16,7 @@ import math
 import numpy as np
 
 from ..design import EVERY, MIDSIDE
-from ..dsp import sosfilt
+from ..dsp import compiled, sosfilt
 from ..errors import AudioError
 
 __all__ = ["_Filter"]
@@ -38,11 +38,10 @@ class _Filter:
     def __init__(self, sos, channels: int, bound: float):
         """``sos``: one cascade (S x 6) for every channel, or a Chain with channel paths
         (``Chain.filters``); ``bound``: the guard's worst-case peak gain of any output channel."""
-        # The optional compiled cascade (render/kernel.py) when it is built: the same bytes as sosfilt,
+        # The optional compiled cascade (dsp/compiled.py) when it is built: the same bytes as sosfilt,
         # in about half its time; else scipy's sosfilt kernel through the dsp adapter (module-level
         # ``sosfilt``, looked up here so that a test can stand in for it).
-        from . import kernel
-        self._sosfilt = kernel.cascade or sosfilt
+        self._sosfilt = compiled.cascade or sosfilt
         self.routing = getattr(sos, "routing", EVERY)
         self.bound = bound
         self.in_peak = 0.0

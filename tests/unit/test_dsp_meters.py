@@ -71,8 +71,12 @@ def _cases():
             yield b, a, x
 
 
-def test_the_compiled_lfilter_gives_scipys_lfilter_bytes():
-    # scipy.signal.lfilter (reference library): outputs and carried states, byte for byte, over odd blocks
+@pytest.mark.parametrize("optional_loop", [True, False])
+def test_the_compiled_lfilter_gives_scipys_lfilter_bytes(monkeypatch, optional_loop):
+    # scipy.signal.lfilter (reference library): outputs and carried states, byte for byte, over odd blocks,
+    # with chainrun's optional compiled loop (dsp/compiled.py) and with scipy's own loaded directly
+    if not optional_loop:
+        monkeypatch.setattr(adapter.compiled, "linear", None)
     adapter.preload_kernels()
     if not adapter._linear:
         pytest.skip("scipy's compiled lfilter loop cannot be loaded here; the fallback is tested below")
@@ -88,6 +92,7 @@ def test_the_compiled_lfilter_gives_scipys_lfilter_bytes():
 def test_a_linear_filter_that_cannot_be_loaded_falls_back_to_scipys_function(monkeypatch, fault):
     def fail():
         raise fault
+    monkeypatch.setattr(adapter.compiled, "linear", None)       # as when the optional loop is not built
     monkeypatch.setattr(adapter, "_linear", None)
     monkeypatch.setattr(adapter, "_load_linear", fail)
     for b, a, x in _cases():
@@ -103,6 +108,7 @@ def test_a_linear_filter_that_misbehaves_on_the_probe_is_not_used(monkeypatch):
         def _linear_filter(b, a, x, axis, zi):
             return np.zeros_like(x), np.zeros_like(zi)
     monkeypatch.setattr(adapter, "_linear", None)
+    monkeypatch.setattr(adapter.compiled, "linear", None)
     monkeypatch.setitem(sys.modules, "scipy.signal._sigtools", Stub)
     b, a, x = next(_cases())
     y, _ = adapter.lfilter(b, a, x, np.zeros((2, len(a) - 1)))

@@ -22,7 +22,8 @@ from chainrun.audio import writer
 from chainrun.audio.quantise import Quantiser, seed_for
 from chainrun.audio.reader import probe
 from chainrun.meters import MeterBank
-from chainrun.render import Policy, file as render_mod, kernel, render_file, scan_file
+from chainrun.dsp import compiled as kernel
+from chainrun.render import Policy, file as render_mod, render_file, scan_file
 from chainrun.render import filter as filter_mod
 
 RATE = 48000

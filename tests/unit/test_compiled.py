@@ -1,4 +1,4 @@
-"""render.kernel: the optional compiled cascade gives scipy.signal.sosfilt's bytes, or stays unused.
+"""dsp.compiled: the optional compiled cascade gives scipy.signal.sosfilt's bytes, or stays unused.
 
 The reference is scipy.signal.sosfilt (reference library), run on the same blocks with its own
 carried state; "identical" means the same float64 bytes for every output sample and every final
@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-import chainrun.render.kernel as kernel
+import chainrun.dsp.compiled as kernel
 from chainrun.render.filter import _Filter, sosfilt as filter_sosfilt
 from support import REPO
 
@@ -127,14 +127,14 @@ def test_kernel_leaves_its_inputs_untouched():
 @built
 def test_a_stale_build_is_refused(tmp_path, monkeypatch):
     edited = tmp_path / "_cascade.c"
-    edited.write_text((REPO / "chainrun/render/_cascade.c").read_text() + "\n/* edited */\n")
+    edited.write_text((REPO / "chainrun/dsp/_cascade.c").read_text() + "\n/* edited */\n")
     monkeypatch.setattr(kernel, "_SOURCE", edited)
     module, reason = kernel._load()
     assert module is None and reason.startswith("stale")
 
 
 def test_the_environment_switch_leaves_the_kernel_unused():
-    code = "import chainrun.render.kernel as k; print(k.AVAILABLE, k.cascade is None, k.REASON)"
+    code = "import chainrun.dsp.compiled as k; print(k.AVAILABLE, k.cascade is None, k.REASON)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          env={"PYTHONPATH": str(REPO), kernel.ENV_OFF: "1"}, cwd=REPO).stdout
     assert out.startswith("False True left unused"), out
@@ -163,3 +163,54 @@ def test_the_filter_path_gives_the_same_bytes_with_and_without_the_kernel(monkey
     assert y_k.tobytes() == y_s.tobytes()
     # scipy.signal (reference library): the whole signal at once, no state carried by chainrun
     assert np.array_equal(y_s, signal.sosfilt(sos, x, axis=-1))
+
+
+# --------------------------------------------------------------------------- lfilter's loop
+
+def _lfilter_both(b, a, blocks, channels):
+    """The compiled loop and scipy.signal.lfilter (reference library) over the same blocks, each with
+    its own carried state; every block's output and state compared byte for byte."""
+    zk = zs = np.zeros((channels, len(a) - 1))
+    for x in blocks:
+        yk, zk = kernel.linear(b, a, x, zk)
+        ys, zs = signal.lfilter(b, a, x, axis=-1, zi=zs)
+        assert yk.tobytes() == ys.tobytes() and zk.tobytes() == np.ascontiguousarray(zs).tobytes()
+
+
+@built
+@pytest.mark.parametrize("seed", range(24))
+def test_the_linear_loop_gives_lfilters_bytes_for_cascades_folded_into_one_filter(seed):
+    # a cascade of 1-4 cookbook biquads folded into one filter of order 2-8 (scipy.signal.sos2tf), as
+    # the loudness meter folds its two K-weighting stages; 1-5 channels, odd blocks, state carried
+    rng = np.random.default_rng(1000 + seed)
+    sos = random_cascade(rng)[: int(rng.integers(1, 5))]
+    b, a = signal.sos2tf(sos)
+    channels = int(rng.integers(1, 6))
+    x = rng.standard_normal((channels, 5000)) * 10.0 ** rng.uniform(-6, 1)
+    cuts = sorted(set(rng.integers(1, 5000, 4).tolist()))
+    _lfilter_both(b, a, np.split(x, cuts, axis=1), channels)
+
+
+@built
+def test_the_linear_loop_gives_lfilters_bytes_through_the_subnormal_range_and_at_huge_values():
+    from chainrun.meters.weighting import k_weighting_sos
+    b, a = signal.sos2tf(k_weighting_sos(48000))
+    x = np.zeros((2, 20000))
+    x[:, 0] = 1e-300                  # the state decays through the subnormal range
+    _lfilter_both(b, a, [x[:, :7001], x[:, 7001:]], 2)
+    big = np.full((3, 500), 1e300)    # overflow to inf, then inf - inf
+    big[1, ::2] = -1e300
+    _lfilter_both(b, a, [big], 3)
+
+
+@built
+def test_the_linear_loop_leaves_other_filters_to_scipy_and_modifies_no_input():
+    rng = np.random.default_rng(8)
+    b, a = signal.sos2tf(random_cascade(rng)[:2])
+    x, zi = rng.standard_normal((2, 100)), rng.standard_normal((2, len(a) - 1))
+    copies = [v.copy() for v in (b, a, x, zi)]
+    kernel.linear(b, a, x, zi)
+    assert all(c.tobytes() == v.tobytes() for c, v in zip(copies, (b, a, x, zi)))
+    assert kernel.linear(b, a * 2.0, x, zi) is None                     # a[0] != 1
+    assert kernel.linear(b.astype(np.float32), a, x, zi) is None        # not float64 throughout
+    assert kernel.linear(np.ones(10), np.r_[1.0, np.zeros(9)], x, np.zeros((2, 9))) is None   # order 9

@@ -1,7 +1,10 @@
 """The optional compiled biquad cascade: the same bytes as scipy.signal.sosfilt, in less CPU.
 
+``linear`` is the same for ``scipy.signal.lfilter``'s loop (the loudness meter's K-weighting),
+with the call ``linear(b, a, x, zi) -> (y, zf)``, or None.
+
 ``cascade`` is a drop-in for ``sosfilt(sos, x, axis=-1, zi=zi) -> (y, zf)`` on channel-major
-float64 blocks, backed by the C extension ``chainrun.render._cascade`` (_cascade.c), or None when
+float64 blocks, backed by the C extension ``chainrun.dsp._cascade`` (_cascade.c), or None when
 that is not usable; ``AVAILABLE`` says which and ``REASON`` why. The extension is built by
 ``pip install`` when the machine has a C compiler and Python's headers, and skipped otherwise:
 chainrun then filters with scipy's sosfilt, byte for byte the same output.
@@ -18,10 +21,10 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade"]
+__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 1                                   # CASCADE_ABI in _cascade.c
+_ABI = 2                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -67,4 +70,23 @@ def _cascade(sos, x, axis=-1, zi=None):
     return y, state.transpose(1, 0, 2)
 
 
+def _linear(b, a, x, zi):
+    """lfilter's loop for chainrun's blocks: ``(y, zf)`` as ``scipy.signal.lfilter(b, a, x, axis=-1, zi=zi)``
+    for float64 ``x`` (channels, frames), ``zi`` (channels, K), ``b`` and ``a`` (K+1,) with
+    ``a[0] == 1`` and K <= 8; None for anything else (the caller then uses scipy's loop). Inputs are
+    not modified."""
+    b, a, x, zi = np.asarray(b), np.asarray(a), np.asarray(x), np.asarray(zi)
+    order = len(b) - 1
+    if (b.ndim != 1 or a.shape != b.shape or not 1 <= order <= 8 or a[0] != 1.0 or x.ndim != 2
+            or zi.shape != (len(x), order) or any(v.dtype != np.float64 for v in (b, a, x, zi))):
+        return None
+    b, a = np.ascontiguousarray(b, dtype=np.float64), np.ascontiguousarray(a, dtype=np.float64)
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    state = np.array(zi, dtype=np.float64, order="C")          # a copy: zi is never modified
+    y = np.empty_like(x)
+    _module.linear(b, a, x, state, y)
+    return y, state
+
+
 cascade = _cascade if AVAILABLE else None
+linear = _linear if AVAILABLE else None

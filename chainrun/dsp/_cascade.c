@@ -1,9 +1,9 @@
-/* chainrun.render._cascade: an optional compiled biquad cascade, bit for bit scipy.signal.sosfilt.
+/* chainrun.dsp._cascade: an optional compiled biquad cascade, bit for bit scipy.signal.sosfilt.
  *
  * One function, cascade(sos, x, zi, y): filters the channel-major float64 block x (C x N) through
  * the S second-order sections in sos (S x 6, rows [b0, b1, b2, 1, a1, a2]) into y (C x N), with
  * the state zi (C x S x 2) updated in place.  All four are C-contiguous float64 buffers; the
- * Python side (chainrun/render/kernel.py) arranges them.  No numpy headers: only the buffer
+ * Python side (chainrun/dsp/compiled.py) arranges them.  No numpy headers: only the buffer
  * protocol, so building needs a C compiler and Python's headers and nothing else.
  *
  * Exactness.  Every sample goes through the sections in order, with the same operations in the
@@ -19,7 +19,15 @@
  * flushes anything (-ffast-math is refused below), and if doubles are evaluated as doubles
  * (FLT_EVAL_METHOD 0, 1 or 16; not x87 extended precision).  A build where these cannot be promised
  * fails on purpose; the extension is optional, so chainrun then uses scipy's sosfilt.
- * tests/unit/render/test_kernel.py compares the bytes with scipy.signal.sosfilt.
+ * tests/unit/test_compiled.py compares the bytes with scipy.signal.sosfilt.
+ *
+ * A second function, linear(b, a, x, zi, y), is the loop of scipy.signal.lfilter for a
+ * denominator with a[0] == 1 (the loudness meter's K-weighting, both stages as one filter of order
+ * K = len(b) - 1 <= 8): per sample, in scipy's order (its _lfilter.cc, transposed direct form II),
+ *
+ *     y      = z[0] + b[0]*x
+ *     z[k]   = (z[k+1] + x*b[k+1]) - y*a[k+1]      for k = 0 .. K-2
+ *     z[K-1] = x*b[K] - y*a[K]
  *
  * Speed comes from running two channels side by side in one 2-lane vector (GCC/Clang vector
  * extensions: SSE2 on x86-64, NEON on AArch64): lane-wise IEEE operations, so each lane's
@@ -45,8 +53,8 @@
 #pragma fp_contract(off)
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
-/* Bump when the calling convention changes; kernel.py refuses a build of another version. */
-#define CASCADE_ABI 1
+/* Bump when the calling convention changes; compiled.py refuses a build of another version. */
+#define CASCADE_ABI 2
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -188,16 +196,124 @@ fail_sos:
     return NULL;
 }
 
+/* The longest linear filter: the loudness meter's K-weighting is of order 4. */
+#define LINEAR_MAX_ORDER 8
+
+static void
+linear_one(const double *b, const double *a, Py_ssize_t order, const double *x, double *y,
+           Py_ssize_t n_samples, double *z)
+{
+    for (Py_ssize_t n = 0; n < n_samples; n++) {
+        double xn = x[n];
+        double yn = z[0] + b[0] * xn;
+        for (Py_ssize_t k = 0; k < order - 1; k++)
+            z[k] = z[k + 1] + xn * b[k + 1] - yn * a[k + 1];
+        z[order - 1] = xn * b[order] - yn * a[order];
+        y[n] = yn;
+    }
+}
+
+#if CASCADE_HAVE_PAIR
+static void
+linear_pair(const double *b, const double *a, Py_ssize_t order, const double *x0, const double *x1,
+            double *y0, double *y1, Py_ssize_t n_samples, double *zi0, double *zi1)
+{
+    pair_t bb[LINEAR_MAX_ORDER + 1], aa[LINEAR_MAX_ORDER + 1], z[LINEAR_MAX_ORDER];
+    for (Py_ssize_t k = 0; k <= order; k++) {
+        bb[k] = (pair_t){b[k], b[k]};
+        aa[k] = (pair_t){a[k], a[k]};
+    }
+    for (Py_ssize_t k = 0; k < order; k++)
+        z[k] = (pair_t){zi0[k], zi1[k]};
+    for (Py_ssize_t n = 0; n < n_samples; n++) {
+        pair_t xn = {x0[n], x1[n]};
+        pair_t yn = z[0] + bb[0] * xn;
+        for (Py_ssize_t k = 0; k < order - 1; k++)
+            z[k] = z[k + 1] + xn * bb[k + 1] - yn * aa[k + 1];
+        z[order - 1] = xn * bb[order] - yn * aa[order];
+        y0[n] = yn[0];
+        y1[n] = yn[1];
+    }
+    for (Py_ssize_t k = 0; k < order; k++) {
+        zi0[k] = z[k][0];
+        zi1[k] = z[k][1];
+    }
+}
+#endif
+
+static PyObject *
+linear(PyObject *self, PyObject *args)
+{
+    PyObject *o_b, *o_a, *o_x, *o_zi, *o_y;
+    Py_buffer b, a, x, zi, y;
+    if (!PyArg_ParseTuple(args, "OOOOO:linear", &o_b, &o_a, &o_x, &o_zi, &o_y))
+        return NULL;
+    if (get_doubles(o_b, &b, 0, 1, "b") < 0)
+        return NULL;
+    if (get_doubles(o_a, &a, 0, 1, "a") < 0)
+        goto fail_b;
+    if (get_doubles(o_x, &x, 0, 2, "x") < 0)
+        goto fail_a;
+    if (get_doubles(o_zi, &zi, 1, 2, "zi") < 0)
+        goto fail_x;
+    if (get_doubles(o_y, &y, 1, 2, "y") < 0)
+        goto fail_zi;
+
+    Py_ssize_t order = b.shape[0] - 1, n_signals = x.shape[0], n_samples = x.shape[1];
+    if (order < 1 || order > LINEAR_MAX_ORDER || a.shape[0] != order + 1 || ((const double *)a.buf)[0] != 1.0
+        || zi.shape[0] != n_signals || zi.shape[1] != order || y.shape[0] != n_signals || y.shape[1] != n_samples) {
+        PyErr_SetString(PyExc_ValueError, "linear: b and a (K+1,) with a[0] == 1 and 1 <= K <= 8, "
+                                          "x and y (C, N), zi (C, K)");
+        goto fail_y;
+    }
+    {
+        const double *bs = b.buf, *as = a.buf, *xs = x.buf;
+        double *ys = y.buf, *zs = zi.buf;
+        Py_ssize_t i = 0;
+        Py_BEGIN_ALLOW_THREADS
+#if CASCADE_HAVE_PAIR
+        for (; i + 1 < n_signals; i += 2)
+            linear_pair(bs, as, order, xs + i * n_samples, xs + (i + 1) * n_samples,
+                        ys + i * n_samples, ys + (i + 1) * n_samples, n_samples,
+                        zs + i * order, zs + (i + 1) * order);
+#endif
+        for (; i < n_signals; i++)
+            linear_one(bs, as, order, xs + i * n_samples, ys + i * n_samples, n_samples, zs + i * order);
+        Py_END_ALLOW_THREADS
+    }
+    PyBuffer_Release(&y);
+    PyBuffer_Release(&zi);
+    PyBuffer_Release(&x);
+    PyBuffer_Release(&a);
+    PyBuffer_Release(&b);
+    Py_RETURN_NONE;
+
+fail_y:
+    PyBuffer_Release(&y);
+fail_zi:
+    PyBuffer_Release(&zi);
+fail_x:
+    PyBuffer_Release(&x);
+fail_a:
+    PyBuffer_Release(&a);
+fail_b:
+    PyBuffer_Release(&b);
+    return NULL;
+}
+
 static PyMethodDef methods[] = {
     {"cascade", cascade, METH_VARARGS,
      "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
      "C-contiguous float64 buffers; the same arithmetic as scipy.signal.sosfilt."},
+    {"linear", linear, METH_VARARGS,
+     "linear(b, a, x, zi, y): filter x (C, N) through b/a (K+1,), a[0] == 1, into y, updating zi (C, K)\n"
+     "in place; C-contiguous float64 buffers; the same arithmetic as scipy.signal.lfilter."},
     {NULL, NULL, 0, NULL},
 };
 
 static struct PyModuleDef module = {
     PyModuleDef_HEAD_INIT, "_cascade",
-    "chainrun's optional compiled biquad cascade (see chainrun/render/kernel.py).", -1, methods,
+    "chainrun's optional compiled biquad cascade (see chainrun/dsp/compiled.py).", -1, methods,
 };
 
 PyMODINIT_FUNC
