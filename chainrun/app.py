@@ -29,7 +29,7 @@ from .results import FileResult
 __all__ = ["DEFAULT_RATES", "RECIPE_SUFFIXES", "PLOT_SUFFIXES", "find_recipes", "check_recipe", "check", "cores",
            "RunOutcome", "refuse_audio_recipe", "refuse_recipe_inputs", "run", "scan", "plot"]
 
-DEFAULT_RATES = (44100, 48000, 96000)
+DEFAULT_RATES = (8000, 16000, 22050, 32000, 44100, 48000, 88200, 96000, 176400, 192000)   # the common rates
 RECIPE_SUFFIXES = (".yaml", ".yml")
 PLOT_SUFFIXES = (".png", ".svg")
 _ASSESSMENT_KEYS = ("rate", "accepted", "rows", "max_pole_radius", "decay_60db_s", "decay_exact", "max_gain_db",
@@ -63,8 +63,10 @@ def find_recipes(paths: list[str]) -> list[str]:
     return found
 
 
-def check_recipe(path: str, rates: tuple[int, ...], allow_outside_includes: bool = False) -> dict:
-    """Load, design and assess one recipe at each rate; a JSON-safe summary."""
+def check_recipe(path: str, rates: tuple[int, ...] | None = None, allow_outside_includes: bool = False) -> dict:
+    """Load, design and assess one recipe at each rate; a JSON-safe summary.
+
+    ``rates`` None: the rates the recipe declares (``rates:``), else :data:`DEFAULT_RATES`."""
     entry: dict = {"path": path, "accepted": False, "errors": [], "warnings": [], "rates": []}
     try:
         recipe = load(path, allow_outside_includes=allow_outside_includes)
@@ -73,6 +75,8 @@ def check_recipe(path: str, rates: tuple[int, ...], allow_outside_includes: bool
         return entry
     entry.update(name=recipe.name, digest=recipe.digest, sections=len(recipe.sections))
     entry["warnings"].extend(recipe.warnings)          # e.g. a file loosening a limit it includes
+    rates = rates or recipe.rates or DEFAULT_RATES
+    entry["declared_rates"] = list(recipe.rates) if recipe.rates is not None else None
     accepted = True
     for rate in rates:
         try:
@@ -94,9 +98,11 @@ def check_recipe(path: str, rates: tuple[int, ...], allow_outside_includes: bool
     return entry
 
 
-def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES, *,
+def check(paths: list[str], rates: tuple[int, ...] | None = None, *,
           allow_outside_includes: bool = False) -> list[dict]:
     """Check every recipe named or found in the folders named (see :func:`check_recipe`); writes nothing.
+
+    ``rates`` None: each recipe at the rates it declares (``rates:``), else at :data:`DEFAULT_RATES`.
 
     ``allow_outside_includes``: follow includes out of each recipe's folder tree (see :func:`chainrun.load`).
 

@@ -52,12 +52,21 @@ def _print_check(entry: dict) -> None:
         _err(line)
 
 
+def _own_rates(entries: list[dict]) -> str:
+    """Which rates were checked without --rate: the rates each recipe declares, or the common ones."""
+    common = f"the common rates ({', '.join(f'{r / 1000:g}' for r in DEFAULT_RATES)} kHz)"
+    if any(e.get("declared_rates") for e in entries):
+        return f"the rates each recipe declares, else {common}"
+    return common
+
+
 def main(args: argparse.Namespace) -> int:
-    rates = tuple(dict.fromkeys(args.rate)) if args.rate else DEFAULT_RATES
+    rates = tuple(dict.fromkeys(args.rate)) if args.rate else None      # None: each recipe's rates:, or the common
+
     entries = check(args.recipes, rates, allow_outside_includes=args.allow_outside_includes)
     rejected = [e for e in entries if not e["accepted"] or (args.strict and e["warnings"])]
     if args.json:
-        json.dump({"version": __version__, "rates": list(rates), "accepted": not rejected,
+        json.dump({"version": __version__, "rates": list(rates) if rates else None, "accepted": not rejected,
                    "recipes": entries}, sys.stdout, indent=2)
         print()
         for e in entries:
@@ -66,7 +75,8 @@ def main(args: argparse.Namespace) -> int:
     else:
         for e in entries:
             _print_check(e)
-        print(f"{len(entries)} recipe(s) checked at {', '.join(map(str, rates))} Hz: "
+        at = ", ".join(map(str, rates)) + " Hz" if rates else _own_rates(entries)
+        print(f"{len(entries)} recipe(s) checked at {at}: "
               f"{len(entries) - len(rejected)} accepted, {len(rejected)} rejected"
               + (" (--strict: warnings reject)" if args.strict else ""))
     return EXIT_NOT_OK if rejected else EXIT_OK

@@ -137,6 +137,7 @@ class Recipe:
     includes: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
     loudness: Loudness | None = None
+    rates: tuple[int, ...] | None = None      # the sample rates (Hz) it declares it is meant for, or None
 
     def to_dict(self) -> dict:
         """The recipe as resolved, as plain JSON-safe data (``guard_from``: where each guard value was set)."""
@@ -150,7 +151,8 @@ class Recipe:
             "guard_from": self.guard.sources(),
             "output": self.output.to_dict(),
             "warnings": list(self.warnings),
-        } | ({"loudness": self.loudness.to_dict()} if self.loudness is not None else {})
+        } | ({"loudness": self.loudness.to_dict()} if self.loudness is not None else {}) \
+          | ({"rates": list(self.rates)} if self.rates is not None else {})
 
     @property
     def digest(self) -> str:

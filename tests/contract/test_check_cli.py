@@ -16,7 +16,11 @@ from chainrun.cli import main
 LOCATED = re.compile(r"^[^\n]+:\d+:\d+: error: [^\n]+$")
 UNSTABLE_LINE = re.compile(r"^(?P<path>[^\n]*unstable-hand-typed\.yaml):11:41: error: chain\[1\] iir is unstable: "
                            r"its denominator has a root at radius 1\.00499 [^\n]*$")
-DEFAULT_RATES = [44100, 48000, 96000]     # README.md 'Commands': `chainrun check` default rates
+# README.md 'Commands': `chainrun check`'s common rates, for a recipe without rates:
+DEFAULT_RATES = [8000, 16000, 22050, 32000, 44100, 48000, 88200, 96000, 176400, 192000]
+HOUSE_RATES = [44100, 48000, 88200, 96000]    # recipes/house/boathouse-house-eq.yaml's rates: (and its includers')
+OWN_RATES = ("the rates each recipe declares, else the common rates (8, 16, 22.05, 32, 44.1, 48, 88.2, 96, 176.4, "
+             "192 kHz)")
 
 
 def run_main(argv, capsys):
@@ -44,7 +48,7 @@ def test_all_accepted_exit_0(repo_root, capsys):
                                  repo_root / "recipes" / "marsh-cleanup.yaml"], capsys)
     assert status == 0
     assert err == ""
-    assert out.splitlines()[-1] == "2 recipe(s) checked at 44100, 48000, 96000 Hz: 2 accepted, 0 rejected"
+    assert out.splitlines()[-1] == f"2 recipe(s) checked at {OWN_RATES}: 2 accepted, 0 rejected"
     for rate in DEFAULT_RATES:
         assert re.search(rf"^\s+{rate} Hz .* accepted$", out, re.M)
 
@@ -55,13 +59,13 @@ def test_folder_search_finds_bundled_recipes_and_rejects_unstable(repo_root, cap
     for name in ("boathouse-stems.yaml", "marsh-cleanup.yaml", "unstable-hand-typed.yaml",
                  os.path.join("house", "boathouse-house-eq.yaml")):
         assert name in out
-    assert out.splitlines()[-1] == "4 recipe(s) checked at 44100, 48000, 96000 Hz: 3 accepted, 1 rejected"
+    assert out.splitlines()[-1] == f"4 recipe(s) checked at {OWN_RATES}: 3 accepted, 1 rejected"
     lines = err_lines(err)
-    assert len(lines) == 1, lines                     # the same problem at three rates: said once
+    assert len(lines) == 1, lines                     # the same problem at ten rates: said once
     m = UNSTABLE_LINE.match(lines[0])
     assert m, lines[0]
     assert os.path.samefile(m["path"], repo_root / "recipes" / "unstable-hand-typed.yaml")
-    assert len(re.findall(r"REJECTED", out)) == 3     # each default rate of the unstable recipe
+    assert len(re.findall(r"REJECTED", out)) == 10    # each common rate of the unstable recipe
 
 
 def test_folder_search_suffixes_and_hidden(tmp_path, capsys):
@@ -154,12 +158,12 @@ def test_json_output_parses_with_per_rate_assessments(repo_root, capsys):
     status, out, err = run_main(["check", "--json", repo_root / "recipes"], capsys)
     assert status == 1
     doc = json.loads(out)
-    assert doc["accepted"] is False and doc["rates"] == DEFAULT_RATES
+    assert doc["accepted"] is False and doc["rates"] is None          # no --rate: each recipe's own
     by_name = {os.path.basename(e["path"]): e for e in doc["recipes"]}
     assert set(by_name) == {"boathouse-stems.yaml", "marsh-cleanup.yaml", "unstable-hand-typed.yaml",
                             "boathouse-house-eq.yaml"}
     for name, entry in by_name.items():
-        assert [r["rate"] for r in entry["rates"]] == DEFAULT_RATES
+        assert [r["rate"] for r in entry["rates"]] == (HOUSE_RATES if "boathouse" in name else DEFAULT_RATES)
         assert re.fullmatch(r"[0-9a-f]{64}", entry["digest"])
         for r in entry["rates"]:
             for key in ("max_pole_radius", "decay_60db_s", "max_gain_db", "max_gain_hz", "min_gain_db",

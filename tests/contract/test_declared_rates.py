@@ -1,0 +1,78 @@
+"""The gate's rates (issue 18 item 3): `rates:` in a recipe, check's common rates, run's undeclared rates,
+check --json's problem objects, and sections that drop out above Nyquist."""
+from __future__ import annotations
+
+import json
+import re
+
+import pytest
+
+from chainrun.recipe import RecipeError, load, loads
+
+# README.md 'Commands': without rates: and without --rate, check assesses the common rates
+COMMON_RATES = [8000, 16000, 22050, 32000, 44100, 48000, 88200, 96000, 176400, 192000]
+SHELF_9K = "format: 1\n{rates}chain:\n  - {{type: high_shelf, freq: 9000, gain_db: 3, label: air}}\n"
+
+
+# --------------------------------------------------------------------------- A: rates: and check's rates
+
+def test_a_9khz_shelf_fails_check_at_the_common_rates(write_recipe, run_cli):
+    path = write_recipe(SHELF_9K.format(rates=""))
+    status, out, err = run_cli("check", path)
+    assert status == 1
+    rows = re.findall(r"^\s+(\d+) Hz .* (accepted|REJECTED)$", out, re.M)
+    assert [int(r) for r, _ in rows] == COMMON_RATES
+    # analytic: 9000 Hz is at or above Nyquist (rate / 2) at 8000 and 16000 Hz only
+    assert [int(r) for r, v in rows if v == "REJECTED"] == [8000, 16000]
+    assert "9000 Hz is at or above Nyquist (4000 Hz) for 8000 Hz files" in err
+
+
+def test_declared_rates_are_the_rates_checked(write_recipe, run_cli):
+    path = write_recipe(SHELF_9K.format(rates="rates: [44100, 48000]\n"))
+    status, out, err = run_cli("check", path)
+    assert status == 0 and err == ""
+    assert [int(r) for r in re.findall(r"^\s+(\d+) Hz ", out, re.M)] == [44100, 48000]
+    # --rate on the command line still wins over the declared rates
+    status, out, err = run_cli("check", path, "--rate", "8000")
+    assert status == 1 and [int(r) for r in re.findall(r"^\s+(\d+) Hz ", out, re.M)] == [8000]
+
+
+@pytest.mark.parametrize("value, col, says", [
+    ("[44100, loud]", 16, "rates[1] must be a number"),
+    ("[0]", 9, "rates[0] 0 Hz is not a sample rate"),
+    ("[48000, -44100]", 16, "rates[1] -44100 Hz is not a sample rate"),
+    ("[44100.5]", 9, "rates[0] 44100.5 Hz is not a sample rate"),
+    ("[48000, 44100, 48000]", 23, "rates[2] 48000 Hz is already listed at x.yaml:2:9"),
+    ("[]", 8, "rates is an empty list"),
+    ("48000", 8, "rates must be a list of sample rates"),
+])
+def test_bad_rates_get_located_errors(value, col, says):
+    with pytest.raises(RecipeError) as info:
+        loads(f"format: 1\nrates: {value}\nchain:\n  - {{type: gain, gain_db: -1}}\n", "x.yaml")
+    assert (info.value.line, info.value.col) == (2, col)
+    assert str(info.value).startswith(f"x.yaml:2:{col}: error: {says}")
+
+
+def test_included_rates_apply_unless_the_including_file_sets_them(write_recipe):
+    write_recipe("format: 1\nrates: [44100, 48000]\nchain:\n  - {type: gain, gain_db: -1}\n", "house/h.yaml")
+    write_recipe("format: 1\nrates: [96000]\nchain:\n  - {type: gain, gain_db: -1}\n", "house/g.yaml")
+    top = write_recipe("format: 1\ninclude: house/h.yaml\nchain:\n  - {type: gain, gain_db: -1}\n", "a.yaml")
+    assert load(top).rates == (44100, 48000)
+    own = write_recipe("format: 1\ninclude: house/h.yaml\nrates: [32000]\nchain: []\n", "b.yaml")
+    assert load(own).rates == (32000,)
+    both = write_recipe("format: 1\ninclude: [house/h.yaml, house/g.yaml]\nchain: []\n", "c.yaml")
+    with pytest.raises(RecipeError, match=r"g\.yaml:2:8: error: rates \[96000\] conflicts with \[44100, 48000\]"):
+        load(both)
+    assert load(write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\n", "d.yaml")).rates is None
+
+
+def test_a_plan_checks_each_recipe_at_its_own_rates(write_recipe, run_cli):
+    write_recipe(SHELF_9K.format(rates="rates: [44100]\n"), "one.yaml")
+    write_recipe(SHELF_9K.format(rates="rates: [22050, 32000]\n"), "two.yaml")
+    plan = write_recipe("format: 1\nbatch:\n  - {inputs: \"a/*.wav\", recipe: one.yaml}\n"
+                        "  - {inputs: \"b/*.wav\", recipe: two.yaml}\n",
+                        "plan.yaml")
+    status, out, err = run_cli("check", "--json", plan)
+    assert status == 0, err
+    rates = {e["path"].rsplit("/", 1)[-1]: [r["rate"] for r in e["rates"]] for e in json.loads(out)["recipes"]}
+    assert rates == {"one.yaml": [44100], "two.yaml": [22050, 32000]}
