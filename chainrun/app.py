@@ -19,7 +19,7 @@ from typing import Callable
 
 from .audio.metadata import metadata_summary
 from .batch.discover import discover
-from .batch.plan import design_and_assess, probe_job
+from .batch.plan import design_and_assess, probe_job, undeclared_rate
 from .batch.run import MAX_WORKERS, BatchResult, claimed, execute
 from .errors import BatchError
 from .recipe import Recipe, RecipeError, load
@@ -360,6 +360,9 @@ def filter_file(recipe: Recipe | str, input: str, output: str, *, on_over: str |
     src = probe_job(Job(input, name, output))
     if isinstance(src, FileResult):
         return src
+    if undeclared_rate(recipe, src.rate):
+        return FileResult(input, name, REJECTED, f"the recipe is not meant for this file: "
+                                                 f"{undeclared_rate(recipe, src.rate)}", source=src)
     try:
         chain, assessment = design_and_assess(recipe, src.rate)
     except RecipeError as exc:          # e.g. a section at or above this rate's Nyquist frequency

@@ -76,3 +76,42 @@ def test_a_plan_checks_each_recipe_at_its_own_rates(write_recipe, run_cli):
     assert status == 0, err
     rates = {e["path"].rsplit("/", 1)[-1]: [r["rate"] for r in e["rates"]] for e in json.loads(out)["recipes"]}
     assert rates == {"one.yaml": [44100], "two.yaml": [22050, 32000]}
+
+
+# --------------------------------------------------------------------------- B: run refuses an undeclared rate
+
+def test_run_rejects_a_file_at_an_undeclared_rate_and_writes_nothing_for_it(tmp_path, write_recipe, write_audio,
+                                                                            run_cli):
+    import numpy as np
+    from support import by_rel, report_of
+
+    recipe = write_recipe("format: 1\nrates: [44100, 48000]\nchain:\n  - {type: gain, gain_db: -1}\n")
+    x = np.random.default_rng(3).uniform(-0.25, 0.25, 4800)
+    write_audio("in/ok.wav", x, rate=48000)
+    write_audio("in/phone.wav", x, rate=22050)
+    status, out, err = run_cli("run", recipe, tmp_path / "in", "-o", tmp_path / "out", "--workers", "1")
+    assert status == 1, err
+    lines = [line for line in err.splitlines() if "phone.wav" in line]     # the file table lists it on stdout
+    assert len(lines) == 1 and lines[0].startswith(f"{tmp_path / 'in' / 'phone.wav'}: rejected: "), lines
+    assert "22050 Hz, is not among the rates the recipe declares (44100, 48000 Hz)" in lines[0]
+    files = by_rel(report_of(tmp_path / "out"))
+    assert files["phone.wav"]["status"] == "rejected" and files["ok.wav"]["status"] == "ok"
+    assert "22050 Hz, is not among the rates the recipe declares (44100, 48000 Hz)" in files["phone.wav"]["message"]
+    assert (tmp_path / "out" / "ok.wav").exists() and not (tmp_path / "out" / "phone.wav").exists()
+    # without rates: the same file is rendered, as before
+    anyrate = write_recipe("format: 1\nchain:\n  - {type: gain, gain_db: -1}\n", "any.yaml")
+    status, out, err = run_cli("run", anyrate, tmp_path / "in" / "phone.wav", "-o", tmp_path / "out2")
+    assert status == 0, err
+    assert (tmp_path / "out2" / "phone.wav").exists()
+
+
+def test_filter_file_rejects_a_file_at_an_undeclared_rate(tmp_path, write_recipe, write_audio):
+    import numpy as np
+
+    import chainrun
+
+    recipe = write_recipe("format: 1\nrates: [48000]\nchain:\n  - {type: gain, gain_db: -1}\n")
+    phone = write_audio("phone.wav", np.zeros(2205), rate=22050)
+    r = chainrun.filter_file(str(recipe), str(phone), str(tmp_path / "phone-out.wav"))
+    assert r.status == "rejected" and "22050 Hz, is not among the rates the recipe declares (48000 Hz)" in r.message
+    assert not (tmp_path / "phone-out.wav").exists()
