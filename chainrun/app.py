@@ -21,7 +21,7 @@ from .audio.metadata import metadata_summary
 from .batch.discover import discover
 from .batch.plan import design_and_assess, probe_job, undeclared_rate
 from .batch.run import MAX_WORKERS, BatchResult, claimed, execute
-from .errors import BatchError
+from .errors import BatchError, problem
 from .recipe import Recipe, RecipeError, load
 from .render import Policy, scan_file
 from .results import FileResult
@@ -66,15 +66,17 @@ def find_recipes(paths: list[str]) -> list[str]:
 def check_recipe(path: str, rates: tuple[int, ...] | None = None, allow_outside_includes: bool = False) -> dict:
     """Load, design and assess one recipe at each rate; a JSON-safe summary.
 
-    ``rates`` None: the rates the recipe declares (``rates:``), else :data:`DEFAULT_RATES`."""
-    entry: dict = {"path": path, "accepted": False, "errors": [], "warnings": [], "rates": []}
+    ``rates`` None: the rates the recipe declares (``rates:``), else :data:`DEFAULT_RATES`. ``problems``
+    holds each error and warning as an object (:func:`chainrun.errors.problem`), once for each rate it
+    is found at (``rate`` None for one found loading the recipe)."""
+    entry: dict = {"path": path, "accepted": False, "problems": [], "rates": []}
     try:
         recipe = load(path, allow_outside_includes=allow_outside_includes)
     except RecipeError as exc:
-        entry["errors"].append(str(exc))
+        entry["problems"].append(problem(str(exc)))
         return entry
     entry.update(name=recipe.name, digest=recipe.digest, sections=len(recipe.sections))
-    entry["warnings"].extend(recipe.warnings)          # e.g. a file loosening a limit it includes
+    entry["problems"].extend(problem(w) for w in recipe.warnings)   # e.g. a file loosening a limit it includes
     rates = rates or recipe.rates or DEFAULT_RATES
     entry["declared_rates"] = list(recipe.rates) if recipe.rates is not None else None
     accepted = True
@@ -82,18 +84,17 @@ def check_recipe(path: str, rates: tuple[int, ...] | None = None, allow_outside_
         try:
             _, a = design_and_assess(recipe, rate)
         except RecipeError as exc:
-            entry["errors"].append(str(exc))
+            found = [problem(str(exc), rate)]
             entry["rates"].append(dict.fromkeys(_ASSESSMENT_KEYS) | {"rate": rate, "accepted": False,
-                                                                     "error": str(exc)})
+                                                                     "error": str(exc), "problems": found})
+            entry["problems"].extend(found)
             accepted = False
             continue
-        entry["rates"].append(a.to_dict() | {"error": next((str(p) for p in a.problems
-                                                            if p.severity == "error"), None)})
-        for p in a.problems:
-            (entry["errors"] if p.severity == "error" else entry["warnings"]).append(str(p))
+        found = [problem(str(p), rate) for p in a.problems]
+        entry["rates"].append(a.to_dict() | {"problems": found, "error": next(
+            (str(p) for p in a.problems if p.severity == "error"), None)})
+        entry["problems"].extend(found)
         accepted &= a.accepted
-    entry["errors"] = list(dict.fromkeys(entry["errors"]))       # same problem at several rates: once
-    entry["warnings"] = list(dict.fromkeys(entry["warnings"]))
     entry["accepted"] = accepted
     return entry
 
@@ -137,8 +138,7 @@ def check(paths: list[str], rates: tuple[int, ...] | None = None, *,
         try:
             plan = load_plan(p, allow_outside_includes=allow_outside_includes)
         except RecipeError as exc:
-            entries.append({"path": p, "plan": p, "accepted": False, "errors": [str(exc)], "warnings": [],
-                            "rates": []})
+            entries.append({"path": p, "plan": p, "accepted": False, "problems": [problem(str(exc))], "rates": []})
             continue
         for recipe in plan.recipes:
             add(recipe.path, p)

@@ -148,8 +148,12 @@ def test_repeated_rates_and_json_per_rate(write_recipe, capsys):
     assert math.isclose(high["max_gain_db"], 2.0, abs_tol=1e-6)
     # the shelf is flat at Nyquist (zero slope), so its location is defined only to ~0.1 %
     assert math.isclose(high["max_gain_hz"], 24000.0, rel_tol=1e-3)
-    assert entry["errors"] == [line for line in err_lines(err)]
-    assert "at or above Nyquist (4000 Hz) for 8000 Hz files" in entry["errors"][0]
+    (problem,) = entry["problems"]        # an object, not a flat line (README.md 'Commands')
+    assert problem["severity"] == "error" and problem["rate"] == 8000
+    assert (problem["path"], problem["line"], problem["col"]) == (str(path), 3, 30)
+    assert err_lines(err) == [f"{path}:3:30: error: {problem['message']}"]
+    assert "at or above Nyquist (4000 Hz) for 8000 Hz files" in problem["message"]
+    assert low["problems"] == [problem] and high["problems"] == []
 
 
 # --------------------------------------------------------------------------- --json
@@ -174,15 +178,21 @@ def test_json_output_parses_with_per_rate_assessments(repo_root, capsys):
                 # analytic (BIBO): the L1 bound is never below the steady-state maximum
                 assert r["worst_case_peak_gain"] >= 10 ** (r["max_gain_db"] / 20) * (1 - 1e-9)
     unstable = by_name["unstable-hand-typed.yaml"]
-    assert unstable["accepted"] is False and len(unstable["errors"]) == 1
-    assert UNSTABLE_LINE.match(unstable["errors"][0])
+    assert unstable["accepted"] is False
+    # the same problem at each of the ten rates: one object per rate, one line on stderr
+    assert [p["rate"] for p in unstable["problems"]] == DEFAULT_RATES
+    assert {(p["line"], p["col"], p["severity"], p["message"]) for p in unstable["problems"]} == {
+        (11, 41, "error", unstable["problems"][0]["message"])}
+    first = unstable["problems"][0]
+    assert UNSTABLE_LINE.match(f"{first['path']}:{first['line']}:{first['col']}: error: {first['message']}")
     for r in unstable["rates"]:
         # analytic: 1 - 1.95 z^-1 + 1.01 z^-2 has complex roots of radius sqrt(1.01)
         assert math.isclose(r["max_pole_radius"], math.sqrt(1.01), rel_tol=1e-9)
         assert r["accepted"] is False and r["worst_case_peak_gain"] is None   # unbounded -> null in JSON
     assert by_name["boathouse-stems.yaml"]["sections"] == 7          # 4 included + 3 own
     assert by_name["marsh-cleanup.yaml"]["accepted"] is True
-    assert [line for line in err_lines(err)] == unstable["errors"]
+    (line,) = err_lines(err)
+    assert line == f"{first['path']}:11:41: error: {first['message']}"
 
 
 # --------------------------------------------------------------------------- bad input never shows a traceback
@@ -299,9 +309,11 @@ def test_json_lists_the_loosening_warning(repo_root, write_recipe, capsys):
     status, out, err = run_main(["check", "--json", "--rate", "48000", top], capsys)
     assert status == 0                                # a cut stays below the house file's 1 dB
     (entry,) = json.loads(out)["recipes"]
-    assert entry["errors"] == [] and entry["warnings"] == [
+    assert entry["problems"] == [{
+        "path": str(top), "line": 6, "col": 16, "severity": "warning", "rate": None,   # found loading: no rate
+        "message": f"guard.max_gain_db 24 is looser than 1 set in {house_at}; the stricter value applies"}]
+    assert err_lines(err) == [
         f"{top}:6:16: warning: guard.max_gain_db 24 is looser than 1 set in {house_at}; the stricter value applies"]
-    assert err_lines(err) == entry["warnings"]
 
 
 def test_output_conflict_with_an_include_is_rejected_by_check(repo_root, write_recipe, capsys):

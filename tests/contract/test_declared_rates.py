@@ -115,3 +115,33 @@ def test_filter_file_rejects_a_file_at_an_undeclared_rate(tmp_path, write_recipe
     r = chainrun.filter_file(str(recipe), str(phone), str(tmp_path / "phone-out.wav"))
     assert r.status == "rejected" and "22050 Hz, is not among the rates the recipe declares (48000 Hz)" in r.message
     assert not (tmp_path / "phone-out.wav").exists()
+
+
+# --------------------------------------------------------------------------- C: check --json problem objects
+
+def test_check_json_gives_each_problem_as_an_object(write_recipe, run_cli):
+    path = write_recipe("format: 1\nchain:\n  - {type: peak, freq: 3.2, gain_db: 1, q: 1}\n"
+                        "  - {type: high_shelf, freq: 9000, gain_db: 3}\n")
+    status, out, err = run_cli("check", "--json", path, "--rate", "8000", "--rate", "48000")
+    assert status == 1
+    (entry,) = json.loads(out)["recipes"]
+    for p in entry["problems"]:
+        assert set(p) == {"path", "line", "col", "severity", "message", "rate"}
+    warning, error = entry["problems"]
+    assert warning == {"path": str(path), "line": 3, "col": 24, "severity": "warning", "rate": None,
+                       "message": "chain[0].freq 3.2 Hz is below 20 Hz for a peak; frequencies are in hertz: "
+                                  "for 3.2 kHz write 3200"}
+    # analytic: 9000 Hz is above Nyquist (4000 Hz) at 8000 Hz, below it at 48000 Hz
+    assert (error["path"], error["line"], error["col"], error["severity"], error["rate"]) == \
+        (str(path), 4, 30, "error", 8000)
+    assert error["message"].startswith("chain[1].freq 9000 Hz is at or above Nyquist (4000 Hz)")
+    # stderr keeps the one-line form, errors first
+    assert err.splitlines() == [f"{path}:4:30: error: {error['message']}",
+                                f"{path}:3:24: warning: {warning['message']}"]
+
+
+def test_strict_still_fails_on_warnings_with_problem_objects(write_recipe, run_cli):
+    path = write_recipe("format: 1\nchain:\n  - {type: peak, freq: 3.2, gain_db: 1, q: 1}\n")
+    assert run_cli("check", "--json", path, "--rate", "48000")[0] == 0
+    status, out, _ = run_cli("check", "--json", "--strict", path, "--rate", "48000")
+    assert status == 1 and json.loads(out)["accepted"] is False
