@@ -13,13 +13,13 @@ from __future__ import annotations
 
 import contextlib
 import os
-import stat
 from dataclasses import dataclass, field
 from typing import Callable
 
 from .audio.metadata import metadata_summary
 from .batch.discover import discover
 from .batch.plan import design_and_assess, probe_job, undeclared_rate
+from .batch.refuse import RECIPE_SUFFIXES, refuse_audio_recipe, refuse_recipe_inputs
 from .batch.run import MAX_WORKERS, BatchResult, claimed, execute
 from .errors import BatchError, problem
 from .recipe import Recipe, RecipeError, load
@@ -30,7 +30,6 @@ __all__ = ["DEFAULT_RATES", "RECIPE_SUFFIXES", "PLOT_SUFFIXES", "find_recipes", 
            "RunOutcome", "refuse_audio_recipe", "refuse_recipe_inputs", "run", "scan", "plot"]
 
 DEFAULT_RATES = (8000, 16000, 22050, 32000, 44100, 48000, 88200, 96000, 176400, 192000)   # the common rates
-RECIPE_SUFFIXES = (".yaml", ".yml")
 PLOT_SUFFIXES = (".png", ".svg")
 _ASSESSMENT_KEYS = ("rate", "accepted", "rows", "max_pole_radius", "decay_60db_s", "decay_exact", "max_gain_db",
                     "max_gain_hz", "min_gain_db", "min_gain_hz", "worst_case_peak_gain", "worst_case_peak_gain_db",
@@ -197,46 +196,6 @@ def _write_reports(result: BatchResult, report: str | None, command: list[str] |
     if errors and not result.interrupted:
         errors[-1] += "; the files listed above as ok were delivered"
     return paths, errors
-
-
-# The first bytes of audio containers a recipe can never start with (a recipe is UTF-8 YAML).
-_AUDIO_MAGIC = {b"RIFF": "WAV", b"RIFX": "WAV", b"RF64": "WAV", b"BW64": "WAV", b"riff": "W64",
-                b"FORM": "AIFF", b"fLaC": "FLAC", b"OggS": "Ogg", b"caff": "CAF", b".snd": "AU"}
-
-
-def refuse_audio_recipe(recipe: str | os.PathLike) -> None:
-    """Refuse an audio file given where the recipe goes (``chainrun run take.wav recipe.yaml``).
-
-    Raises
-    ------
-    BatchError
-        One line, when the recipe path's first four bytes are an audio container's.
-    """
-    try:
-        if not stat.S_ISREG(os.stat(recipe).st_mode):     # a pipe could wait for ever: the loader refuses it
-            return
-        with open(recipe, "rb") as fh:
-            head = fh.read(4)
-    except OSError:
-        return                     # the recipe loader says what is wrong with it
-    if head in _AUDIO_MAGIC:
-        raise BatchError(f"{os.fspath(recipe)}: error: the first argument is audio ({_AUDIO_MAGIC[head]}), not a "
-                         "recipe: chainrun run RECIPE INPUT...; no audio was touched")
-
-
-def refuse_recipe_inputs(inputs: list[str]) -> None:
-    """Refuse a recipe file named among the audio inputs (a second recipe is a plan's job), before any audio.
-
-    Raises
-    ------
-    BatchError
-        Naming the first input with a recipe suffix (.yaml, .yml) that is not a folder.
-    """
-    for arg in inputs:
-        if os.fspath(arg).lower().endswith(RECIPE_SUFFIXES) and not os.path.isdir(arg):
-            raise BatchError(f"{arg}: error: a recipe among the inputs; a run takes one recipe, then audio files "
-                             "and folders. To give different inputs different recipes, write a batch plan and "
-                             "run 'chainrun run --plan PLAN.yaml -o OUTDIR'; no audio was touched")
 
 
 def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers: int | None = None,
