@@ -67,8 +67,9 @@ def check_recipe(path: str, rates: tuple[int, ...] | None = None, allow_outside_
 
     ``rates`` None: the rates the recipe declares (``rates:``), else :data:`DEFAULT_RATES`. ``problems``
     holds each error and warning as an object (:func:`chainrun.errors.problem`), once for each rate it
-    is found at (``rate`` None for one found loading the recipe)."""
-    entry: dict = {"path": path, "accepted": False, "problems": [], "rates": []}
+    is found at (``rate`` None for one found loading the recipe); ``notes`` a line for each section left
+    out at a rate (``above_nyquist: drop``), as does each rate's entry."""
+    entry: dict = {"path": path, "accepted": False, "problems": [], "notes": [], "rates": []}
     try:
         recipe = load(path, allow_outside_includes=allow_outside_includes)
     except RecipeError as exc:
@@ -81,18 +82,19 @@ def check_recipe(path: str, rates: tuple[int, ...] | None = None, allow_outside_
     accepted = True
     for rate in rates:
         try:
-            _, a = design_and_assess(recipe, rate)
+            chain, a = design_and_assess(recipe, rate)
         except RecipeError as exc:
             found = [problem(str(exc), rate)]
             entry["rates"].append(dict.fromkeys(_ASSESSMENT_KEYS) | {"rate": rate, "accepted": False,
-                                                                     "error": str(exc), "problems": found})
+                                                                     "error": str(exc), "problems": found, "notes": []})
             entry["problems"].extend(found)
             accepted = False
             continue
         found = [problem(str(p), rate) for p in a.problems]
         entry["rates"].append(a.to_dict() | {"problems": found, "error": next(
-            (str(p) for p in a.problems if p.severity == "error"), None)})
+            (str(p) for p in a.problems if p.severity == "error"), None), "notes": list(chain.dropped)})
         entry["problems"].extend(found)
+        entry["notes"].extend(chain.dropped)       # sections marked above_nyquist: drop, left out at this rate
         accepted &= a.accepted
     entry["accepted"] = accepted
     return entry
@@ -137,7 +139,8 @@ def check(paths: list[str], rates: tuple[int, ...] | None = None, *,
         try:
             plan = load_plan(p, allow_outside_includes=allow_outside_includes)
         except RecipeError as exc:
-            entries.append({"path": p, "plan": p, "accepted": False, "problems": [problem(str(exc))], "rates": []})
+            entries.append({"path": p, "plan": p, "accepted": False, "problems": [problem(str(exc))], "notes": [],
+                            "rates": []})
             continue
         for recipe in plan.recipes:
             add(recipe.path, p)
@@ -369,7 +372,8 @@ def plot(recipe: Recipe | str, rate: int, output: str, *, warn: Callable[[str], 
          allow_outside_includes: bool = False):
     """Draw the chain's response at ``rate`` to ``output`` (.png or .svg); returns the guard's Assessment.
 
-    ``warn`` is called with each of the assessment's problems before the picture is drawn;
+    ``warn`` is called with each of the assessment's problems (and a ``note:`` for each section left out
+    at ``rate``, ``above_nyquist: drop``) before the picture is drawn;
     ``allow_outside_includes``: as for :func:`chainrun.load`.
 
     Raises
@@ -386,9 +390,9 @@ def plot(recipe: Recipe | str, rate: int, output: str, *, warn: Callable[[str], 
     chain, assessment = design_and_assess(recipe, rate)
     from .report.plot import save_response
 
-    for p in assessment.problems:
+    for line in [str(p) for p in assessment.problems] + [f"note: {n}" for n in chain.dropped]:
         if warn is not None:
-            warn(str(p))
+            warn(line)
     try:
         save_response(recipe, chain, assessment, output)
     except OSError as exc:

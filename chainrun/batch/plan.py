@@ -224,8 +224,13 @@ def _prepare(recipes: list[Recipe], policies: list[Policy], plan, outdir: str) -
         first = next(d for ds in designs for d in ds.values() if not d.usable)
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "
                          f"({', '.join(map(str, sorted(rates)))} Hz); no audio was touched")
+    # a note for each section left out at a rate some file is rendered at (above_nyquist: drop)
+    used = {(job.recipe, src.rate) for job, src in work}
+    dropped = [note if len(recipes) == 1 else f"{recipes[i].path}: {note}"
+               for i, ds in enumerate(designs) for rate, d in sorted(ds.items()) if (i, rate) in used
+               for note in (d.chain.dropped if d.chain is not None else ())]
     # once per recipe (and once for --on-over clip), however many float files it renders
     clip_warnings = [float_clip_warning(r, p, [src.subtype for job, src in work if job.recipe == i])
                      for i, (r, p) in enumerate(zip(recipes, policies))]
     return Prepared(recipes[0], policies[0], outdir, designs[0], work, results, refused,
-                    recipes, policies, designs, list(dict.fromkeys(w for w in clip_warnings if w)))
+                    recipes, policies, designs, dropped + list(dict.fromkeys(w for w in clip_warnings if w)))

@@ -49,6 +49,8 @@ def _print_check(entry: dict) -> None:
             for p in r.get("paths") or ():          # a chain with channel paths: one row per path, then its name
                 row = f"  {'':>9} {_cells(p)}  "
                 print(row + shown(p["title"])[:max(_WIDTH - len(row), 8)])
+    for note in entry.get("notes") or ():          # sections marked above_nyquist: drop, left out at a rate
+        print(f"  note: {shown(note)}")
     for line in problem_lines(entry):
         _err(line)
 

@@ -27,7 +27,7 @@ from .channels import one_kind_of_channels, read_channels
 from .includes import include_tree, resolve_include
 from .loudness import build_loudness, merge_loudness, read_loudness
 from .model import _GUARD_KEYS, Guard, Output, Recipe, Section
-from .rates import merge_rates, read_rates
+from .rates import merge_rates, read_above_nyquist, read_rates
 from .yaml import (MAX_FILE_BYTES, MAX_NAME_CHARS, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer,
                    _mapping, _Node, _number, _read_text, _text)
 
@@ -97,8 +97,9 @@ def _section(node: _Node, index: int, path: str) -> Section:
         params["order"] = _integer(entries["order"][1], f"{name}.order", *row.order) if "order" in entries else 2
     row.rule(params, name, where)
     channels = read_channels(entries["channels"][1], f"{name}.channels") if "channels" in entries else None
+    above = read_above_nyquist(entries["above_nyquist"][1], name, params) if "above_nyquist" in entries else "reject"
     return Section(kind, MappingProxyType(params), node.where, MappingProxyType(where), index, label,
-                   channels=channels)
+                   channels=channels, above_nyquist=above)
 
 
 # Section types whose frequency is almost never below the audio band: below this, a value

@@ -1,4 +1,5 @@
-"""The recipe's ``rates:`` key: the sample rates (Hz) a recipe is meant for, read and merged along includes.
+"""The recipe's ``rates:`` key: the sample rates (Hz) a recipe is meant for, read and merged along includes;
+and a section's ``above_nyquist:`` key, what happens at a rate too low for its frequency.
 
 A recipe that declares ``rates:`` is checked at exactly those rates, and a run rejects a file at any
 other rate. Along an include chain the including file's ``rates:`` applies; without one, its
@@ -7,13 +8,24 @@ includes' (files included side by side must then agree). A layer is ``{"rates": 
 from __future__ import annotations
 
 from ..errors import RecipeError
-from .yaml import _Node, _describe, _fmt, _number
+from .yaml import _Node, _describe, _fmt, _number, _text
 
-__all__ = ["MAX_DECLARED_RATE", "read_rates", "merge_rates"]
+__all__ = ["MAX_DECLARED_RATE", "ABOVE_NYQUIST", "read_rates", "merge_rates", "read_above_nyquist"]
 
 MAX_DECLARED_RATE = 1_000_000     # as the audio reader's highest sample rate
 
+ABOVE_NYQUIST = ("reject", "drop")   # a section with freq at or above a rate's Nyquist: reject the file, or drop out
+
 _Layer = dict
+
+
+def read_above_nyquist(node: _Node, name: str, params: dict) -> str:
+    """A section's ``above_nyquist`` (``reject`` or ``drop``); only a section with a ``freq`` takes it."""
+    value = _text(node, f"{name}.above_nyquist", ABOVE_NYQUIST)
+    if "freq" not in params:
+        raise RecipeError.at(node.where, f"{name}.above_nyquist applies only to a section with a freq; "
+                                         "this section has none: remove the key")
+    return value
 
 
 def read_rates(node: _Node | None) -> _Layer:

@@ -145,3 +145,77 @@ def test_strict_still_fails_on_warnings_with_problem_objects(write_recipe, run_c
     assert run_cli("check", "--json", path, "--rate", "48000")[0] == 0
     status, out, _ = run_cli("check", "--json", "--strict", path, "--rate", "48000")
     assert status == 1 and json.loads(out)["accepted"] is False
+
+
+# --------------------------------------------------------------------------- D: dropping out above Nyquist
+
+DROP = ("format: 1\nchain:\n  - {type: highpass, freq: 80}\n"
+        "  - {type: high_shelf, freq: 9000, gain_db: 3, label: air, above_nyquist: drop}\n")
+DROP_NOTE = ("chain[1] high_shelf 9000 Hz (air) drops out at 16000 Hz: its 9000 Hz is at or above Nyquist "
+             "(8000 Hz), and it is marked above_nyquist: drop")
+
+
+def test_a_dropped_section_gives_a_note_and_an_accepted_chain(write_recipe, run_cli):
+    import numpy as np
+
+    from chainrun.design import design
+
+    recipe = load(write_recipe(DROP))
+    chain = design(recipe, 16000)
+    # at 16 kHz the 9 kHz shelf is above Nyquist (8 kHz): the chain is the high-pass alone
+    alone = design(loads("format: 1\nchain:\n  - {type: highpass, freq: 80}\n"), 16000)
+    assert np.array_equal(chain.sos, alone.sos) and chain.rows == (0,)
+    assert chain.dropped == (DROP_NOTE,)
+    assert design(recipe, 48000).dropped == () and len(design(recipe, 48000).sos) == 2
+    status, out, err = run_cli("check", "--json", write_recipe(DROP), "--rate", "16000", "--rate", "48000")
+    assert status == 0 and err == ""
+    (entry,) = json.loads(out)["recipes"]
+    assert entry["accepted"] and entry["notes"] == [DROP_NOTE] and entry["problems"] == []
+    assert [r["notes"] for r in entry["rates"]] == [[DROP_NOTE], []]
+    status, out, err = run_cli("check", write_recipe(DROP), "--rate", "16000")
+    assert status == 0 and f"  note: {DROP_NOTE}" in out.splitlines()
+    # without the mark, the same shelf rejects the chain at 16 kHz, as before
+    status, _, err = run_cli("check", write_recipe(DROP.replace(", above_nyquist: drop", ""), "r.yaml"),
+                             "--rate", "16000")
+    assert status == 1 and "9000 Hz is at or above Nyquist (8000 Hz) for 16000 Hz files" in err
+
+
+def test_a_run_at_a_rate_where_a_section_drops_out_says_so_in_its_reports(tmp_path, write_recipe, write_audio,
+                                                                         run_cli):
+    import numpy as np
+    from support import by_rel, report_of
+
+    x = np.random.default_rng(5).uniform(-0.2, 0.2, 16000)
+    write_audio("in/phone.wav", x, rate=16000)
+    status, out, err = run_cli("run", write_recipe(DROP), tmp_path / "in", "-o", tmp_path / "out")
+    assert status == 0, err
+    report = report_of(tmp_path / "out")
+    assert by_rel(report)["phone.wav"]["status"] == "ok" and DROP_NOTE in report["notes"]
+    assert DROP_NOTE in err
+    assert DROP_NOTE in (tmp_path / "out" / "chainrun-report.html").read_text(encoding="utf-8")
+
+
+@pytest.mark.parametrize("text, at, says", [
+    ("  - {type: gain, gain_db: -1, above_nyquist: drop}\n", (3, 46),
+     "chain[0].above_nyquist applies only to a section with a freq"),
+    ("  - {type: peak, freq: 9000, gain_db: 1, q: 1, above_nyquist: skip}\n", (3, 63),
+     "chain[0].above_nyquist 'skip' is not known; allowed: reject, drop"),
+])
+def test_bad_above_nyquist_gets_a_located_error(text, at, says):
+    with pytest.raises(RecipeError) as info:
+        loads("format: 1\nchain:\n" + text, "x.yaml")
+    assert (info.value.line, info.value.col) == at and says in info.value.message
+
+
+def test_a_chain_that_drops_out_entirely_is_refused_at_that_rate():
+    from chainrun.design import design
+
+    recipe = loads("format: 1\nchain:\n  - {type: peak, freq: 9000, gain_db: 1, q: 1, above_nyquist: drop}\n", "x.yaml")
+    with pytest.raises(RecipeError, match=r"^x\.yaml:3:63: error: every section of the chain drops out at 16000 Hz"):
+        design(recipe, 16000)
+
+
+def test_plot_at_a_rate_where_a_section_drops_out_says_so(tmp_path, write_recipe, run_cli):
+    status, _, err = run_cli("plot", write_recipe(DROP), "--rate", "16000", "-o", tmp_path / "r.svg")
+    assert status == 0 and err.splitlines() == [f"note: {DROP_NOTE}"]
+    assert (tmp_path / "r.svg").exists()
