@@ -71,7 +71,6 @@ def _own_rates(entries: list[dict]) -> str:
 
 def main(args: argparse.Namespace) -> int:
     rates = tuple(dict.fromkeys(args.rate)) if args.rate else None      # None: each recipe's rates:, or the common
-
     entries = check(args.recipes, rates, allow_outside_includes=args.allow_outside_includes)
     rejected = [e for e in entries if not e["accepted"]
                 or (args.strict and any(p["severity"] == "warning" for p in e["problems"]))]
