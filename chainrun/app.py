@@ -13,15 +13,15 @@ from __future__ import annotations
 
 import contextlib
 import os
-import stat
 from dataclasses import dataclass, field
 from typing import Callable
 
 from .audio.metadata import metadata_summary
 from .batch.discover import discover
-from .batch.plan import design_and_assess, probe_job
+from .batch.plan import design_and_assess, probe_job, undeclared_rate
+from .batch.refuse import RECIPE_SUFFIXES, refuse_audio_recipe, refuse_recipe_inputs
 from .batch.run import MAX_WORKERS, BatchResult, claimed, execute
-from .errors import BatchError
+from .errors import BatchError, problem
 from .recipe import Recipe, RecipeError, load
 from .render import Policy, scan_file
 from .results import FileResult
@@ -29,8 +29,7 @@ from .results import FileResult
 __all__ = ["DEFAULT_RATES", "RECIPE_SUFFIXES", "PLOT_SUFFIXES", "find_recipes", "check_recipe", "check", "cores",
            "RunOutcome", "refuse_audio_recipe", "refuse_recipe_inputs", "run", "scan", "plot"]
 
-DEFAULT_RATES = (44100, 48000, 96000)
-RECIPE_SUFFIXES = (".yaml", ".yml")
+DEFAULT_RATES = (8000, 16000, 22050, 32000, 44100, 48000, 88200, 96000, 176400, 192000)   # the common rates
 PLOT_SUFFIXES = (".png", ".svg")
 _ASSESSMENT_KEYS = ("rate", "accepted", "rows", "max_pole_radius", "decay_60db_s", "decay_exact", "max_gain_db",
                     "max_gain_hz", "min_gain_db", "min_gain_hz", "worst_case_peak_gain", "worst_case_peak_gain_db",
@@ -63,40 +62,49 @@ def find_recipes(paths: list[str]) -> list[str]:
     return found
 
 
-def check_recipe(path: str, rates: tuple[int, ...], allow_outside_includes: bool = False) -> dict:
-    """Load, design and assess one recipe at each rate; a JSON-safe summary."""
-    entry: dict = {"path": path, "accepted": False, "errors": [], "warnings": [], "rates": []}
+def check_recipe(path: str, rates: tuple[int, ...] | None = None, allow_outside_includes: bool = False) -> dict:
+    """Load, design and assess one recipe at each rate; a JSON-safe summary.
+
+    ``rates`` None: the rates the recipe declares (``rates:``), else :data:`DEFAULT_RATES`. ``problems``
+    holds each error and warning as an object (:func:`chainrun.errors.problem`), once for each rate it
+    is found at (``rate`` None for one found loading the recipe); ``notes`` a line for each section left
+    out at a rate (``above_nyquist: drop``), as does each rate's entry."""
+    entry: dict = {"path": path, "accepted": False, "problems": [], "notes": [], "rates": []}
     try:
         recipe = load(path, allow_outside_includes=allow_outside_includes)
     except RecipeError as exc:
-        entry["errors"].append(str(exc))
+        entry["problems"].append(problem(str(exc)))
         return entry
     entry.update(name=recipe.name, digest=recipe.digest, sections=len(recipe.sections))
-    entry["warnings"].extend(recipe.warnings)          # e.g. a file loosening a limit it includes
+    entry["problems"].extend(problem(w) for w in recipe.warnings)   # e.g. a file loosening a limit it includes
+    rates = rates or recipe.rates or DEFAULT_RATES
+    entry["declared_rates"] = list(recipe.rates) if recipe.rates is not None else None
     accepted = True
     for rate in rates:
         try:
-            _, a = design_and_assess(recipe, rate)
+            chain, a = design_and_assess(recipe, rate)
         except RecipeError as exc:
-            entry["errors"].append(str(exc))
+            found = [problem(str(exc), rate)]
             entry["rates"].append(dict.fromkeys(_ASSESSMENT_KEYS) | {"rate": rate, "accepted": False,
-                                                                     "error": str(exc)})
+                                                                     "error": str(exc), "problems": found, "notes": []})
+            entry["problems"].extend(found)
             accepted = False
             continue
-        entry["rates"].append(a.to_dict() | {"error": next((str(p) for p in a.problems
-                                                            if p.severity == "error"), None)})
-        for p in a.problems:
-            (entry["errors"] if p.severity == "error" else entry["warnings"]).append(str(p))
+        found = [problem(str(p), rate) for p in a.problems]
+        entry["rates"].append(a.to_dict() | {"problems": found, "error": next(
+            (str(p) for p in a.problems if p.severity == "error"), None), "notes": list(chain.dropped)})
+        entry["problems"].extend(found)
+        entry["notes"].extend(chain.dropped)       # sections marked above_nyquist: drop, left out at this rate
         accepted &= a.accepted
-    entry["errors"] = list(dict.fromkeys(entry["errors"]))       # same problem at several rates: once
-    entry["warnings"] = list(dict.fromkeys(entry["warnings"]))
     entry["accepted"] = accepted
     return entry
 
 
-def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES, *,
+def check(paths: list[str], rates: tuple[int, ...] | None = None, *,
           allow_outside_includes: bool = False) -> list[dict]:
     """Check every recipe named or found in the folders named (see :func:`check_recipe`); writes nothing.
+
+    ``rates`` None: each recipe at the rates it declares (``rates:``), else at :data:`DEFAULT_RATES`.
 
     ``allow_outside_includes``: follow includes out of each recipe's folder tree (see :func:`chainrun.load`).
 
@@ -131,7 +139,7 @@ def check(paths: list[str], rates: tuple[int, ...] = DEFAULT_RATES, *,
         try:
             plan = load_plan(p, allow_outside_includes=allow_outside_includes)
         except RecipeError as exc:
-            entries.append({"path": p, "plan": p, "accepted": False, "errors": [str(exc)], "warnings": [],
+            entries.append({"path": p, "plan": p, "accepted": False, "problems": [problem(str(exc))], "notes": [],
                             "rates": []})
             continue
         for recipe in plan.recipes:
@@ -191,46 +199,6 @@ def _write_reports(result: BatchResult, report: str | None, command: list[str] |
     if errors and not result.interrupted:
         errors[-1] += "; the files listed above as ok were delivered"
     return paths, errors
-
-
-# The first bytes of audio containers a recipe can never start with (a recipe is UTF-8 YAML).
-_AUDIO_MAGIC = {b"RIFF": "WAV", b"RIFX": "WAV", b"RF64": "WAV", b"BW64": "WAV", b"riff": "W64",
-                b"FORM": "AIFF", b"fLaC": "FLAC", b"OggS": "Ogg", b"caff": "CAF", b".snd": "AU"}
-
-
-def refuse_audio_recipe(recipe: str | os.PathLike) -> None:
-    """Refuse an audio file given where the recipe goes (``chainrun run take.wav recipe.yaml``).
-
-    Raises
-    ------
-    BatchError
-        One line, when the recipe path's first four bytes are an audio container's.
-    """
-    try:
-        if not stat.S_ISREG(os.stat(recipe).st_mode):     # a pipe could wait for ever: the loader refuses it
-            return
-        with open(recipe, "rb") as fh:
-            head = fh.read(4)
-    except OSError:
-        return                     # the recipe loader says what is wrong with it
-    if head in _AUDIO_MAGIC:
-        raise BatchError(f"{os.fspath(recipe)}: error: the first argument is audio ({_AUDIO_MAGIC[head]}), not a "
-                         "recipe: chainrun run RECIPE INPUT...; no audio was touched")
-
-
-def refuse_recipe_inputs(inputs: list[str]) -> None:
-    """Refuse a recipe file named among the audio inputs (a second recipe is a plan's job), before any audio.
-
-    Raises
-    ------
-    BatchError
-        Naming the first input with a recipe suffix (.yaml, .yml) that is not a folder.
-    """
-    for arg in inputs:
-        if os.fspath(arg).lower().endswith(RECIPE_SUFFIXES) and not os.path.isdir(arg):
-            raise BatchError(f"{arg}: error: a recipe among the inputs; a run takes one recipe, then audio files "
-                             "and folders. To give different inputs different recipes, write a batch plan and "
-                             "run 'chainrun run --plan PLAN.yaml -o OUTDIR'; no audio was touched")
 
 
 def run(recipe: Recipe | str | None, inputs: list[str], outdir: str, *, workers: int | None = None,
@@ -354,6 +322,9 @@ def filter_file(recipe: Recipe | str, input: str, output: str, *, on_over: str |
     src = probe_job(Job(input, name, output))
     if isinstance(src, FileResult):
         return src
+    if undeclared_rate(recipe, src.rate):
+        return FileResult(input, name, REJECTED, f"the recipe is not meant for this file: "
+                                                 f"{undeclared_rate(recipe, src.rate)}", source=src)
     try:
         chain, assessment = design_and_assess(recipe, src.rate)
     except RecipeError as exc:          # e.g. a section at or above this rate's Nyquist frequency
@@ -401,7 +372,8 @@ def plot(recipe: Recipe | str, rate: int, output: str, *, warn: Callable[[str], 
          allow_outside_includes: bool = False):
     """Draw the chain's response at ``rate`` to ``output`` (.png or .svg); returns the guard's Assessment.
 
-    ``warn`` is called with each of the assessment's problems before the picture is drawn;
+    ``warn`` is called with each of the assessment's problems (and a ``note:`` for each section left out
+    at ``rate``, ``above_nyquist: drop``) before the picture is drawn;
     ``allow_outside_includes``: as for :func:`chainrun.load`.
 
     Raises
@@ -418,9 +390,9 @@ def plot(recipe: Recipe | str, rate: int, output: str, *, warn: Callable[[str], 
     chain, assessment = design_and_assess(recipe, rate)
     from .report.plot import save_response
 
-    for p in assessment.problems:
+    for line in [str(p) for p in assessment.problems] + [f"note: {n}" for n in chain.dropped]:
         if warn is not None:
-            warn(str(p))
+            warn(line)
     try:
         save_response(recipe, chain, assessment, output)
     except OSError as exc:

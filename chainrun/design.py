@@ -8,7 +8,9 @@ convention of scipy.signal and the Audio EQ Cookbook::
     H(z) = (b0 + b1 z^-1 + b2 z^-2) / (1 + a1 z^-1 + a2 z^-2)
 
 Here the frequencies are checked against Nyquist at the rate used, and a design that
-over- or underflows becomes a located :class:`~chainrun.recipe.RecipeError`.
+over- or underflows becomes a located :class:`~chainrun.recipe.RecipeError`. A section marked
+``above_nyquist: drop`` whose frequency is at or above the rate's Nyquist frequency is left out
+of the chain at that rate, with a note (``Chain.dropped``) naming it and the rate.
 
 A recipe whose sections name ``channels`` is designed as one cascade per channel path
 (:class:`Path`): the sections a path runs are, top to bottom, every section without
@@ -83,6 +85,8 @@ class Chain:
     paths : tuple of Path
         The distinct paths, empty when ``routing`` is ``EVERY``. Then ``sos`` holds every
         section's rows in recipe order, which is no single filter: ``paths`` are.
+    dropped : tuple of str
+        One note for each section marked ``above_nyquist: drop`` left out at this rate.
     """
 
     rate: int
@@ -91,6 +95,7 @@ class Chain:
     rows: tuple[int, ...]
     routing: str = EVERY
     paths: tuple[Path, ...] = ()
+    dropped: tuple[str, ...] = ()
 
     @property
     def cascades(self) -> tuple[Path, ...]:
@@ -112,6 +117,8 @@ class Chain:
                "sos": [[float(v) for v in row] for row in self.sos]}
         if self.paths:
             out.update(routing=self.routing, paths=[p.to_dict() for p in self.paths])
+        if self.dropped:
+            out["dropped"] = list(self.dropped)
         return out
 
 
@@ -164,20 +171,31 @@ def design(recipe: Recipe, rate: int) -> Chain:
         If ``rate`` is not positive.
     RecipeError
         If a section's frequency is at or above Nyquist at ``rate`` (located at that
-        section's ``freq``).
+        section's ``freq``), unless it is marked ``above_nyquist: drop``; or if every
+        section drops out at ``rate``.
     """
     if not rate > 0:
         raise ValueError(f"sample rate must be positive; got {rate}")
-    blocks, labels, rows = [], [], []
+    blocks, labels, rows, dropped = [], [], [], []
     for i, section in enumerate(recipe.sections):
+        freq = section.params.get("freq")
+        if section.above_nyquist == "drop" and freq is not None and freq >= rate / 2.0:
+            dropped.append(f"{section.title} drops out at {rate:g} Hz: its {freq:g} Hz is at or above "
+                           f"Nyquist ({rate / 2:g} Hz), and it is marked above_nyquist: drop")
+            continue
         sos = design_section(section, rate)
         blocks.append(sos)
         n = len(sos)
         labels.extend(section.title if n == 1 else f"{section.title} [{k + 1}/{n}]" for k in range(n))
         rows.extend([i] * n)
+    if not blocks:
+        first = recipe.sections[0]
+        raise RecipeError.at(first.locate("above_nyquist"), f"every section of the chain drops out at {rate:g} Hz "
+                                                             f"(at or above Nyquist, {rate / 2:g} Hz); nothing is left "
+                                                             "to filter: the recipe cannot be used at this rate")
     sos = np.ascontiguousarray(np.vstack(blocks), dtype=np.float64)
     routing, paths = _paths(recipe, sos, labels, rows)
-    return Chain(int(rate), sos, tuple(labels), tuple(rows), routing, paths)
+    return Chain(int(rate), sos, tuple(labels), tuple(rows), routing, paths, tuple(dropped))
 
 
 def _path(key: str, title: str, tracks: tuple[int, ...], chosen: list[int], sos: np.ndarray,

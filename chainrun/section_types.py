@@ -37,8 +37,10 @@ MIN_FREQ_HZ = 1e-3                # lowest section frequency; below it the desig
 MAX_TRACK = 64                    # highest track number a section's ``channels`` may name
 
 # Keys every section type takes, whatever its type: ``channels`` (which channels the section
-# filters: a list of 1-based track numbers, or one of CHANNEL_WORDS for a two-channel file).
-COMMON_KEYS = ("channels",)
+# filters: a list of 1-based track numbers, or one of CHANNEL_WORDS for a two-channel file) and
+# ``above_nyquist`` (``reject`` or ``drop``: at a rate whose Nyquist frequency is at or below the
+# section's freq, reject the file or leave the section out; only a section with a freq takes it).
+COMMON_KEYS = ("channels", "above_nyquist")
 CHANNEL_WORDS = ("mid", "side")
 
 Rule = Callable[[dict, str, Mapping[str, Location]], None]

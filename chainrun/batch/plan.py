@@ -21,7 +21,8 @@ from ..results import FAILED, REJECTED, SKIPPED, FileResult
 from ..text import fault, reason as _reason
 from .discover import Job, discover, discover_plan
 
-__all__ = ["RateDesign", "Prepared", "prepare", "probe_job", "design_fault", "design_and_assess", "design_rates", "prepare_plan"]
+__all__ = ["RateDesign", "Prepared", "prepare", "probe_job", "design_fault", "design_and_assess", "design_rates",
+           "prepare_plan", "undeclared_rate"]
 
 
 @dataclass(frozen=True)
@@ -79,6 +80,14 @@ def probe_job(job: Job) -> Source | FileResult:
     if short:
         return FileResult(job.input, job.relpath, FAILED, short, source=src)
     return src
+
+
+def undeclared_rate(recipe: Recipe, rate: int) -> str | None:
+    """Why ``recipe`` refuses a file at ``rate``: not among the rates it declares (``rates:``); else None."""
+    if recipe.rates is None or rate in recipe.rates:
+        return None
+    return (f"this file's rate, {rate} Hz, is not among the rates the recipe declares "
+            f"({', '.join(map(str, recipe.rates))} Hz)")
 
 
 def design_and_assess(recipe: Recipe, rate: int) -> tuple[Chain, Assessment]:
@@ -185,20 +194,28 @@ def _prepare(recipes: list[Recipe], policies: list[Policy], plan, outdir: str) -
             continue
         probed.append((job, src))
     rates = {src.rate for _, src in probed}
-    designs = [design_rates(recipe, rates) for recipe in recipes]
-    work, refused = [], []
+    # each recipe designed at the batch's rates it declares (at every rate of the batch without rates:)
+    designs = [design_rates(recipe, {r for r in rates if not undeclared_rate(recipe, r)}) for recipe in recipes]
+    work, refused, undeclared = [], [], []
     for job, src in probed:
-        d = designs[job.recipe][src.rate]
-        misfit = channels_misfit(recipes[job.recipe], src.channels) if d.usable else None
-        if d.usable and not misfit:
+        which = "the recipe" if len(recipes) == 1 else f"the recipe {recipes[job.recipe].path}"
+        off = undeclared_rate(recipes[job.recipe], src.rate)
+        d = designs[job.recipe][src.rate] if not off else None
+        misfit = channels_misfit(recipes[job.recipe], src.channels) if d and d.usable else None
+        if d and d.usable and not misfit:
             work.append((job, src))
-        else:
-            which = "the recipe" if len(recipes) == 1 else f"the recipe {recipes[job.recipe].path}"
-            why = (f"{which} cannot be used at {src.rate} Hz: {d.error}" if not d.usable else
-                   f"{which} cannot be used on this file's {src.channels} channel(s): {misfit}")
-            r = FileResult(job.input, job.relpath, REJECTED, why, source=src)
-            refused.append((job, r))
-            results.append(r)
+            continue
+        why = (f"{which} is not meant for this file: {off}" if off else
+               f"{which} cannot be used at {src.rate} Hz: {d.error}" if not d.usable else
+               f"{which} cannot be used on this file's {src.channels} channel(s): {misfit}")
+        r = FileResult(job.input, job.relpath, REJECTED, why, source=src)
+        (undeclared if off else refused).append((job, r))
+        results.append(r)
+    if probed and not work and not refused:
+        first_job, first = undeclared[0]
+        raise BatchError(f"{first_job.input}: {first.message}; no file in the batch is at a rate the recipe "
+                         "declares; no audio was touched")
+    refused = refused + undeclared
     if probed and not work and all(d.usable for ds in designs for d in ds.values()):
         first_job, first = refused[0]
         raise BatchError(f"{first_job.input}: {first.message}; the recipe's channels fit no file in the batch; "
@@ -207,8 +224,13 @@ def _prepare(recipes: list[Recipe], policies: list[Policy], plan, outdir: str) -
         first = next(d for ds in designs for d in ds.values() if not d.usable)
         raise BatchError(f"{first.error}; the recipe is rejected at every sample rate in the batch "
                          f"({', '.join(map(str, sorted(rates)))} Hz); no audio was touched")
+    # a note for each section left out at a rate some file is rendered at (above_nyquist: drop)
+    used = {(job.recipe, src.rate) for job, src in work}
+    dropped = [note if len(recipes) == 1 else f"{recipes[i].path}: {note}"
+               for i, ds in enumerate(designs) for rate, d in sorted(ds.items()) if (i, rate) in used
+               for note in (d.chain.dropped if d.chain is not None else ())]
     # once per recipe (and once for --on-over clip), however many float files it renders
     clip_warnings = [float_clip_warning(r, p, [src.subtype for job, src in work if job.recipe == i])
                      for i, (r, p) in enumerate(zip(recipes, policies))]
     return Prepared(recipes[0], policies[0], outdir, designs[0], work, results, refused,
-                    recipes, policies, designs, list(dict.fromkeys(w for w in clip_warnings if w)))
+                    recipes, policies, designs, dropped + list(dict.fromkeys(w for w in clip_warnings if w)))

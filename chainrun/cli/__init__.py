@@ -31,7 +31,8 @@ def _check_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("recipes", nargs="+", metavar="RECIPE_OR_DIR",
                    help="recipe files or folders searched for *.yaml; a batch plan stands for every recipe it names")
     p.add_argument("--rate", type=_rate, action="append", metavar="HZ",
-                   help="sample rate to check; repeat for several (default: 44100, 48000, 96000)")
+                   help="sample rate to check; repeat for several (default: the rates the recipe declares, "
+                        "else the common rates 8000 to 192000)")
     p.add_argument("--json", action="store_true", help="print results as JSON on stdout")
     p.add_argument("--strict", action="store_true", help="a recipe with warnings fails the check too (exit 1)")
     _includes_argument(p)

@@ -8,6 +8,7 @@ import sys
 
 from ..version import __version__
 from ..app import DEFAULT_RATES, check
+from ..errors import problem_line
 from ..text import fmt_db, shown
 from .common import EXIT_NOT_OK, EXIT_OK, _err
 
@@ -48,25 +49,43 @@ def _print_check(entry: dict) -> None:
             for p in r.get("paths") or ():          # a chain with channel paths: one row per path, then its name
                 row = f"  {'':>9} {_cells(p)}  "
                 print(row + shown(p["title"])[:max(_WIDTH - len(row), 8)])
-    for line in entry["errors"] + entry["warnings"]:
+    for note in entry.get("notes") or ():          # sections marked above_nyquist: drop, left out at a rate
+        print(f"  note: {shown(note)}")
+    for line in problem_lines(entry):
         _err(line)
 
 
+def problem_lines(entry: dict) -> list[str]:
+    """An entry's problems as lines for stderr: errors first, then warnings, each said once (not once a rate)."""
+    ordered = sorted(entry["problems"], key=lambda p: p["severity"] != "error")
+    return list(dict.fromkeys(problem_line(p) for p in ordered))
+
+
+def _own_rates(entries: list[dict]) -> str:
+    """Which rates were checked without --rate: the rates each recipe declares, or the common ones."""
+    common = f"the common rates ({', '.join(f'{r / 1000:g}' for r in DEFAULT_RATES)} kHz)"
+    if any(e.get("declared_rates") for e in entries):
+        return f"the rates each recipe declares, else {common}"
+    return common
+
+
 def main(args: argparse.Namespace) -> int:
-    rates = tuple(dict.fromkeys(args.rate)) if args.rate else DEFAULT_RATES
+    rates = tuple(dict.fromkeys(args.rate)) if args.rate else None      # None: each recipe's rates:, or the common
     entries = check(args.recipes, rates, allow_outside_includes=args.allow_outside_includes)
-    rejected = [e for e in entries if not e["accepted"] or (args.strict and e["warnings"])]
+    rejected = [e for e in entries if not e["accepted"]
+                or (args.strict and any(p["severity"] == "warning" for p in e["problems"]))]
     if args.json:
-        json.dump({"version": __version__, "rates": list(rates), "accepted": not rejected,
+        json.dump({"version": __version__, "rates": list(rates) if rates else None, "accepted": not rejected,
                    "recipes": entries}, sys.stdout, indent=2)
         print()
         for e in entries:
-            for line in e["errors"] + e["warnings"]:
+            for line in problem_lines(e):
                 _err(line)
     else:
         for e in entries:
             _print_check(e)
-        print(f"{len(entries)} recipe(s) checked at {', '.join(map(str, rates))} Hz: "
+        at = ", ".join(map(str, rates)) + " Hz" if rates else _own_rates(entries)
+        print(f"{len(entries)} recipe(s) checked at {at}: "
               f"{len(entries) - len(rejected)} accepted, {len(rejected)} rejected"
               + (" (--strict: warnings reject)" if args.strict else ""))
     return EXIT_NOT_OK if rejected else EXIT_OK

@@ -27,6 +27,7 @@ from .channels import one_kind_of_channels, read_channels
 from .includes import include_tree, resolve_include
 from .loudness import build_loudness, merge_loudness, read_loudness
 from .model import _GUARD_KEYS, Guard, Output, Recipe, Section
+from .rates import merge_rates, read_above_nyquist, read_rates
 from .yaml import (MAX_FILE_BYTES, MAX_NAME_CHARS, MAX_NESTING, _check_keys, _compose, _describe, _fmt, _integer,
                    _mapping, _Node, _number, _read_text, _text)
 
@@ -35,7 +36,7 @@ __all__ = ["load", "loads", "from_dict"]
 MAX_SECTIONS = 64                 # sections in the resolved chain, includes counted
 MAX_INCLUDE_DEPTH = 8             # include nesting
 
-_TOP_KEYS = ("format", "name", "notes", "include", "chain", "guard", "output", "loudness")
+_TOP_KEYS = ("format", "name", "notes", "include", "chain", "guard", "output", "loudness", "rates")
 ON_OVER = ("reject", "clip", "scale")
 OUTPUT_SUBTYPES = ("same", "PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE")
 DITHER = ("auto", "tpdf", "none")
@@ -96,8 +97,9 @@ def _section(node: _Node, index: int, path: str) -> Section:
         params["order"] = _integer(entries["order"][1], f"{name}.order", *row.order) if "order" in entries else 2
     row.rule(params, name, where)
     channels = read_channels(entries["channels"][1], f"{name}.channels") if "channels" in entries else None
+    above = read_above_nyquist(entries["above_nyquist"][1], name, params) if "above_nyquist" in entries else "reject"
     return Section(kind, MappingProxyType(params), node.where, MappingProxyType(where), index, label,
-                   channels=channels)
+                   channels=channels, above_nyquist=above)
 
 
 # Section types whose frequency is almost never below the audio band: below this, a value
@@ -218,6 +220,7 @@ class _Loaded(NamedTuple):
     output: _Layer                # the output keys written along the chain
     warnings: list[str]           # located warnings, includes first
     loudness: _Layer = {}         # the loudness keys written along the chain
+    rates: _Layer = {}            # the rates: that apply (the nearest file along the chain that writes them)
 
 
 def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: str | None = None,
@@ -248,6 +251,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
     inc_guard: _Layer = {}
     inc_output: _Layer = {}
     inc_loudness: _Layer = {}
+    inc_rates: _Layer = {}
     warnings: list[str] = []
     if "include" in entries:
         inode = entries["include"][1]
@@ -262,6 +266,7 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
             inc_guard = _merge_guard(inc_guard, inc.guard, None)
             inc_output = _merge_output(inc_output, inc.output)
             inc_loudness = merge_loudness(inc_loudness, inc.loudness)
+            inc_rates = merge_rates(inc_rates, inc.rates, side_by_side=True)
             if len(sections) > MAX_SECTIONS:
                 raise RecipeError.at(item.where, f"the chain has more than {MAX_SECTIONS} sections "
                                                  f"(includes counted); split the recipe")
@@ -286,7 +291,8 @@ def _load_file(path: str, stack: tuple[str, ...], where: Location | None, text: 
     guard = _merge_guard(inc_guard, _guard(entries["guard"][1] if "guard" in entries else None), warnings)
     output = _merge_output(inc_output, _output(entries["output"][1] if "output" in entries else None))
     loudness = merge_loudness(inc_loudness, read_loudness(entries["loudness"][1] if "loudness" in entries else None))
-    return _Loaded(entries, sections, included, guard, output, list(dict.fromkeys(warnings)), loudness)
+    rates = merge_rates(inc_rates, read_rates(entries["rates"][1] if "rates" in entries else None))
+    return _Loaded(entries, sections, included, guard, output, list(dict.fromkeys(warnings)), loudness, rates)
 
 
 def _recipe(path: str, text: str | None = None, allow_outside: bool = False) -> Recipe:
@@ -300,7 +306,8 @@ def _recipe(path: str, text: str | None = None, allow_outside: bool = False) -> 
         _text(entries["notes"][1], "notes")
     block = entries["loudness"][1].where if "loudness" in entries else Location(path, 1, 1)
     return Recipe(path, name, tuple(top.sections), _build(Guard, top.guard), _build(Output, top.output),
-                  tuple(top.included), tuple(top.warnings), loudness=build_loudness(top.loudness, block))
+                  tuple(top.included), tuple(top.warnings), loudness=build_loudness(top.loudness, block),
+                  rates=top.rates["rates"][0] if top.rates else None)
 
 
 def load(path: str | os.PathLike, *, allow_outside_includes: bool = False) -> Recipe:

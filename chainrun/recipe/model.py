@@ -26,7 +26,9 @@ class Section:
     ``params`` holds the section's numeric parameters with defaults filled in
     (``order``; ``slope`` for second-order shelves); ``where`` the location of
     the section itself and ``param_where`` the location of each given key.
-    ``index`` is the position in the file it was written in. ``channels`` is the
+    ``index`` is the position in the file it was written in. ``above_nyquist`` is what
+    happens at a rate whose Nyquist frequency is at or below the section's ``freq``: ``reject``
+    (the file is rejected) or ``drop`` (the section is left out at that rate). ``channels`` is the
     channels the section filters: None (every channel), a sorted tuple of distinct
     1-based track numbers, or ``"mid"`` / ``"side"`` (a two-channel file's
     mid = (L + R) / 2 or side = (L - R) / 2).
@@ -40,6 +42,7 @@ class Section:
     label: str = ""
     origin: str = ""          # for a section of an included recipe: that file, as the include named it
     channels: tuple[int, ...] | str | None = None
+    above_nyquist: str = "reject"   # at a rate whose Nyquist is at or below freq: reject, or "drop" the section
 
     def locate(self, key: str | None = None) -> Location:
         """Location of ``key`` if it was written, else of the section."""
@@ -59,6 +62,8 @@ class Section:
         out.update({k: (list(v) if isinstance(v, tuple) else v) for k, v in self.params.items()})
         if self.channels is not None:       # only then: a recipe without channels keeps its digest
             out["channels"] = list(self.channels) if isinstance(self.channels, tuple) else self.channels
+        if self.above_nyquist != "reject":  # only then: a recipe that does not write it keeps its digest
+            out["above_nyquist"] = self.above_nyquist
         if self.label:
             out["label"] = self.label
         out["from"] = str(self.where)
@@ -137,6 +142,7 @@ class Recipe:
     includes: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
     loudness: Loudness | None = None
+    rates: tuple[int, ...] | None = None      # the sample rates (Hz) it declares it is meant for, or None
 
     def to_dict(self) -> dict:
         """The recipe as resolved, as plain JSON-safe data (``guard_from``: where each guard value was set)."""
@@ -150,7 +156,8 @@ class Recipe:
             "guard_from": self.guard.sources(),
             "output": self.output.to_dict(),
             "warnings": list(self.warnings),
-        } | ({"loudness": self.loudness.to_dict()} if self.loudness is not None else {})
+        } | ({"loudness": self.loudness.to_dict()} if self.loudness is not None else {}) \
+          | ({"rates": list(self.rates)} if self.rates is not None else {})
 
     @property
     def digest(self) -> str:

@@ -16,7 +16,11 @@ from chainrun.cli import main
 LOCATED = re.compile(r"^[^\n]+:\d+:\d+: error: [^\n]+$")
 UNSTABLE_LINE = re.compile(r"^(?P<path>[^\n]*unstable-hand-typed\.yaml):11:41: error: chain\[1\] iir is unstable: "
                            r"its denominator has a root at radius 1\.00499 [^\n]*$")
-DEFAULT_RATES = [44100, 48000, 96000]     # README.md 'Commands': `chainrun check` default rates
+# README.md 'Commands': `chainrun check`'s common rates, for a recipe without rates:
+DEFAULT_RATES = [8000, 16000, 22050, 32000, 44100, 48000, 88200, 96000, 176400, 192000]
+HOUSE_RATES = [44100, 48000, 88200, 96000]    # recipes/house/boathouse-house-eq.yaml's rates: (and its includers')
+OWN_RATES = ("the rates each recipe declares, else the common rates (8, 16, 22.05, 32, 44.1, 48, 88.2, 96, 176.4, "
+             "192 kHz)")
 
 
 def run_main(argv, capsys):
@@ -44,7 +48,7 @@ def test_all_accepted_exit_0(repo_root, capsys):
                                  repo_root / "recipes" / "marsh-cleanup.yaml"], capsys)
     assert status == 0
     assert err == ""
-    assert out.splitlines()[-1] == "2 recipe(s) checked at 44100, 48000, 96000 Hz: 2 accepted, 0 rejected"
+    assert out.splitlines()[-1] == f"2 recipe(s) checked at {OWN_RATES}: 2 accepted, 0 rejected"
     for rate in DEFAULT_RATES:
         assert re.search(rf"^\s+{rate} Hz .* accepted$", out, re.M)
 
@@ -55,13 +59,13 @@ def test_folder_search_finds_bundled_recipes_and_rejects_unstable(repo_root, cap
     for name in ("boathouse-stems.yaml", "marsh-cleanup.yaml", "unstable-hand-typed.yaml",
                  os.path.join("house", "boathouse-house-eq.yaml")):
         assert name in out
-    assert out.splitlines()[-1] == "4 recipe(s) checked at 44100, 48000, 96000 Hz: 3 accepted, 1 rejected"
+    assert out.splitlines()[-1] == f"4 recipe(s) checked at {OWN_RATES}: 3 accepted, 1 rejected"
     lines = err_lines(err)
-    assert len(lines) == 1, lines                     # the same problem at three rates: said once
+    assert len(lines) == 1, lines                     # the same problem at ten rates: said once
     m = UNSTABLE_LINE.match(lines[0])
     assert m, lines[0]
     assert os.path.samefile(m["path"], repo_root / "recipes" / "unstable-hand-typed.yaml")
-    assert len(re.findall(r"REJECTED", out)) == 3     # each default rate of the unstable recipe
+    assert len(re.findall(r"REJECTED", out)) == 10    # each common rate of the unstable recipe
 
 
 def test_folder_search_suffixes_and_hidden(tmp_path, capsys):
@@ -144,8 +148,12 @@ def test_repeated_rates_and_json_per_rate(write_recipe, capsys):
     assert math.isclose(high["max_gain_db"], 2.0, abs_tol=1e-6)
     # the shelf is flat at Nyquist (zero slope), so its location is defined only to ~0.1 %
     assert math.isclose(high["max_gain_hz"], 24000.0, rel_tol=1e-3)
-    assert entry["errors"] == [line for line in err_lines(err)]
-    assert "at or above Nyquist (4000 Hz) for 8000 Hz files" in entry["errors"][0]
+    (problem,) = entry["problems"]        # an object, not a flat line (README.md 'Commands')
+    assert problem["severity"] == "error" and problem["rate"] == 8000
+    assert (problem["path"], problem["line"], problem["col"]) == (str(path), 3, 30)
+    assert err_lines(err) == [f"{path}:3:30: error: {problem['message']}"]
+    assert "at or above Nyquist (4000 Hz) for 8000 Hz files" in problem["message"]
+    assert low["problems"] == [problem] and high["problems"] == []
 
 
 # --------------------------------------------------------------------------- --json
@@ -154,12 +162,12 @@ def test_json_output_parses_with_per_rate_assessments(repo_root, capsys):
     status, out, err = run_main(["check", "--json", repo_root / "recipes"], capsys)
     assert status == 1
     doc = json.loads(out)
-    assert doc["accepted"] is False and doc["rates"] == DEFAULT_RATES
+    assert doc["accepted"] is False and doc["rates"] is None          # no --rate: each recipe's own
     by_name = {os.path.basename(e["path"]): e for e in doc["recipes"]}
     assert set(by_name) == {"boathouse-stems.yaml", "marsh-cleanup.yaml", "unstable-hand-typed.yaml",
                             "boathouse-house-eq.yaml"}
     for name, entry in by_name.items():
-        assert [r["rate"] for r in entry["rates"]] == DEFAULT_RATES
+        assert [r["rate"] for r in entry["rates"]] == (HOUSE_RATES if "boathouse" in name else DEFAULT_RATES)
         assert re.fullmatch(r"[0-9a-f]{64}", entry["digest"])
         for r in entry["rates"]:
             for key in ("max_pole_radius", "decay_60db_s", "max_gain_db", "max_gain_hz", "min_gain_db",
@@ -170,15 +178,21 @@ def test_json_output_parses_with_per_rate_assessments(repo_root, capsys):
                 # analytic (BIBO): the L1 bound is never below the steady-state maximum
                 assert r["worst_case_peak_gain"] >= 10 ** (r["max_gain_db"] / 20) * (1 - 1e-9)
     unstable = by_name["unstable-hand-typed.yaml"]
-    assert unstable["accepted"] is False and len(unstable["errors"]) == 1
-    assert UNSTABLE_LINE.match(unstable["errors"][0])
+    assert unstable["accepted"] is False
+    # the same problem at each of the ten rates: one object per rate, one line on stderr
+    assert [p["rate"] for p in unstable["problems"]] == DEFAULT_RATES
+    assert {(p["line"], p["col"], p["severity"], p["message"]) for p in unstable["problems"]} == {
+        (11, 41, "error", unstable["problems"][0]["message"])}
+    first = unstable["problems"][0]
+    assert UNSTABLE_LINE.match(f"{first['path']}:{first['line']}:{first['col']}: error: {first['message']}")
     for r in unstable["rates"]:
         # analytic: 1 - 1.95 z^-1 + 1.01 z^-2 has complex roots of radius sqrt(1.01)
         assert math.isclose(r["max_pole_radius"], math.sqrt(1.01), rel_tol=1e-9)
         assert r["accepted"] is False and r["worst_case_peak_gain"] is None   # unbounded -> null in JSON
     assert by_name["boathouse-stems.yaml"]["sections"] == 7          # 4 included + 3 own
     assert by_name["marsh-cleanup.yaml"]["accepted"] is True
-    assert [line for line in err_lines(err)] == unstable["errors"]
+    (line,) = err_lines(err)
+    assert line == f"{first['path']}:11:41: error: {first['message']}"
 
 
 # --------------------------------------------------------------------------- bad input never shows a traceback
@@ -295,9 +309,11 @@ def test_json_lists_the_loosening_warning(repo_root, write_recipe, capsys):
     status, out, err = run_main(["check", "--json", "--rate", "48000", top], capsys)
     assert status == 0                                # a cut stays below the house file's 1 dB
     (entry,) = json.loads(out)["recipes"]
-    assert entry["errors"] == [] and entry["warnings"] == [
+    assert entry["problems"] == [{
+        "path": str(top), "line": 6, "col": 16, "severity": "warning", "rate": None,   # found loading: no rate
+        "message": f"guard.max_gain_db 24 is looser than 1 set in {house_at}; the stricter value applies"}]
+    assert err_lines(err) == [
         f"{top}:6:16: warning: guard.max_gain_db 24 is looser than 1 set in {house_at}; the stricter value applies"]
-    assert err_lines(err) == entry["warnings"]
 
 
 def test_output_conflict_with_an_include_is_rejected_by_check(repo_root, write_recipe, capsys):
