@@ -20,7 +20,7 @@ import threading
 
 __all__ = ["stop_rendering", "rendering_stopped", "allow_rendering", "stop_point", "on_sigint",
            "ctrl_c_stops_rendering", "from_ctrl_c", "STOP_SIGNALS", "stopped_by", "stop_signals_like_ctrl_c",
-           "worker_signals", "worker_rendering"]
+           "worker_signals", "worker_rendering", "hold_stop_signals", "release_stop_signals"]
 
 _stop_requested = False
 _stopped_by: int | None = None          # the first signal other than SIGINT that asked for a stop
@@ -66,6 +66,24 @@ def stop_signals_like_ctrl_c():
     finally:
         for signum, handler in previous.items():
             signal.signal(signum, signal.SIG_DFL if handler is None else handler)
+
+
+def hold_stop_signals() -> dict:
+    """Ignore SIGINT and the stop signals from now on (main thread only): a command whose work is done
+    has nothing left to stop, and a late Ctrl-C must not become a traceback on the way out. Returns
+    the handlers to give back to :func:`release_stop_signals`."""
+    held = {}
+    if threading.current_thread() is threading.main_thread():
+        for signum in (signal.SIGINT,) + STOP_SIGNALS:
+            if _installable(signum):
+                held[signum] = signal.signal(signum, signal.SIG_IGN)
+    return held
+
+
+def release_stop_signals(held: dict) -> None:
+    """Give back the handlers :func:`hold_stop_signals` replaced (a signal that came meanwhile is gone)."""
+    for signum, handler in held.items():
+        signal.signal(signum, signal.SIG_DFL if handler is None else handler)
 
 
 def stop_rendering() -> None:

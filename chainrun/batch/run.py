@@ -16,6 +16,7 @@ from typing import Iterator
 
 from ..version import __version__
 from ..errors import BatchError
+from ..interrupt import ctrl_c_stops_rendering
 from ..recipe import Recipe
 from ..render import Policy
 from ..results import DELIVERED, FAILED, NOT_RENDERED, INTERRUPTED, OK, REJECTED, SKIPPED, FileResult
@@ -203,11 +204,17 @@ def claimed(recipe: Recipe | None, inputs: list[str], outdir: str, policy: Polic
         From :func:`~.plan.prepare` or :func:`~.outdir.claim_outdir`, before any audio is read.
     """
     prep = prepare(recipe, inputs, outdir, policy) if plan is None else prepare_plan(plan, outdir, policies)
-    lock, notes = claim_outdir(outdir)
+    # A Ctrl-C landing while the lock is taken or given back would leave the lock file behind: there it
+    # only sets the stop flag, and is raised once the lock is held, or gone (interrupt.ctrl_c_stops_rendering).
+    lock = None
     try:
+        with ctrl_c_stops_rendering():
+            lock, notes = claim_outdir(outdir)
         yield prep, notes
     finally:
-        lock.release()
+        if lock is not None:
+            with ctrl_c_stops_rendering():
+                lock.release()
 
 
 def run_batch(recipe: Recipe, inputs: list[str], outdir: str, *, workers: int = 1,

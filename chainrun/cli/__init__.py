@@ -17,7 +17,8 @@ from ..app import cores
 from ..errors import BatchError
 import signal
 
-from ..interrupt import from_ctrl_c as _from_ctrl_c, stop_signals_like_ctrl_c, stopped_by
+from ..interrupt import (from_ctrl_c as _from_ctrl_c, hold_stop_signals, release_stop_signals,
+                         stop_signals_like_ctrl_c, stopped_by)
 from ..recipe import RecipeError
 from .common import EXIT_NOT_OK, EXIT_USAGE, UsageError, _err, _positive, _rate
 
@@ -134,9 +135,21 @@ def main(argv: list[str] | None = None) -> int:
     if short:
         _err(short)
         return EXIT_USAGE
+    held: dict = {}
     with stop_signals_like_ctrl_c():        # SIGTERM, SIGHUP, SIGQUIT: stopped as by Ctrl-C
-        status = _command(args)
-        signum = stopped_by()
+        try:
+            status = _command(args)
+            held = hold_stop_signals()      # the work is done: a signal now has nothing left to stop
+            signum = stopped_by()
+        except KeyboardInterrupt:           # it came as the command returned, before the hold
+            held = held or hold_stop_signals()
+            _err("chainrun: interrupted as the command finished; everything it wrote is complete")
+            status, signum = EXIT_NOT_OK, stopped_by()
+    if argv is not None:        # called in-process with its arguments (tests, a library): give the handlers back
+        release_stop_signals(held)
+    # else this is the process's entry point (the console script, ``python -m chainrun``): the signals
+    # stay ignored through the interpreter's exit, which would otherwise set SIGINT to its default
+    # action, and a late Ctrl-C killed the finished process (exit -2 instead of its status)
     if signum is None:
         return status
     # Stopped by a signal other than Ctrl-C: say which, and exit as the shell reports a death by it.
