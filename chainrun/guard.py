@@ -33,13 +33,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .design import MIDSIDE, Chain
+from .design import MIDSIDE, Chain, design
 from .dsp import freqz_sos, minimize_bounded, point_response
 from .impulse import _impulse, _midside_l1
-from .recipe import Guard, Location, Recipe
+from .recipe import Guard, Location, Recipe, RecipeError
 from .section_types import raw_sections
+from .text import fault
 
-__all__ = ["Problem", "Assessment", "PathAssessment", "assess", "response_db", "check_raw_sections", "decay_60db"]
+__all__ = ["Problem", "Assessment", "PathAssessment", "assess", "response_db", "check_raw_sections", "decay_60db",
+           "design_fault", "design_and_assess"]
 
 GRID_POINTS = 4096          # log-spaced frequencies between LOWEST_HZ and Nyquist
 LOWEST_HZ = 1.0
@@ -351,3 +353,41 @@ def _assess_path(sos: np.ndarray, labels, rows, rate: int, guard: Guard, recipe:
             f"guard.max_decay_s {guard.max_decay_s:g} s ({labels[worst_row]} rings longest)",
             where_of_row(worst_row)))
     return PathAssessment(key, title, len(sos), r_max, decay, decay_exact, hi_db, hi_hz, lo_db, lo_hz, l1, l1_exact)
+
+
+def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
+    """A located, one-line RecipeError for a fault (not a RecipeError) raised designing or assessing at ``rate``.
+
+    The section that cannot be designed on its own is named; if each can, the recipe itself.
+    """
+    from .design import design_section
+
+    why = fault(exc)
+    for section in recipe.sections:
+        try:
+            design_section(section, rate)
+        except RecipeError:
+            continue
+        except Exception:
+            return RecipeError.at(section.locate("freq"), f"{section.title} cannot be designed at {rate} Hz "
+                                                          f"({why}); change its parameters, and please report it")
+    return RecipeError(recipe.path, 1, 1, f"the chain cannot be designed or assessed at {rate} Hz ({why}); "
+                                          "please report it")
+
+
+def design_and_assess(recipe: Recipe, rate: int) -> tuple[Chain, Assessment]:
+    """The recipe designed and assessed at ``rate`` (what ``check``, ``plot`` and a batch all need).
+
+    Raises
+    ------
+    RecipeError
+        For a recipe that cannot be used at ``rate``, and also, located by
+        :func:`design_fault`, for a fault (any other exception) in design or guard.
+    """
+    try:
+        chain = design(recipe, rate)
+        return chain, assess(chain, recipe.guard, recipe)
+    except RecipeError:
+        raise
+    except Exception as exc:        # a fault, not a recipe error: still one located line
+        raise design_fault(recipe, rate, exc) from None

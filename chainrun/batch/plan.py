@@ -9,16 +9,16 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from ..audio.source import Source
-from ..design import Chain, design
+from ..design import Chain
 from ..errors import AudioError, BatchError
-from ..guard import Assessment, assess, check_raw_sections
+from ..guard import Assessment, check_raw_sections, design_and_assess, design_fault
 from ..recipe import Recipe, RecipeError
 from ..recipe.channels import channels_misfit
 from ..audio.reader import NoAudioFrames, cut_short, probe
 from ..render import Policy
 from ..render.policy import float_clip_warning
 from ..results import FAILED, REJECTED, SKIPPED, FileResult
-from ..text import fault, reason as _reason
+from ..text import reason as _reason
 from .discover import Job, discover, discover_plan
 
 __all__ = ["RateDesign", "Prepared", "prepare", "probe_job", "design_fault", "design_and_assess", "design_rates",
@@ -37,26 +37,6 @@ class RateDesign:
     @property
     def usable(self) -> bool:
         return self.error is None and self.assessment is not None and self.assessment.accepted
-
-
-def design_fault(recipe: Recipe, rate: int, exc: BaseException) -> RecipeError:
-    """A located, one-line RecipeError for a fault (not a RecipeError) raised designing or assessing at ``rate``.
-
-    The section that cannot be designed on its own is named; if each can, the recipe itself.
-    """
-    from ..design import design_section
-
-    why = fault(exc)
-    for section in recipe.sections:
-        try:
-            design_section(section, rate)
-        except RecipeError:
-            continue
-        except Exception:
-            return RecipeError.at(section.locate("freq"), f"{section.title} cannot be designed at {rate} Hz "
-                                                          f"({why}); change its parameters, and please report it")
-    return RecipeError(recipe.path, 1, 1, f"the chain cannot be designed or assessed at {rate} Hz ({why}); "
-                                          "please report it")
 
 
 def probe_job(job: Job) -> Source | FileResult:
@@ -88,24 +68,6 @@ def undeclared_rate(recipe: Recipe, rate: int) -> str | None:
         return None
     return (f"this file's rate, {rate} Hz, is not among the rates the recipe declares "
             f"({', '.join(map(str, recipe.rates))} Hz)")
-
-
-def design_and_assess(recipe: Recipe, rate: int) -> tuple[Chain, Assessment]:
-    """The recipe designed and assessed at ``rate`` (what ``check``, ``plot`` and a batch all need).
-
-    Raises
-    ------
-    RecipeError
-        For a recipe that cannot be used at ``rate``, and also, located by
-        :func:`design_fault`, for a fault (any other exception) in design or guard.
-    """
-    try:
-        chain = design(recipe, rate)
-        return chain, assess(chain, recipe.guard, recipe)
-    except RecipeError:
-        raise
-    except Exception as fault:      # a fault, not a recipe error: still one located line
-        raise design_fault(recipe, rate, fault) from None
 
 
 def design_rates(recipe: Recipe, rates: set[int]) -> dict[int, RateDesign]:

@@ -13,7 +13,7 @@ import sys
 import traceback
 
 from ..version import __version__
-from ..app import cores
+from ..batch.cores import cores
 from ..errors import BatchError
 import signal
 

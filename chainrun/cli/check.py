@@ -7,7 +7,7 @@ import math
 import sys
 
 from ..version import __version__
-from ..app import DEFAULT_RATES, check
+from ..gate import DEFAULT_RATES, check
 from ..errors import problem_line
 from ..text import fmt_db, shown
 from .common import EXIT_NOT_OK, EXIT_OK, _err

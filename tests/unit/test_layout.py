@@ -24,7 +24,7 @@ FLOORS = {
     "chainrun.results": 7,
     "chainrun.render": 8,
     "chainrun.batch": 9,
-    "chainrun.report": 10,
+    "chainrun.report": 10, "chainrun.gate": 10,
     "chainrun.app": 11,
     "chainrun.cli": 12,
     "chainrun.__main__": 13, "chainrun": 13,

@@ -21,7 +21,7 @@ from scipy import signal
 
 import chainrun.results
 from chainrun import design, load
-from chainrun.batch import executors, plan
+from chainrun.batch import executors
 from chainrun.batch.discover import Job
 from chainrun.batch import run as batch_run
 from support import by_rel, report_of, temporaries
@@ -453,13 +453,14 @@ def test_a_file_rejected_at_its_rate_says_an_earlier_output_is_not_this_run_s(tm
 
 
 def test_runtime_guard_in_a_batch(tmp_path, season, write_recipe, run_cli, monkeypatch):
-    real_assess = plan.assess
+    from chainrun import guard
+    real_assess = guard.assess
 
     def optimistic(chain, guard, recipe=None):
         a = real_assess(chain, guard, recipe)
         return dataclasses.replace(a, peak_gain=a.peak_gain * 0.05)     # a bound far too small
 
-    monkeypatch.setattr(plan, "assess", optimistic)             # in-process: --workers 1
+    monkeypatch.setattr(guard, "assess", optimistic)            # in-process: --workers 1
     out = tmp_path / "out"
     status, _, err = run_cli("run", write_recipe(GENTLE), season / "boathouse", "-o", out, "--workers", "1")
     assert status == 1
