@@ -20,7 +20,7 @@ import soundfile as sf
 from scipy import signal
 
 from chainrun import app, design, load
-from chainrun.batch import executors, plan
+from chainrun.batch import executors
 from chainrun.batch import run as batch_run
 from chainrun.recipe import MAX_INCLUDE_DEPTH, MAX_SECTIONS, RecipeError
 from chainrun.fsutil import TEMP_TAG
@@ -391,14 +391,15 @@ def test_default_workers_never_exceed_the_limit(tmp_path, run_cli, monkeypatch):
 def test_a_fault_designing_at_one_rate_is_a_located_line_not_an_internal_error(tmp_path, run_cli, monkeypatch):
     # design and guard are pure numerics; should one raise something other than RecipeError at some rate,
     # the batch names the section and the rate instead of failing with "internal error"
-    real = plan.design
+    from chainrun import guard          # design_and_assess lives in the guard and calls design there
+    real = guard.design
 
     def fragile(recipe, rate):
         if rate == 44100:
             raise OverflowError("math range error")
         return real(recipe, rate)
 
-    monkeypatch.setattr(plan, "design", fragile)
+    monkeypatch.setattr(guard, "design", fragile)
     import sys
 
     design_mod = sys.modules["chainrun.design"]      # (the package's name 'design' is the function)
