@@ -109,10 +109,13 @@ class OutdirLock:
                 os.unlink(self.path)
         except OSError:
             pass
+        # The descriptor is given up only once the name is gone: a release that a Ctrl-C cut short above
+        # can be called again and still removes the lock file.
+        fd, self.fd = self.fd, None
+        try:
+            fcntl.flock(fd, fcntl.LOCK_UN)
         finally:
-            fcntl.flock(self.fd, fcntl.LOCK_UN)
-            os.close(self.fd)
-            self.fd = None
+            os.close(fd)
 
     def __enter__(self) -> "OutdirLock":
         return self.acquire()

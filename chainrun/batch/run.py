@@ -213,8 +213,12 @@ def claimed(recipe: Recipe | None, inputs: list[str], outdir: str, policy: Polic
         yield prep, notes
     finally:
         if lock is not None:
-            with ctrl_c_stops_rendering():
-                lock.release()
+            try:
+                with ctrl_c_stops_rendering():
+                    lock.release()
+            except KeyboardInterrupt:       # landed as the flag was being set up: release, then go on stopping
+                lock.release()              # (a second release of a released lock does nothing)
+                raise
 
 
 def run_batch(recipe: Recipe, inputs: list[str], outdir: str, *, workers: int = 1,

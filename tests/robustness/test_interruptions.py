@@ -501,3 +501,26 @@ def test_a_ctrl_c_that_lands_as_the_command_returns_is_one_line_not_a_traceback(
     assert status == 1
     assert err.splitlines() == ["chainrun: interrupted as the command finished; everything it wrote is complete"]
     assert signal.getsignal(signal.SIGINT) is before          # handlers given back for a library caller
+
+
+def test_a_lock_release_cut_short_by_ctrl_c_can_be_called_again_and_removes_the_lock(tmp_path, monkeypatch):
+    # Seen under load (the report kill point with two workers): a Ctrl-C inside the release left
+    # .chainrun.lock behind, because the descriptor was given up before the name was removed and a
+    # second release did nothing. chainrun's own promise (RELIABILITY.md): the lock is released.
+    from chainrun.batch import outdir as outdir_mod
+
+    lock = outdir_mod.OutdirLock(str(tmp_path)).acquire()
+    real_unlink = outdir_mod.os.unlink
+    cuts = iter([True])
+
+    def unlink(path, *a, **k):
+        if next(cuts, False):
+            raise KeyboardInterrupt           # the signal lands just before the name is removed
+        return real_unlink(path, *a, **k)
+
+    monkeypatch.setattr(outdir_mod.os, "unlink", unlink)
+    with pytest.raises(KeyboardInterrupt):
+        lock.release()
+    lock.release()                            # what the batch's clean-up does next
+    assert not (tmp_path / LOCK_NAME).exists()
+    assert lock.fd is None
