@@ -69,16 +69,28 @@ def _load_kernel():
     return kernel
 
 
-def _get_kernel():
-    global _kernel
-    if _kernel is None:
+def _once(name: str, load):
+    """The module-level ``name``, set by ``load()`` on first use (under the lock, as the render pipeline's
+    threads may ask first at the same time); False for good when it cannot serve."""
+    value = globals()[name]
+    if value is None:
         with _lock:
-            if _kernel is None:
+            value = globals()[name]
+            if value is None:
                 try:
-                    _kernel = _load_kernel()
+                    value = load()
                 except (ImportError, AttributeError, OSError, TypeError, ValueError):
-                    _kernel = False
-    return _kernel
+                    value = False
+                globals()[name] = value
+    return value
+
+
+def _get_kernel():
+    return _once("_kernel", lambda: _load_kernel())
+
+
+def _get_linear():
+    return _once("_linear", lambda: _load_linear())
 
 
 def kernel_loaded() -> bool:
@@ -137,22 +149,16 @@ def lfilter(b: np.ndarray, a: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tupl
     scipy.signal.lfilter hands exactly these arguments to its compiled loop on this path, so the
     output is the same to the last bit (tests/unit/test_dsp.py); the public function is the fallback.
     """
-    global _linear, _public_lfilter
-    if _linear is None:
-        with _lock:
-            if _linear is None:
-                try:
-                    _linear = _load_linear()
-                except (ImportError, AttributeError, OSError, TypeError, ValueError):
-                    _linear = False
+    global _public_lfilter
     b, a = np.atleast_1d(b), np.atleast_1d(a)
     if compiled.linear is not None:                # the optional compiled loop (compiled.py), when built
         done = compiled.linear(b, a, x, zi)
         if done is not None:
             return done
-    if _linear and len(a) > 1 and b.ndim == a.ndim == 1 and all(
+    linear = _get_linear()
+    if linear and len(a) > 1 and b.ndim == a.ndim == 1 and all(
             np.asarray(v).dtype == np.float64 for v in (b, a, x, zi)):
-        return _linear(b, a, np.asarray(x), -1, np.asarray(zi))
+        return linear(b, a, np.asarray(x), -1, np.asarray(zi))
     if _public_lfilter is None:
         from scipy.signal import lfilter as public        # the fallback: scipy.signal's public function
         _public_lfilter = public
@@ -173,4 +179,4 @@ def sos2tf(sos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 def preload_kernels() -> None:
     """Load both compiled loops now (before worker processes fork, so that they share them)."""
     _get_kernel()
-    lfilter(np.array([1.0, 0.0]), np.array([1.0, -0.5]), np.zeros((1, 1)), np.zeros((1, 1)))
+    _get_linear()
