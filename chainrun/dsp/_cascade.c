@@ -142,24 +142,19 @@ get_doubles(PyObject *obj, Py_buffer *view, int writable, int ndim, const char *
 static PyObject *
 cascade(PyObject *self, PyObject *args)
 {
-    PyObject *o_sos, *o_x, *o_zi, *o_y;
-    Py_buffer sos, x, zi, y;
+    PyObject *o_sos, *o_x, *o_zi, *o_y, *result = NULL;
+    Py_buffer sos = {0}, x = {0}, zi = {0}, y = {0};      /* releasing an unfilled view does nothing */
     if (!PyArg_ParseTuple(args, "OOOO:cascade", &o_sos, &o_x, &o_zi, &o_y))
         return NULL;
-    if (get_doubles(o_sos, &sos, 0, 2, "sos") < 0)
-        return NULL;
-    if (get_doubles(o_x, &x, 0, 2, "x") < 0)
-        goto fail_sos;
-    if (get_doubles(o_zi, &zi, 1, 3, "zi") < 0)
-        goto fail_x;
-    if (get_doubles(o_y, &y, 1, 2, "y") < 0)
-        goto fail_zi;
+    if (get_doubles(o_sos, &sos, 0, 2, "sos") < 0 || get_doubles(o_x, &x, 0, 2, "x") < 0
+        || get_doubles(o_zi, &zi, 1, 3, "zi") < 0 || get_doubles(o_y, &y, 1, 2, "y") < 0)
+        goto done;
 
     Py_ssize_t n_sections = sos.shape[0], n_signals = x.shape[0], n_samples = x.shape[1];
     if (sos.shape[1] != 6 || zi.shape[0] != n_signals || zi.shape[1] != n_sections || zi.shape[2] != 2
         || y.shape[0] != n_signals || y.shape[1] != n_samples) {
         PyErr_SetString(PyExc_ValueError, "cascade: shapes must be sos (S, 6), x and y (C, N), zi (C, S, 2)");
-        goto fail_y;
+        goto done;
     }
     {
         const double *c = sos.buf, *xs = x.buf;
@@ -179,21 +174,14 @@ cascade(PyObject *self, PyObject *args)
                         zs + i * 2 * n_sections);
         Py_END_ALLOW_THREADS
     }
+    result = Py_None;
+    Py_INCREF(result);
+done:
     PyBuffer_Release(&y);
     PyBuffer_Release(&zi);
     PyBuffer_Release(&x);
     PyBuffer_Release(&sos);
-    Py_RETURN_NONE;
-
-fail_y:
-    PyBuffer_Release(&y);
-fail_zi:
-    PyBuffer_Release(&zi);
-fail_x:
-    PyBuffer_Release(&x);
-fail_sos:
-    PyBuffer_Release(&sos);
-    return NULL;
+    return result;
 }
 
 /* The longest linear filter: the loudness meter's K-weighting is of order 4. */
@@ -244,27 +232,21 @@ linear_pair(const double *b, const double *a, Py_ssize_t order, const double *x0
 static PyObject *
 linear(PyObject *self, PyObject *args)
 {
-    PyObject *o_b, *o_a, *o_x, *o_zi, *o_y;
-    Py_buffer b, a, x, zi, y;
+    PyObject *o_b, *o_a, *o_x, *o_zi, *o_y, *result = NULL;
+    Py_buffer b = {0}, a = {0}, x = {0}, zi = {0}, y = {0};   /* releasing an unfilled view does nothing */
     if (!PyArg_ParseTuple(args, "OOOOO:linear", &o_b, &o_a, &o_x, &o_zi, &o_y))
         return NULL;
-    if (get_doubles(o_b, &b, 0, 1, "b") < 0)
-        return NULL;
-    if (get_doubles(o_a, &a, 0, 1, "a") < 0)
-        goto fail_b;
-    if (get_doubles(o_x, &x, 0, 2, "x") < 0)
-        goto fail_a;
-    if (get_doubles(o_zi, &zi, 1, 2, "zi") < 0)
-        goto fail_x;
-    if (get_doubles(o_y, &y, 1, 2, "y") < 0)
-        goto fail_zi;
+    if (get_doubles(o_b, &b, 0, 1, "b") < 0 || get_doubles(o_a, &a, 0, 1, "a") < 0
+        || get_doubles(o_x, &x, 0, 2, "x") < 0 || get_doubles(o_zi, &zi, 1, 2, "zi") < 0
+        || get_doubles(o_y, &y, 1, 2, "y") < 0)
+        goto done;
 
     Py_ssize_t order = b.shape[0] - 1, n_signals = x.shape[0], n_samples = x.shape[1];
     if (order < 1 || order > LINEAR_MAX_ORDER || a.shape[0] != order + 1 || ((const double *)a.buf)[0] != 1.0
         || zi.shape[0] != n_signals || zi.shape[1] != order || y.shape[0] != n_signals || y.shape[1] != n_samples) {
         PyErr_SetString(PyExc_ValueError, "linear: b and a (K+1,) with a[0] == 1 and 1 <= K <= 8, "
                                           "x and y (C, N), zi (C, K)");
-        goto fail_y;
+        goto done;
     }
     {
         const double *bs = b.buf, *as = a.buf, *xs = x.buf;
@@ -281,24 +263,15 @@ linear(PyObject *self, PyObject *args)
             linear_one(bs, as, order, xs + i * n_samples, ys + i * n_samples, n_samples, zs + i * order);
         Py_END_ALLOW_THREADS
     }
+    result = Py_None;
+    Py_INCREF(result);
+done:
     PyBuffer_Release(&y);
     PyBuffer_Release(&zi);
     PyBuffer_Release(&x);
     PyBuffer_Release(&a);
     PyBuffer_Release(&b);
-    Py_RETURN_NONE;
-
-fail_y:
-    PyBuffer_Release(&y);
-fail_zi:
-    PyBuffer_Release(&zi);
-fail_x:
-    PyBuffer_Release(&x);
-fail_a:
-    PyBuffer_Release(&a);
-fail_b:
-    PyBuffer_Release(&b);
-    return NULL;
+    return result;
 }
 
 static PyMethodDef methods[] = {
