@@ -57,12 +57,17 @@ def report_paths(b: BatchResult | None, json_path: str | None = None) -> dict[st
     """
     if not json_path:
         base = os.path.join(b.outdir, DEFAULT_NAME)
-    elif json_path.endswith(("/", os.sep)) or os.path.isdir(json_path):
+    elif _default_names(json_path):
         base = os.path.join(json_path, DEFAULT_NAME)
     else:
         stem, ext = os.path.splitext(json_path)
         base = stem if ext.lower() in REPORT_SUFFIXES else json_path
     return {kind: f"{base}.{kind}" for kind in _KINDS}
+
+
+def _default_names(json_path: str | None) -> bool:
+    """Whether the reports take the default names: no ``--report``, or a folder given to it."""
+    return not json_path or json_path.endswith(("/", os.sep)) or os.path.isdir(json_path)
 
 
 def dated_base(paths: dict[str, str]) -> str:
@@ -235,7 +240,7 @@ def write_reports(b: BatchResult, json_path: str | None = None, command: list[st
         On Ctrl-C (or a stop signal) while the reports were drawn or written.
     """
     paths = report_paths(b, json_path)
-    keep_earlier = not json_path or json_path.endswith(("/", os.sep)) or os.path.isdir(json_path)
+    keep_earlier = _default_names(json_path)
     try:
         document = batch_dict(b, command)
         texts = {"json": json.dumps(document, indent=2, allow_nan=False) + "\n", "csv": csv_text(document),
