@@ -122,6 +122,12 @@ def _loudness_of(recipe) -> tuple[float | None, str]:
     return (None if target is None else float(target)), str(get("link", None) or "file")
 
 
+# The true-peak meter computes in single precision: a reading may be off by up to 1.15e-5 of it (1e-4 dB;
+# chainrun.meters.truepeak), so the scaled output, metered again, may read up to twice that above the
+# scaled input's reading. A true peak scaled to its ceiling is held this far under it.
+TRUE_PEAK_MARGIN_DB = 0.001
+
+
 def _over(peak: float, true_peak: float | None, policy: Policy) -> float:
     """dB by which the output passes the ceiling(s); <= 0 when it fits."""
     return max(_db(peak) - policy.ceiling_dbfs, _true_peak_over(true_peak, policy))
@@ -250,10 +256,13 @@ class Scale(OnOver):
         policy, res, filt, quantise = self.policy, run.res, run.filt, run.quantise
         # Pass 1: filter to a float64 scratch file, metering the unscaled output.
         pre = filter_to_scratch(run, self.policy)
-        over = _over(filt.out_peak, _max_tp(pre.result()), policy)
+        tp_over = _true_peak_over(_max_tp(pre.result()), policy)
+        over = max(_db(filt.out_peak) - policy.ceiling_dbfs, tp_over)
         # Fit the ceiling and also the codes: for integer output +1.0 (0 dBFS) has no code, so
-        # scaling to a 0 dBFS ceiling alone would leave the positive crests hard-clipped.
-        fit = max(over, _db(filt.out_peak) - _db(quantise.limit))
+        # scaling to a 0 dBFS ceiling alone would leave the positive crests hard-clipped. A true
+        # peak is fitted TRUE_PEAK_MARGIN_DB under its ceiling: metering the scaled output rounds anew.
+        fit = max(over, _db(filt.out_peak) - _db(quantise.limit),
+                  tp_over + TRUE_PEAK_MARGIN_DB if tp_over > 0 else -math.inf)
         gain = 10.0 ** (-fit / 20.0) if fit > 0 else 1.0
         res.gain_db = _db(gain) if fit > 0 else 0.0
         res.over_db = over if over > 0 else None
