@@ -36,6 +36,7 @@
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
 #include <float.h>
+#include <math.h>
 
 #if defined(__FAST_MATH__)
 #error "chainrun's cascade kernel must not be built with -ffast-math (it would change the output bytes)"
@@ -54,7 +55,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 2
+#define CASCADE_ABI 3
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -274,6 +275,198 @@ done:
     return result;
 }
 
+/* The true-peak meter's two loops around its matrix products (chainrun/dsp/fold.py says what they
+ * compute; chainrun/meters/truepeak.py why).  float32 additions, subtractions and magnitudes, each
+ * rounded once, as numpy's: the results are numpy's bits. */
+
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+
+static int
+get_floats(PyObject *obj, Py_buffer *view, int writable, const char *name)
+{
+    int flags = PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | (writable ? PyBUF_WRITABLE : 0);
+    if (PyObject_GetBuffer(obj, view, flags) < 0)
+        return -1;
+    if (view->itemsize != 4 || view->format == NULL
+        || !(strcmp(view->format, "f") == 0 || strcmp(view->format, "=f") == 0)) {   /* native order */
+        PyErr_Format(PyExc_TypeError, "fold: %s must be a C-contiguous float32 array", name);
+        PyBuffer_Release(view);
+        return -1;
+    }
+    return 0;
+}
+
+static PyObject *
+fold_rows(PyObject *self, PyObject *args)
+{
+    PyObject *o_z, *o_s, *o_d, *result = NULL;
+    Py_ssize_t start, step;
+    Py_buffer z = {0}, s = {0}, d = {0};
+    if (!PyArg_ParseTuple(args, "OnnOO:fold_rows", &o_z, &start, &step, &o_s, &o_d))
+        return NULL;
+    if (get_floats(o_z, &z, 0, "z") < 0 || get_floats(o_s, &s, 1, "s") < 0 || get_floats(o_d, &d, 1, "d") < 0)
+        goto done;
+    if (z.ndim != 1 || s.ndim != 2 || d.ndim != 2 || s.shape[0] != d.shape[0] || s.shape[1] != d.shape[1] + 1
+        || step < 1) {
+        PyErr_SetString(PyExc_ValueError, "fold_rows: z (N,), s (R, H+1), d (R, H), step >= 1");
+        goto done;
+    }
+    {
+        Py_ssize_t rows = d.shape[0], half = d.shape[1], span = 2 * half + 1;
+        if (rows > 0 && (start < 0 || start + (rows - 1) * step + span > z.shape[0])) {
+            PyErr_SetString(PyExc_ValueError, "fold_rows: the rows run past the samples");
+            goto done;
+        }
+        const float *zs = z.buf;
+        float *ss = s.buf, *ds = d.buf;
+        Py_BEGIN_ALLOW_THREADS
+        for (Py_ssize_t r = 0; r < rows; r++) {
+            const float *x = zs + start + r * step, *back = x + span - 1;
+            float *sr = ss + r * (half + 1), *dr = ds + r * half;
+            Py_ssize_t i = 0;
+#if defined(__SSE2__)
+            for (; i + 4 <= half; i += 4) {             /* x[i..i+3] with x[span-1-i..span-4-i] */
+                __m128 a = _mm_loadu_ps(x + i), b = _mm_loadu_ps(back - i - 3);
+                b = _mm_shuffle_ps(b, b, _MM_SHUFFLE(0, 1, 2, 3));
+                _mm_storeu_ps(sr + i, _mm_add_ps(a, b));
+                _mm_storeu_ps(dr + i, _mm_sub_ps(a, b));
+            }
+#endif
+            for (; i < half; i++) {
+                float a = x[i], b = back[-i];
+                sr[i] = a + b;
+                dr[i] = a - b;
+            }
+            sr[half] = x[half];
+        }
+        Py_END_ALLOW_THREADS
+    }
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyBuffer_Release(&d);
+    PyBuffer_Release(&s);
+    PyBuffer_Release(&z);
+    return result;
+}
+
+static PyObject *
+absmax_sum(PyObject *self, PyObject *args)
+{
+    PyObject *o_a, *o_b, *result = NULL;
+    Py_buffer a = {0}, b = {0};
+    if (!PyArg_ParseTuple(args, "OO:absmax_sum", &o_a, &o_b))
+        return NULL;
+    if (get_floats(o_a, &a, 0, "a") < 0 || get_floats(o_b, &b, 0, "b") < 0)
+        goto done;
+    if (a.len != b.len) {
+        PyErr_SetString(PyExc_ValueError, "absmax_sum: a and b must hold as many values");
+        goto done;
+    }
+    {
+        const float *as = a.buf, *bs = b.buf;
+        Py_ssize_t n = a.len / 4, i = 0;
+        float best = 0.0f;
+        int nan = 0;
+        Py_BEGIN_ALLOW_THREADS
+#if defined(__SSE2__)
+        /* max is exact and its order does not matter; a NaN is noted apart (numpy's max returns it) */
+        const __m128 sign = _mm_castsi128_ps(_mm_set1_epi32(0x7fffffff));
+        __m128 m0 = _mm_setzero_ps(), m1 = _mm_setzero_ps(), bad = _mm_setzero_ps();
+        for (; i + 8 <= n; i += 8) {
+            __m128 t0 = _mm_add_ps(_mm_and_ps(_mm_loadu_ps(as + i), sign), _mm_and_ps(_mm_loadu_ps(bs + i), sign));
+            __m128 t1 = _mm_add_ps(_mm_and_ps(_mm_loadu_ps(as + i + 4), sign),
+                                   _mm_and_ps(_mm_loadu_ps(bs + i + 4), sign));
+            bad = _mm_or_ps(bad, _mm_or_ps(_mm_cmpunord_ps(t0, t0), _mm_cmpunord_ps(t1, t1)));
+            m0 = _mm_max_ps(m0, t0);
+            m1 = _mm_max_ps(m1, t1);
+        }
+        float lanes[4];
+        _mm_storeu_ps(lanes, _mm_max_ps(m0, m1));
+        for (int k = 0; k < 4; k++)
+            if (lanes[k] > best)
+                best = lanes[k];
+        nan = _mm_movemask_ps(bad) != 0;
+#endif
+        for (; i < n; i++) {
+            float t = fabsf(as[i]) + fabsf(bs[i]);
+            if (t != t)
+                nan = 1;
+            else if (t > best)
+                best = t;
+        }
+        Py_END_ALLOW_THREADS
+        result = PyFloat_FromDouble(nan ? (double)NAN : (double)best);
+    }
+done:
+    PyBuffer_Release(&b);
+    PyBuffer_Release(&a);
+    return result;
+}
+
+static PyObject *
+absmax_runs(PyObject *self, PyObject *args)
+{
+    PyObject *o_z, *o_out, *result = NULL;
+    Py_ssize_t run;
+    Py_buffer z = {0}, out = {0};
+    if (!PyArg_ParseTuple(args, "OnO:absmax_runs", &o_z, &run, &o_out))
+        return NULL;
+    if (get_floats(o_z, &z, 0, "z") < 0)
+        goto done;
+    if (PyObject_GetBuffer(o_out, &out, PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | PyBUF_WRITABLE) < 0)
+        goto done;
+    if (out.itemsize != 8 || out.format == NULL || !(strcmp(out.format, "d") == 0 || strcmp(out.format, "=d") == 0)
+        || run < 1 || out.len / 8 != (z.len / 4 + run - 1) / run) {
+        PyErr_SetString(PyExc_ValueError, "absmax_runs: z float32 (N,), run >= 1, out float64 (ceil(N/run),)");
+        goto done;
+    }
+    {
+        const float *zs = z.buf;
+        double *os = out.buf;
+        Py_ssize_t n = z.len / 4;
+        Py_BEGIN_ALLOW_THREADS
+        for (Py_ssize_t r0 = 0, k = 0; r0 < n; r0 += run, k++) {
+            Py_ssize_t r1 = r0 + run < n ? r0 + run : n, i = r0;
+            float best = 0.0f;
+            int nan = 0;
+#if defined(__SSE2__)
+            const __m128 sign = _mm_castsi128_ps(_mm_set1_epi32(0x7fffffff));
+            __m128 m0 = _mm_setzero_ps(), m1 = _mm_setzero_ps(), bad = _mm_setzero_ps();
+            for (; i + 8 <= r1; i += 8) {
+                __m128 t0 = _mm_and_ps(_mm_loadu_ps(zs + i), sign), t1 = _mm_and_ps(_mm_loadu_ps(zs + i + 4), sign);
+                bad = _mm_or_ps(bad, _mm_or_ps(_mm_cmpunord_ps(t0, t0), _mm_cmpunord_ps(t1, t1)));
+                m0 = _mm_max_ps(m0, t0);
+                m1 = _mm_max_ps(m1, t1);
+            }
+            float lanes[4];
+            _mm_storeu_ps(lanes, _mm_max_ps(m0, m1));
+            for (int q = 0; q < 4; q++)
+                if (lanes[q] > best)
+                    best = lanes[q];
+            nan = _mm_movemask_ps(bad) != 0;
+#endif
+            for (; i < r1; i++) {
+                float t = fabsf(zs[i]);
+                if (t != t)
+                    nan = 1;
+                else if (t > best)
+                    best = t;
+            }
+            os[k] = nan ? (double)NAN : (double)best;
+        }
+        Py_END_ALLOW_THREADS
+    }
+    result = Py_None;
+    Py_INCREF(result);
+done:
+    PyBuffer_Release(&out);
+    PyBuffer_Release(&z);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"cascade", cascade, METH_VARARGS,
      "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
@@ -281,6 +474,13 @@ static PyMethodDef methods[] = {
     {"linear", linear, METH_VARARGS,
      "linear(b, a, x, zi, y): filter x (C, N) through b/a (K+1,), a[0] == 1, into y, updating zi (C, K)\n"
      "in place; C-contiguous float64 buffers; the same arithmetic as scipy.signal.lfilter."},
+    {"fold_rows", fold_rows, METH_VARARGS,
+     "fold_rows(z, start, step, s, d): sums and differences of mirrored samples of the rows of z\n"
+     "(float32) that start at start + r*step; see chainrun/dsp/fold.py."},
+    {"absmax_sum", absmax_sum, METH_VARARGS,
+     "absmax_sum(a, b) -> max(|a| + |b|) over two float32 buffers of one length (NaN if any is NaN)."},
+    {"absmax_runs", absmax_runs, METH_VARARGS,
+     "absmax_runs(z, run, out): out[k] = max |z| over z[k*run : (k+1)*run] (float32 in, float64 out)."},
     {NULL, NULL, 0, NULL},
 };
 

@@ -1,5 +1,8 @@
 """The optional compiled biquad cascade: the same bytes as scipy.signal.sosfilt, in less CPU.
 
+``fold_rows``, ``absmax_sum`` and ``absmax_runs`` are the true-peak meter's loops around its matrix products
+(chainrun/dsp/fold.py), or None.
+
 ``linear`` is the same for ``scipy.signal.lfilter``'s loop (the loudness meter's K-weighting),
 with the call ``linear(b, a, x, zi) -> (y, zf)``, or None.
 
@@ -21,10 +24,10 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear"]
+__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "fold_rows", "absmax_sum", "absmax_runs"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 2                                   # CASCADE_ABI in _cascade.c
+_ABI = 3                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -90,3 +93,7 @@ def _linear(b, a, x, zi):
 
 cascade = _cascade if AVAILABLE else None
 linear = _linear if AVAILABLE else None
+# The true-peak meter's loops (chainrun/dsp/fold.py holds their numpy forms and says what they do).
+fold_rows = _module.fold_rows if AVAILABLE else None
+absmax_sum = _module.absmax_sum if AVAILABLE else None
+absmax_runs = _module.absmax_runs if AVAILABLE else None
