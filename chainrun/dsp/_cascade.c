@@ -37,6 +37,8 @@
 #include <Python.h>
 #include <float.h>
 #include <math.h>
+#include <stdint.h>
+#include <string.h>
 
 #if defined(__FAST_MATH__)
 #error "chainrun's cascade kernel must not be built with -ffast-math (it would change the output bytes)"
@@ -279,9 +281,71 @@ done:
  * compute; chainrun/meters/truepeak.py why).  float32 additions, subtractions and magnitudes, each
  * rounded once, as numpy's: the results are numpy's bits. */
 
-#if defined(__SSE2__)
-#include <emmintrin.h>
+/* These loops hold only additions, subtractions, magnitudes and comparisons: vectorised, each lane
+ * does exactly the scalar operation, and nothing is reordered but the max, whose order does not
+ * matter.  GCC builds them for AVX-512, AVX2 and the baseline and picks one when the module loads. */
+#if defined(__GNUC__) && !defined(__clang__) && defined(__x86_64__) && defined(__linux__)
+#define TP_LOOP __attribute__((target_clones("avx512f", "avx2", "default"), optimize("O3")))
+#else
+#define TP_LOOP
 #endif
+
+/* The max of floats >= +0 (or NaN, with the sign cleared) is the max of their bit patterns as
+ * unsigned integers, a reduction every vector unit has; a pattern above +inf's is a NaN. */
+#define TP_INF_BITS 0x7f800000u
+
+static double
+tp_from_bits(uint32_t m)
+{
+    float f;
+    if (m > TP_INF_BITS)
+        return (double)NAN;
+    memcpy(&f, &m, sizeof f);
+    return (double)f;
+}
+
+TP_LOOP static void
+fold_loop(const float *zs, Py_ssize_t start, Py_ssize_t step, Py_ssize_t rows, Py_ssize_t half,
+          float *restrict ss, float *restrict ds)
+{
+    Py_ssize_t span = 2 * half + 1;
+    for (Py_ssize_t r = 0; r < rows; r++) {
+        const float *x = zs + start + r * step, *back = x + span - 1;
+        float *restrict sr = ss + r * (half + 1), *restrict dr = ds + r * half;
+        for (Py_ssize_t i = 0; i < half; i++) {
+            float a = x[i], b = back[-i];
+            sr[i] = a + b;
+            dr[i] = a - b;
+        }
+        sr[half] = x[half];
+    }
+}
+
+TP_LOOP static uint32_t
+absmax_sum_loop(const float *restrict as, const float *restrict bs, Py_ssize_t n)
+{
+    uint32_t m = 0;
+    for (Py_ssize_t i = 0; i < n; i++) {
+        float t = fabsf(as[i]) + fabsf(bs[i]);
+        uint32_t u;
+        memcpy(&u, &t, sizeof u);
+        m = u > m ? u : m;
+    }
+    return m;
+}
+
+TP_LOOP static uint32_t
+absmax_loop(const float *restrict zs, Py_ssize_t n)
+{
+    uint32_t m = 0;
+    for (Py_ssize_t i = 0; i < n; i++) {
+        float t = fabsf(zs[i]);
+        uint32_t u;
+        memcpy(&u, &t, sizeof u);
+        m = u > m ? u : m;
+    }
+    return m;
+}
 
 static int
 get_floats(PyObject *obj, Py_buffer *view, int writable, const char *name)
@@ -322,25 +386,7 @@ fold_rows(PyObject *self, PyObject *args)
         const float *zs = z.buf;
         float *ss = s.buf, *ds = d.buf;
         Py_BEGIN_ALLOW_THREADS
-        for (Py_ssize_t r = 0; r < rows; r++) {
-            const float *x = zs + start + r * step, *back = x + span - 1;
-            float *sr = ss + r * (half + 1), *dr = ds + r * half;
-            Py_ssize_t i = 0;
-#if defined(__SSE2__)
-            for (; i + 4 <= half; i += 4) {             /* x[i..i+3] with x[span-1-i..span-4-i] */
-                __m128 a = _mm_loadu_ps(x + i), b = _mm_loadu_ps(back - i - 3);
-                b = _mm_shuffle_ps(b, b, _MM_SHUFFLE(0, 1, 2, 3));
-                _mm_storeu_ps(sr + i, _mm_add_ps(a, b));
-                _mm_storeu_ps(dr + i, _mm_sub_ps(a, b));
-            }
-#endif
-            for (; i < half; i++) {
-                float a = x[i], b = back[-i];
-                sr[i] = a + b;
-                dr[i] = a - b;
-            }
-            sr[half] = x[half];
-        }
+        fold_loop(zs, start, step, rows, half, ss, ds);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
@@ -367,38 +413,11 @@ absmax_sum(PyObject *self, PyObject *args)
     }
     {
         const float *as = a.buf, *bs = b.buf;
-        Py_ssize_t n = a.len / 4, i = 0;
-        float best = 0.0f;
-        int nan = 0;
+        uint32_t m;
         Py_BEGIN_ALLOW_THREADS
-#if defined(__SSE2__)
-        /* max is exact and its order does not matter; a NaN is noted apart (numpy's max returns it) */
-        const __m128 sign = _mm_castsi128_ps(_mm_set1_epi32(0x7fffffff));
-        __m128 m0 = _mm_setzero_ps(), m1 = _mm_setzero_ps(), bad = _mm_setzero_ps();
-        for (; i + 8 <= n; i += 8) {
-            __m128 t0 = _mm_add_ps(_mm_and_ps(_mm_loadu_ps(as + i), sign), _mm_and_ps(_mm_loadu_ps(bs + i), sign));
-            __m128 t1 = _mm_add_ps(_mm_and_ps(_mm_loadu_ps(as + i + 4), sign),
-                                   _mm_and_ps(_mm_loadu_ps(bs + i + 4), sign));
-            bad = _mm_or_ps(bad, _mm_or_ps(_mm_cmpunord_ps(t0, t0), _mm_cmpunord_ps(t1, t1)));
-            m0 = _mm_max_ps(m0, t0);
-            m1 = _mm_max_ps(m1, t1);
-        }
-        float lanes[4];
-        _mm_storeu_ps(lanes, _mm_max_ps(m0, m1));
-        for (int k = 0; k < 4; k++)
-            if (lanes[k] > best)
-                best = lanes[k];
-        nan = _mm_movemask_ps(bad) != 0;
-#endif
-        for (; i < n; i++) {
-            float t = fabsf(as[i]) + fabsf(bs[i]);
-            if (t != t)
-                nan = 1;
-            else if (t > best)
-                best = t;
-        }
+        m = absmax_sum_loop(as, bs, a.len / 4);
         Py_END_ALLOW_THREADS
-        result = PyFloat_FromDouble(nan ? (double)NAN : (double)best);
+        result = PyFloat_FromDouble(tp_from_bits(m));
     }
 done:
     PyBuffer_Release(&b);
@@ -428,35 +447,8 @@ absmax_runs(PyObject *self, PyObject *args)
         double *os = out.buf;
         Py_ssize_t n = z.len / 4;
         Py_BEGIN_ALLOW_THREADS
-        for (Py_ssize_t r0 = 0, k = 0; r0 < n; r0 += run, k++) {
-            Py_ssize_t r1 = r0 + run < n ? r0 + run : n, i = r0;
-            float best = 0.0f;
-            int nan = 0;
-#if defined(__SSE2__)
-            const __m128 sign = _mm_castsi128_ps(_mm_set1_epi32(0x7fffffff));
-            __m128 m0 = _mm_setzero_ps(), m1 = _mm_setzero_ps(), bad = _mm_setzero_ps();
-            for (; i + 8 <= r1; i += 8) {
-                __m128 t0 = _mm_and_ps(_mm_loadu_ps(zs + i), sign), t1 = _mm_and_ps(_mm_loadu_ps(zs + i + 4), sign);
-                bad = _mm_or_ps(bad, _mm_or_ps(_mm_cmpunord_ps(t0, t0), _mm_cmpunord_ps(t1, t1)));
-                m0 = _mm_max_ps(m0, t0);
-                m1 = _mm_max_ps(m1, t1);
-            }
-            float lanes[4];
-            _mm_storeu_ps(lanes, _mm_max_ps(m0, m1));
-            for (int q = 0; q < 4; q++)
-                if (lanes[q] > best)
-                    best = lanes[q];
-            nan = _mm_movemask_ps(bad) != 0;
-#endif
-            for (; i < r1; i++) {
-                float t = fabsf(zs[i]);
-                if (t != t)
-                    nan = 1;
-                else if (t > best)
-                    best = t;
-            }
-            os[k] = nan ? (double)NAN : (double)best;
-        }
+        for (Py_ssize_t r0 = 0, k = 0; r0 < n; r0 += run, k++)
+            os[k] = tp_from_bits(absmax_loop(zs + r0, (r0 + run < n ? r0 + run : n) - r0));
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
