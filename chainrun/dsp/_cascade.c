@@ -23,7 +23,8 @@
  *
  * A second function, linear(b, a, x, zi, y), is the loop of scipy.signal.lfilter for a
  * denominator with a[0] == 1 (the loudness meter's K-weighting, both stages as one filter of order
- * K = len(b) - 1 <= 8): per sample, in scipy's order (its _lfilter.cc, transposed direct form II),
+ * K = len(b) - 1 <= 8; optionally writing each output's square, y*y, which the meter needs next): per
+ * sample, in scipy's order (its _lfilter.cc, transposed direct form II),
  *
  *     y      = z[0] + b[0]*x
  *     z[k]   = (z[k+1] + x*b[k+1]) - y*a[k+1]      for k = 0 .. K-2
@@ -57,7 +58,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 3
+#define CASCADE_ABI 4
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -192,7 +193,7 @@ done:
 
 static void
 linear_one(const double *b, const double *a, Py_ssize_t order, const double *x, double *y,
-           Py_ssize_t n_samples, double *z)
+           Py_ssize_t n_samples, double *z, int square)
 {
     for (Py_ssize_t n = 0; n < n_samples; n++) {
         double xn = x[n];
@@ -200,14 +201,14 @@ linear_one(const double *b, const double *a, Py_ssize_t order, const double *x, 
         for (Py_ssize_t k = 0; k < order - 1; k++)
             z[k] = z[k + 1] + xn * b[k + 1] - yn * a[k + 1];
         z[order - 1] = xn * b[order] - yn * a[order];
-        y[n] = yn;
+        y[n] = square ? yn * yn : yn;
     }
 }
 
 #if CASCADE_HAVE_PAIR
 static void
 linear_pair(const double *b, const double *a, Py_ssize_t order, const double *x0, const double *x1,
-            double *y0, double *y1, Py_ssize_t n_samples, double *zi0, double *zi1)
+            double *y0, double *y1, Py_ssize_t n_samples, double *zi0, double *zi1, int square)
 {
     pair_t bb[LINEAR_MAX_ORDER + 1], aa[LINEAR_MAX_ORDER + 1], z[LINEAR_MAX_ORDER];
     for (Py_ssize_t k = 0; k <= order; k++) {
@@ -222,6 +223,8 @@ linear_pair(const double *b, const double *a, Py_ssize_t order, const double *x0
         for (Py_ssize_t k = 0; k < order - 1; k++)
             z[k] = z[k + 1] + xn * bb[k + 1] - yn * aa[k + 1];
         z[order - 1] = xn * bb[order] - yn * aa[order];
+        if (square)
+            yn = yn * yn;
         y0[n] = yn[0];
         y1[n] = yn[1];
     }
@@ -237,7 +240,8 @@ linear(PyObject *self, PyObject *args)
 {
     PyObject *o_b, *o_a, *o_x, *o_zi, *o_y, *result = NULL;
     Py_buffer b = {0}, a = {0}, x = {0}, zi = {0}, y = {0};   /* releasing an unfilled view does nothing */
-    if (!PyArg_ParseTuple(args, "OOOOO:linear", &o_b, &o_a, &o_x, &o_zi, &o_y))
+    int square = 0;
+    if (!PyArg_ParseTuple(args, "OOOOO|p:linear", &o_b, &o_a, &o_x, &o_zi, &o_y, &square))
         return NULL;
     if (get_doubles(o_b, &b, 0, 1, "b") < 0 || get_doubles(o_a, &a, 0, 1, "a") < 0
         || get_doubles(o_x, &x, 0, 2, "x") < 0 || get_doubles(o_zi, &zi, 1, 2, "zi") < 0
@@ -260,10 +264,10 @@ linear(PyObject *self, PyObject *args)
         for (; i + 1 < n_signals; i += 2)
             linear_pair(bs, as, order, xs + i * n_samples, xs + (i + 1) * n_samples,
                         ys + i * n_samples, ys + (i + 1) * n_samples, n_samples,
-                        zs + i * order, zs + (i + 1) * order);
+                        zs + i * order, zs + (i + 1) * order, square);
 #endif
         for (; i < n_signals; i++)
-            linear_one(bs, as, order, xs + i * n_samples, ys + i * n_samples, n_samples, zs + i * order);
+            linear_one(bs, as, order, xs + i * n_samples, ys + i * n_samples, n_samples, zs + i * order, square);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
@@ -464,8 +468,9 @@ static PyMethodDef methods[] = {
      "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
      "C-contiguous float64 buffers; the same arithmetic as scipy.signal.sosfilt."},
     {"linear", linear, METH_VARARGS,
-     "linear(b, a, x, zi, y): filter x (C, N) through b/a (K+1,), a[0] == 1, into y, updating zi (C, K)\n"
-     "in place; C-contiguous float64 buffers; the same arithmetic as scipy.signal.lfilter."},
+     "linear(b, a, x, zi, y[, square]): filter x (C, N) through b/a (K+1,), a[0] == 1, into y, updating\n"
+     "zi (C, K) in place; C-contiguous float64 buffers; the same arithmetic as scipy.signal.lfilter.\n"
+     "With square true, y holds the squares of the output (each y*y, rounded once)."},
     {"fold_rows", fold_rows, METH_VARARGS,
      "fold_rows(z, start, step, s, d): sums and differences of mirrored samples of the rows of z\n"
      "(float32) that start at start + r*step; see chainrun/dsp/fold.py."},

@@ -27,7 +27,7 @@ import numpy as np
 __all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "fold_rows", "absmax_sum", "absmax_runs"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 3                                   # CASCADE_ABI in _cascade.c
+_ABI = 4                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -73,11 +73,11 @@ def _cascade(sos, x, axis=-1, zi=None):
     return y, state.transpose(1, 0, 2)
 
 
-def _linear(b, a, x, zi):
+def _linear(b, a, x, zi, square=False):
     """lfilter's loop for chainrun's blocks: ``(y, zf)`` as ``scipy.signal.lfilter(b, a, x, axis=-1, zi=zi)``
     for float64 ``x`` (channels, frames), ``zi`` (channels, K), ``b`` and ``a`` (K+1,) with
     ``a[0] == 1`` and K <= 8; None for anything else (the caller then uses scipy's loop). Inputs are
-    not modified."""
+    not modified. With ``square``, ``y`` holds ``numpy.square`` of the output instead (the same bits)."""
     b, a, x, zi = np.asarray(b), np.asarray(a), np.asarray(x), np.asarray(zi)
     order = len(b) - 1
     if (b.ndim != 1 or a.shape != b.shape or not 1 <= order <= 8 or a[0] != 1.0 or x.ndim != 2
@@ -87,7 +87,7 @@ def _linear(b, a, x, zi):
     x = np.ascontiguousarray(x, dtype=np.float64)
     state = np.array(zi, dtype=np.float64, order="C")          # a copy: zi is never modified
     y = np.empty_like(x)
-    _module.linear(b, a, x, state, y)
+    _module.linear(b, a, x, state, y, bool(square))
     return y, state
 
 

@@ -21,7 +21,7 @@ import numpy as np
 
 from . import compiled
 
-__all__ = ["sosfilt", "kernel_loaded", "lfilter", "sos2tf", "preload_kernels"]
+__all__ = ["sosfilt", "kernel_loaded", "lfilter", "lfilter_squares", "sos2tf", "preload_kernels"]
 
 _NAME = "scipy.signal._sosfilt"   # the module of the sosfilt kernel
 _kernel = None          # the compiled kernel, once loaded; False when it cannot serve
@@ -163,6 +163,17 @@ def lfilter(b: np.ndarray, a: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tupl
         from scipy.signal import lfilter as public        # the fallback: scipy.signal's public function
         _public_lfilter = public
     return _public_lfilter(b, a, x, axis=-1, zi=zi)
+
+
+def lfilter_squares(b: np.ndarray, a: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(numpy.square(y), zf)`` for ``(y, zf) = lfilter(b, a, x, zi)``: the optional compiled loop
+    squares each output as it goes (the same bits, one pass less over the block)."""
+    if compiled.linear is not None:
+        done = compiled.linear(np.atleast_1d(b), np.atleast_1d(a), x, zi, square=True)
+        if done is not None:
+            return done
+    y, zf = lfilter(b, a, x, zi)
+    return np.square(y, out=y), zf
 
 
 def sos2tf(sos: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -72,7 +72,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..dsp.kernel import lfilter, sos2tf
+from ..dsp.kernel import lfilter_squares, sos2tf
 from .gating import _GATE_POWER, _REL_GATE_LRA, _Histogram, _lufs, integrated_of
 from .weighting import channel_weights, k_weighting_sos
 
@@ -86,6 +86,7 @@ _CLAMP = 1.0e100
 _FLUSH_PERIOD = 65536      # frames between flushes of subnormal filter state (as the renderer's filter)
 _DENORMAL_FLOOR = 1e-200
 _SLACK = 2.0 * np.finfo(np.float64).eps   # per-term rounding bound of a sum, with a factor 2 to spare
+_BATCH = 1000             # sub-blocks (10 s) gathered before their windows are evaluated together
 
 
 @dataclass(frozen=True)
@@ -159,11 +160,13 @@ class LoudnessMeter:
     -----
     Cost: per block one lfilter (scipy's compiled loop, through chainrun.dsp) (both K-weighting stages as
     one 4th-order filter) over the weighted channels (LFE and other 0-weight
-    channels are not filtered), a square in place, a ``numpy.add.reduceat``
+    channels are not filtered) that squares each output as it goes (the
+    compiled loop; numpy squares in place without it), a ``numpy.add.reduceat``
     over the 10 ms sub-blocks (no copy of the block: only the sub-block that
     straddles two blocks is joined) and window sums over at most 300 sub-block
-    energies per gating window and per window that may hold a maximum; no
-    per-sample Python code.  The filter is about three quarters of the cost
+    energies per gating window and per window that may hold a maximum, for
+    1000 sub-blocks (10 s) at a time and before any reading; no per-sample
+    Python code.  The filter is about three quarters of the cost
     (``benchmarks/loudness_cost.py``; figures in ``benchmarks/RESULTS.md``):
     its recurrence is a chain of dependent operations per channel, about
     4 ns a sample whatever the library routine (``sosfilt``, two biquads,
@@ -194,7 +197,7 @@ class LoudnessMeter:
         self._channels = int(channels)
         self._weights, self._note = channel_weights(self._channels, channel_mask)
         self._used = [c for c, g in enumerate(self._weights) if g != 0.0]
-        self._lfilter = lfilter               # scipy's compiled loop without scipy.signal's import (dsp)
+        self._lfilter = lfilter_squares       # K-weighted squares: a compiled loop without scipy.signal (dsp)
         # Both stages as one 4th-order filter: one pass over the samples instead of two (the
         # readings move by less than 1e-9 LU from the cascade's, at 192 kHz; 1e-12 LU at 48 kHz).
         self._b, self._a = sos2tf(self._sos)
@@ -202,6 +205,8 @@ class LoudnessMeter:
         self._carry = np.zeros((len(self._used), 0))     # filtered samples of the incomplete sub-block
         self._subs = 0                                    # complete sub-blocks so far
         self._tail = np.zeros(0)                          # energies of the last <= 299 sub-blocks
+        self._pending: list[np.ndarray] = []              # sub-block energies whose windows wait
+        self._pending_n = 0                               # (for a batch, or for the next reading)
         self._frames = 0
         self._nonfinite = 0
         self._max_m = 0.0                                 # largest momentary / short-term mean square
@@ -256,13 +261,13 @@ class LoudnessMeter:
         if not self._used:
             sq = np.zeros((1, n))
         else:
-            y = self._k_weight(x, frame0)
-            sq = np.square(y, out=y)
+            sq = self._k_weight(x, frame0)
         self._subblocks(sq)
 
     def _k_weight(self, x: np.ndarray, frame0: int) -> np.ndarray:
-        """The K-weighted block, the state carried; at every multiple of _FLUSH_PERIOD frames from the
-        start (the same points whatever the blocks) state values below _DENORMAL_FLOOR become zero.
+        """The squares of the K-weighted block, the state carried; at every multiple of _FLUSH_PERIOD
+        frames from the start (the same points whatever the blocks) state values below
+        _DENORMAL_FLOOR become zero.
 
         After loud content, silence leaves the state decaying into the subnormal range, where
         arithmetic is many times slower (measured: a file of digital silence took 4.8 times as
@@ -314,7 +319,21 @@ class LoudnessMeter:
         if self._used:
             self._carry = sq[:, edges[-1]:].copy()
         self._subs = k1
-        self._windows(k0, energy)
+        self._pending.append(energy)
+        self._pending_n += energy.shape[0]
+        if self._pending_n >= _BATCH:
+            self._settle()
+
+    def _settle(self) -> None:
+        """Evaluate the windows of the pending sub-blocks (before anything reads the figures).
+
+        The windows are the same whenever they are evaluated: each window's mean square is
+        summed from the same energies, and the histograms take the gating blocks in stream order.
+        """
+        if self._pending_n:
+            energy = self._pending[0] if len(self._pending) == 1 else np.concatenate(self._pending)
+            self._pending, self._pending_n = [], 0
+            self._windows(self._subs - energy.shape[0], energy)
 
     def _windows(self, k0: int, energy: np.ndarray) -> None:
         """Momentary and short-term windows ending in the new sub-blocks ``k0 ..``.
@@ -364,10 +383,12 @@ class LoudnessMeter:
         :func:`integrated_of` combines several streams' histograms into the
         integrated loudness of all their gating blocks together.
         """
+        self._settle()
         return self._blocks.count.copy(), self._blocks.power.copy()
 
     def reading(self) -> LoudnessReading:
         """The figures so far; the meter can go on being updated."""
+        self._settle()
         integrated = integrated_of([(self._blocks.count, self._blocks.power)])
         lra = None
         kept = self._short.kept(_REL_GATE_LRA)

@@ -170,11 +170,15 @@ def test_the_filter_path_gives_the_same_bytes_with_and_without_the_kernel(monkey
 def _lfilter_both(b, a, blocks, channels):
     """The compiled loop and scipy.signal.lfilter (reference library) over the same blocks, each with
     its own carried state; every block's output and state compared byte for byte."""
-    zk = zs = np.zeros((channels, len(a) - 1))
+    zk = zs = zq = np.zeros((channels, len(a) - 1))
     for x in blocks:
         yk, zk = kernel.linear(b, a, x, zk)
         ys, zs = signal.lfilter(b, a, x, axis=-1, zi=zs)
         assert yk.tobytes() == ys.tobytes() and zk.tobytes() == np.ascontiguousarray(zs).tobytes()
+        # the squares the loudness meter asks for: numpy.square of lfilter's output (reference libraries)
+        yq, zq = kernel.linear(b, a, x, zq, square=True)
+        with np.errstate(over="ignore"):                # huge outputs square to inf in both
+            assert yq.tobytes() == np.square(ys).tobytes() and zq.tobytes() == zk.tobytes()
 
 
 @built

@@ -481,3 +481,30 @@ def test_state_left_by_loud_content_is_flushed_in_silence(block):
     whole = LoudnessMeter(48000, 2)
     whole.update(x)
     assert whole.reading() == m.reading()
+
+
+def test_a_reading_in_mid_stream_sees_every_window_so_far_and_the_meter_goes_on():
+    # The meter evaluates its windows 10 s at a time (chainrun's own batching, no published source):
+    # a reading taken with windows still waiting must equal a meter fed only that prefix, bit for
+    # bit, and the stream must go on to the reading of a meter fed everything in one block.
+    # The analytic anchor: stereo 1 kHz steps, EBU Tech 3341 style (levels chosen here).
+    x = stereo_steps([(-30, 6.0), (-20, 7.3), (-26, 9.0), (-18, 4.0)])
+    cut = int(12.3 * 48000)
+    a = LoudnessMeter(48000, 2)
+    for i in range(0, cut, 65536):
+        a.update(x[:, i:min(i + 65536, cut)])
+    prefix = LoudnessMeter(48000, 2)
+    prefix.update(x[:, :cut])
+    for got, want in zip(a.gating_histogram(), prefix.gating_histogram()):   # before any reading
+        assert got.tobytes() == want.tobytes()
+    assert a.reading() == prefix.reading()
+    for i in range(cut, x.shape[1], 4097):
+        a.update(x[:, i:i + 4097])
+    whole = LoudnessMeter(48000, 2)
+    whole.update(x)
+    assert a.reading() == whole.reading()
+    for got, want in zip(a.gating_histogram(), whole.gating_histogram()):
+        assert got.tobytes() == want.tobytes()
+    # analytic (BS.1770-4 gating on the step levels, model_integrated): the reading is the model's
+    assert abs(whole.reading().integrated_lufs - model_integrated([(-30, 6.0), (-20, 7.3), (-26, 9.0),
+                                                                    (-18, 4.0)])) < 1e-4
