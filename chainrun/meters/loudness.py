@@ -369,8 +369,9 @@ class LoudnessMeter:
                 starts, lens, gating = starts[pick], lens[pick], gating[pick]
             # a C-contiguous copy, one row per window: numpy then sums each row on its own (pairwise),
             # the same way whatever the number of rows; a strided sliding view may be summed
-            # column by column instead, which made the result depend on the block split
-            rows = e[(starts - first)[:, np.newaxis] + np.arange(span)]
+            # column by column instead, which made the result depend on the block split (the view
+            # serves only to take the copy: one row copied at a time, cheaper than an index per value)
+            rows = np.ndarray((e.shape[0] - span + 1, span), e.dtype, e, 0, e.strides * 2)[starts - first]
             z = rows.sum(axis=1) / lens
             if z.size:
                 setattr(self, attr, max(getattr(self, attr), float(z.max())))
