@@ -33,6 +33,17 @@ How the figures are built
    ``round((n-1)*p)`` of the sorted values, as in Tech 3342's reference code;
    from memory, verify).
 
+Windows in batches
+------------------
+The windows ending in new sub-blocks are evaluated 1000 sub-blocks (10 s) at
+a time, and for those still pending before anything reads the figures
+(``reading``, ``gating_histogram``), which saves numpy's per-call cost on each
+block and changes no figure: a window's mean square is the row sum of the same
+energies in any batch, the histograms take the same values in stream order,
+and a window is left out of the maxima only when a rounding bound that holds
+for a batch of any length shows it cannot be one (``_windows``).  At most a
+batch plus one block's sub-block energies wait.
+
 Memory: histograms instead of lists
 -----------------------------------
 Gating blocks and short-term windows above -70 LUFS go into histograms of
@@ -260,7 +271,8 @@ class LoudnessMeter:
         x = np.ascontiguousarray(x, dtype=np.float64)
         if extremes is None:
             extremes = (block.max(axis=1), block.min(axis=1))     # NaN shows up in both
-        hi, lo = float(np.max(extremes[0])), float(np.min(extremes[1]))
+        hi = float(np.maximum.reduce(extremes[0], axis=None))     # np.max / np.min without their wrapper
+        lo = float(np.minimum.reduce(extremes[1], axis=None))
         if not (math.isfinite(hi) and math.isfinite(lo)):
             ok = np.isfinite(x)
             self._nonfinite += int(np.count_nonzero(~np.isfinite(block)))
