@@ -33,6 +33,17 @@ How the figures are built
    ``round((n-1)*p)`` of the sorted values, as in Tech 3342's reference code;
    from memory, verify).
 
+Windows in batches
+------------------
+The windows ending in new sub-blocks are evaluated 1000 sub-blocks (10 s) at
+a time, and for those still pending before anything reads the figures
+(``reading``, ``gating_histogram``), which saves numpy's per-call cost on each
+block and changes no figure: a window's mean square is the row sum of the same
+energies in any batch, the histograms take the same values in stream order,
+and a window is left out of the maxima only when a rounding bound that holds
+for a batch of any length shows it cannot be one (``_windows``).  At most a
+batch plus one block's sub-block energies wait.
+
 Memory: histograms instead of lists
 -----------------------------------
 Gating blocks and short-term windows above -70 LUFS go into histograms of
@@ -213,10 +224,21 @@ class LoudnessMeter:
         self._max_s = 0.0
         self._blocks = _Histogram()                       # gating blocks (integrated loudness)
         self._short = _Histogram()                        # short-term windows every 100 ms (LRA)
+        self._grid = np.zeros(0, dtype=np.int64)          # _edge of 0, 1, ... (see _edges)
 
     def _edge(self, k: np.ndarray | int):
         """Absolute sample index where sub-block ``k`` starts."""
         return k * self._rate // _SUB_PER_S
+
+    def _edges(self, k: int, n: int, shift: int = 0) -> np.ndarray:
+        """``_edge`` of sub-blocks ``k .. k+n-1``, plus ``shift``: from a table of the edges of a few
+        seconds' sub-blocks, as ``_edge(100 j + r) = j * rate + _edge(r)`` exactly."""
+        j, r = divmod(k, _SUB_PER_S)
+        if r + n > self._grid.shape[0]:
+            if r + n > 4 * _BATCH:                        # a long block: no table so long
+                return self._edge(np.arange(k, k + n, dtype=np.int64)) + shift
+            self._grid = self._edge(np.arange(4 * _BATCH, dtype=np.int64))
+        return self._grid[r:r + n] + (j * self._rate + shift)
 
     def update(self, block: np.ndarray, extremes: tuple[np.ndarray, np.ndarray] | None = None) -> None:
         """Meter one block.
@@ -249,7 +271,8 @@ class LoudnessMeter:
         x = np.ascontiguousarray(x, dtype=np.float64)
         if extremes is None:
             extremes = (block.max(axis=1), block.min(axis=1))     # NaN shows up in both
-        hi, lo = float(np.max(extremes[0])), float(np.min(extremes[1]))
+        hi = float(np.maximum.reduce(extremes[0], axis=None))     # np.max / np.min without their wrapper
+        lo = float(np.minimum.reduce(extremes[1], axis=None))
         if not (math.isfinite(hi) and math.isfinite(lo)):
             ok = np.isfinite(x)
             self._nonfinite += int(np.count_nonzero(~np.isfinite(block)))
@@ -305,7 +328,7 @@ class LoudnessMeter:
             if self._used:
                 self._carry = np.concatenate([self._carry, sq], axis=1) if held else sq.copy()
             return
-        edges = self._edge(np.arange(k0, k1 + 1, dtype=np.int64)) - (start + held)   # in sq; edges[0] <= 0
+        edges = self._edges(k0, k1 - k0 + 1, -(start + held))    # in sq; edges[0] <= 0
         if held:
             head = np.concatenate([self._carry, sq[:, :edges[1]]], axis=1)
             first = np.add.reduceat(head, [0], axis=1)
@@ -313,9 +336,12 @@ class LoudnessMeter:
                     if k1 - k0 > 1 else first)
         else:
             sums = np.add.reduceat(sq[:, :edges[-1]], edges[:-1], axis=1)
-        energy = np.zeros(k1 - k0)
-        for row, c in enumerate(self._used):                      # channel order: a fixed sum
-            energy += self._weights[c] * sums[row]
+        energy = None               # channel order: a fixed sum (1.0 * s and 0.0 + s are s, s >= +0)
+        for row, c in enumerate(self._used):
+            term = sums[row] if self._weights[c] == 1.0 else self._weights[c] * sums[row]
+            energy = term if energy is None else energy + term
+        if energy is None:
+            energy = np.zeros(k1 - k0)
         if self._used:
             self._carry = sq[:, edges[-1]:].copy()
         self._subs = k1
@@ -348,29 +374,29 @@ class LoudnessMeter:
         first = k0 - self._tail.shape[0]                          # sub-block of e[0]
         e = np.concatenate([self._tail, energy])
         k1 = first + e.shape[0]
-        running = None
+        running, edges = None, self._edges(first, e.shape[0] + 1)
         for span, hist, attr in ((_MOMENTARY, self._blocks, "_max_m"), (_SHORT, self._short, "_max_s")):
-            s0 = max(k0 - span + 1, 0)                              # first new window's start
-            if k1 - span < s0:
+            o, n = max(k0 - span + 1, 0) - first, k1 - span + 1 - max(k0 - span + 1, 0)   # windows in e
+            if n <= 0:
                 continue
-            starts = np.arange(s0, k1 - span + 1, dtype=np.int64)
-            lens = self._edge(starts + span) - self._edge(starts)
-            gating = starts % _STEP == 0
-            if starts.size > _STEP:
+            off = np.arange(o, o + n, dtype=np.int64)                # each new window's start in e
+            lens = edges[o + span:o + span + n] - edges[o:o + n]
+            gating = off % _STEP == (-first) % _STEP
+            if n > _STEP:
                 if running is None:
                     running = np.concatenate([[0.0], np.cumsum(e)])
-                off = starts - first
-                guess = (running[off + span] - running[off]) / lens
+                guess = (running[o + span:o + span + n] - running[o:o + n]) / lens
                 # energies are >= 0: a running sum is off by at most (its length) * eps * its total,
                 # and a row's own sum by at most (its length) * eps * that total as well
                 slack = (2 * e.shape[0] + span + 4) * _SLACK * running[-1] / lens
                 floor = max(float((guess - slack).max()), getattr(self, attr))
                 pick = gating | (guess + slack >= floor)
-                starts, lens, gating = starts[pick], lens[pick], gating[pick]
+                off, lens, gating = off[pick], lens[pick], gating[pick]
             # a C-contiguous copy, one row per window: numpy then sums each row on its own (pairwise),
             # the same way whatever the number of rows; a strided sliding view may be summed
-            # column by column instead, which made the result depend on the block split
-            rows = e[(starts - first)[:, np.newaxis] + np.arange(span)]
+            # column by column instead, which made the result depend on the block split (the view
+            # serves only to take the copy: one row copied at a time, cheaper than an index per value)
+            rows = np.ndarray((e.shape[0] - span + 1, span), e.dtype, e, 0, e.strides * 2)[off]
             z = rows.sum(axis=1) / lens
             if z.size:
                 setattr(self, attr, max(getattr(self, attr), float(z.max())))

@@ -508,3 +508,58 @@ def test_a_reading_in_mid_stream_sees_every_window_so_far_and_the_meter_goes_on(
     # analytic (BS.1770-4 gating on the step levels, model_integrated): the reading is the model's
     assert abs(whole.reading().integrated_lufs - model_integrated([(-30, 6.0), (-20, 7.3), (-26, 9.0),
                                                                     (-18, 4.0)])) < 1e-4
+
+
+# --- windows evaluated in batches: long streams, several batches ----------------------------------
+
+LONG_SIGNAL = programme(40, 48000, 8)       # 4000 sub-blocks: several batches of deferred windows
+
+
+def _fed(x: np.ndarray, sizes) -> LoudnessMeter:
+    """A meter fed ``x`` in blocks of the given sizes, cycled until the end."""
+    m, pos, k = LoudnessMeter(48000, 2), 0, 0
+    while pos < x.shape[1]:
+        m.update(x[:, pos:pos + sizes[k % len(sizes)]])
+        pos += sizes[k % len(sizes)]
+        k += 1
+    return m
+
+
+def _figures(m: LoudnessMeter):
+    count, power = m.gating_histogram()
+    return m.reading(), count.tobytes(), power.tobytes()
+
+
+def test_long_stream_is_bit_identical_in_any_split_with_windows_deferred():
+    # common practice, no published source: a streaming meter must not depend on the block split. The
+    # meter evaluates its windows in batches of sub-blocks; each reading must take the pending ones too.
+    x = LONG_SIGNAL
+    whole = _figures(_fed(x, [x.shape[1]]))
+    assert whole[0].integrated_lufs is not None and whole[0].loudness_range_lu is not None
+    for sizes in ([65536], [997, 1, 3001, 480, 2207], [48000 * 13 + 5, 65536]):
+        # each of reading() and gating_histogram() is asked first once: each must take the pending windows
+        m, histogram_first = _fed(x, sizes), sizes[0] != 65536
+        if histogram_first:
+            count, power = m.gating_histogram()
+            assert (count.tobytes(), power.tobytes()) == whole[1:]
+        else:
+            assert m.reading() == whole[0]
+        assert _figures(m) == whole                              # exact equality of every float and count
+
+
+@pytest.mark.parametrize("cut", [48000 * 7 + 11, 48000 * 17 + 4000, 48000 * 31])
+def test_reading_mid_stream_takes_the_pending_windows_and_the_meter_goes_on(cut):
+    # common practice, no published source: a reading at any time is that of the stream so far, and
+    # taking it changes nothing that follows
+    x = LONG_SIGNAL
+    m = LoudnessMeter(48000, 2)
+    for i in range(0, cut, 65536):
+        m.update(x[:, i:min(i + 65536, cut)])
+    prefix = _figures(_fed(x[:, :cut], [cut]))                  # its histogram asked first, then its reading
+    assert prefix[0].integrated_lufs is not None
+    assert m.reading() == prefix[0]
+    count, power = m.gating_histogram()
+    assert (count.tobytes(), power.tobytes()) == prefix[1:]
+    for i in range(cut, x.shape[1], 65536):
+        m.update(x[:, i:i + 65536])
+    assert _figures(m) == _figures(_fed(x, [x.shape[1]]))
