@@ -8,11 +8,12 @@ towards the subnormal range, where arithmetic is many times slower unless it is 
 ratio to the noise: about 1 when the flush works.
 
 ``--filter-floor`` also times what bounds the meter from below: the K-weighting filter alone
-(``scipy.signal.lfilter``, as the meter calls it), and, when a C compiler (``cc``) is at hand, a
+through ``scipy.signal.lfilter`` (the meter itself runs chainrun's optional compiled loop, which
+squares as it filters, or scipy's loop without it), and, when a C compiler (``cc``) is at hand, a
 probe built in a temporary folder: the same 4th-order recurrence in lfilter's operation order
 (no FMA contraction) with the two channels interleaved in one loop, so that their chains of
 dependent operations overlap.  The probe is checked bit for bit against lfilter and is not part of
-chainrun; it shows what an optional compiled kernel would give.
+chainrun; it is what the compiled loop in chainrun/dsp/_cascade.c grew from.
 
     PYTHONPATH=$PWD python benchmarks/loudness_cost.py [--seconds 600] [--repeats 5] [--filter-floor]
 """
