@@ -24,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "fold_rows", "absmax_sum", "absmax_runs"]
+__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
 _ABI = 4                                   # CASCADE_ABI in _cascade.c
@@ -93,6 +93,9 @@ def _linear(b, a, x, zi, square=False):
 
 cascade = _cascade if AVAILABLE else None
 linear = _linear if AVAILABLE else None
+# The raw loop: cascade_rows(sos, x, state, y) with x, y (signals, N) and state (signals, sections, 2),
+# all C-contiguous float64, state updated in place (chainrun.dsp.kernel's sosfilt uses it first).
+cascade_rows = _module.cascade if AVAILABLE else None
 # The true-peak meter's loops (chainrun/dsp/fold.py holds their numpy forms and says what they do).
 fold_rows = _module.fold_rows if AVAILABLE else None
 absmax_sum = _module.absmax_sum if AVAILABLE else None
