@@ -18,7 +18,6 @@ older than an edit of the source) is refused, so a stale build never stands in f
 """
 from __future__ import annotations
 
-import hashlib
 import os
 from pathlib import Path
 
@@ -31,6 +30,12 @@ _ABI = 4                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
+def _digest(path: Path) -> str:
+    """SHA-256 of a file (hashlib is imported here: an installed package has no source beside it)."""
+    import hashlib
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
 def _load():
     """(the extension module or None, why)."""
     if os.environ.get(ENV_OFF, "").strip() not in ("", "0"):
@@ -41,7 +46,7 @@ def _load():
         return None, f"not built ({exc}); scipy.signal.sosfilt is used"
     if getattr(_cascade, "ABI", None) != _ABI:
         return None, "built from another version of chainrun; rebuild it (DEVELOPERS.md)"
-    if _SOURCE.is_file() and hashlib.sha256(_SOURCE.read_bytes()).hexdigest() != _cascade.SOURCE_DIGEST:
+    if _SOURCE.is_file() and _digest(_SOURCE) != _cascade.SOURCE_DIGEST:
         return None, (f"stale: {_cascade.__file__} was built from another _cascade.c; "
                       "rebuild with `python setup.py build_ext --inplace`")
     return _cascade, f"compiled ({_cascade.__file__})"
