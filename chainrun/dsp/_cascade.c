@@ -33,6 +33,9 @@
  * Speed comes from running two channels side by side in one 2-lane vector (GCC/Clang vector
  * extensions: SSE2 on x86-64, NEON on AArch64): lane-wise IEEE operations, so each lane's
  * result is exactly the scalar one.  An odd last channel runs the scalar loop.
+ *
+ * Three small float32 loops serve the true-peak meter around its matrix products (fold_rows,
+ * absmax_sum, absmax_runs; chainrun/dsp/fold.py holds their numpy forms, which give the same bits).
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>

@@ -1,4 +1,4 @@
-"""The two loops around the true-peak meter's matrix products: folding rows of samples, and max |y|.
+"""The loops around the true-peak meter's matrix products: folding rows of samples, max |y|, run peaks.
 
 The true-peak interpolator's prototype is symmetric, so the weights of a row of interpolated
 values come in pairs of columns, one the other read backwards.  Of a row of samples ``x`` (length
@@ -14,7 +14,7 @@ larger magnitude of the two is ``|a| + |b|``.  See chainrun.meters.truepeak.
 :func:`fold_rows` and :func:`absmax_sum` compute these (and :func:`absmax_runs` the peaks of runs of
 samples, for the meter's skip rule) with numpy, or with the optional compiled
 extension (chainrun/dsp/_cascade.c) when it is built: the same float32 additions, subtractions
-and magnitudes either way, so the results are the same bits (tests/unit/test_compiled.py).
+and magnitudes either way, so the results are the same bits (tests/unit/meters/test_truepeak_fold.py).
 """
 from __future__ import annotations
 
