@@ -4,8 +4,9 @@ EBU Tech 3341 (2016) Table 1 and EBU Tech 3342 (2016) Table 1 give, for each fil
 test set, the reading a conforming meter must show. The expected values below are those of the two
 tables as transcribed in public test tables (the published text is not at hand here; verify); the
 tolerances are the standards': +-0.1 LU for M, S and I, +-1 LU for the range, +0.2 / -0.4 dB for the
-true peak. Cases 20 to 23 (true peak, 0.0 dBTP) exist only as these files; cases 1 to 6 and 9 to 19
-are also synthesised from their descriptions in test_loudness.py, so they run everywhere.
+true peak. Tech 3341 cases 7 and 8 and Tech 3342 cases 5 and 6 (authentic programme) exist only as
+these files; the other cases are also synthesised from their descriptions in test_loudness.py, so
+they run everywhere.
 
 The files are the EBU's and are not part of this repository. To run these checks, download the test
 set from the EBU and name its folder:
