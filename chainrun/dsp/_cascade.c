@@ -440,12 +440,9 @@ absmax_runs(PyObject *self, PyObject *args)
     Py_buffer z = {0}, out = {0};
     if (!PyArg_ParseTuple(args, "OnO:absmax_runs", &o_z, &run, &o_out))
         return NULL;
-    if (get_floats(o_z, &z, 0, "z") < 0)
+    if (get_floats(o_z, &z, 0, "z") < 0 || get_doubles(o_out, &out, 1, 1, "out") < 0)
         goto done;
-    if (PyObject_GetBuffer(o_out, &out, PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | PyBUF_WRITABLE) < 0)
-        goto done;
-    if (out.itemsize != 8 || out.format == NULL || !(strcmp(out.format, "d") == 0 || strcmp(out.format, "=d") == 0)
-        || run < 1 || out.len / 8 != (z.len / 4 + run - 1) / run) {
+    if (run < 1 || out.len / 8 != (z.len / 4 + run - 1) / run) {
         PyErr_SetString(PyExc_ValueError, "absmax_runs: z float32 (N,), run >= 1, out float64 (ceil(N/run),)");
         goto done;
     }

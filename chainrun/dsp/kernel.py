@@ -106,12 +106,6 @@ def _public_sosfilt(sos, x, zi):
     return _public(sos, x, axis=-1, zi=zi)
 
 
-def _compiled_rows(sos: np.ndarray, y: np.ndarray, z: np.ndarray) -> None:
-    """scipy's kernel call, ``kernel(sos, y, z)`` filtering ``y`` in place, run by the compiled loop."""
-    x = y.copy()
-    compiled.cascade_rows(sos, x, z, y)
-
-
 def sosfilt(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """``scipy.signal.sosfilt(sos, x, axis=-1, zi=zi)`` for float64: ``(y, zf)``.
 
@@ -122,7 +116,7 @@ def sosfilt(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray,
     sos = np.asarray(sos)
     zi = np.asarray(zi)
     # the optional compiled loop (compiled.py) first: sosfilt's arithmetic, about half its time
-    kernel = _compiled_rows if compiled.cascade_rows is not None else _get_kernel()
+    kernel = compiled.cascade_rows if compiled.cascade_rows is not None else _get_kernel()
     if not kernel or x.dtype != np.float64 or sos.dtype != np.float64 or zi.dtype != np.float64:
         return _public_sosfilt(sos, x, zi)
     if sos.ndim != 2 or sos.shape[1] != 6 or not np.all(sos[:, 3] == 1):
@@ -131,11 +125,18 @@ def sosfilt(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray,
     if zi.shape != (n_sections,) + x.shape[:-1] + (2,):
         raise ValueError(f"zi must have shape {(n_sections,) + x.shape[:-1] + (2,)}, got {zi.shape}")
     # as scipy.signal.sosfilt does: the signals as C-ordered rows, the state as (signals, sections, 2),
-    # both copies that the kernel then overwrites
+    # a copy that the loop overwrites; scipy's kernel filters its own copy of the rows in place, the
+    # compiled loop reads the rows and writes a new array
     x_shape, zi_shape = x.shape, np.moveaxis(zi, 0, -2).shape
-    y = np.array(np.reshape(x, (-1, x.shape[-1])), np.float64, order="C")
+    rows = np.reshape(x, (-1, x.shape[-1]))
     z = np.array(np.reshape(np.moveaxis(zi, 0, -2), (-1, n_sections, 2)), np.float64, order="C")
-    kernel(np.ascontiguousarray(sos), y, z)
+    if kernel is compiled.cascade_rows:
+        rows = np.ascontiguousarray(rows)
+        y = np.empty_like(rows)
+        kernel(np.ascontiguousarray(sos), rows, z, y)
+    else:
+        y = np.array(rows, np.float64, order="C")
+        kernel(np.ascontiguousarray(sos), y, z)
     return y.reshape(x_shape), np.moveaxis(z.reshape(zi_shape), -2, 0)
 
 
