@@ -115,6 +115,23 @@ def test_kernel_gives_sosfilts_bytes_on_long_cascades_and_strided_blocks():
 
 
 @built
+@pytest.mark.parametrize("sections", range(1, 18))
+@pytest.mark.parametrize("channels", [1, 2, 3])
+def test_kernel_gives_sosfilts_bytes_for_every_shape_of_the_wavefront(sections, channels):
+    # _cascade.c runs up to 8 sections of two signals, or 16 of one, side by side in vector lanes,
+    # a sample entering section s one step after section s - 1, the first and last steps of each
+    # block lane by lane; past 16 sections the plain loops serve. Every count from 1 to 17 with one,
+    # two and three signals, and blocks shorter than the cascade (1, 2, ..., sections + 1 samples)
+    # between longer ones, so that a block ends before its first sample reaches the last section.
+    rng = np.random.default_rng(100 + sections)
+    sos = np.concatenate([random_cascade(rng) for _ in range(sections)])[:sections]
+    sizes = [1, 2, max(sections - 1, 1), sections, sections + 1, 517, 3, 1000]   # (sosfilt refuses 0)
+    blocks = [rng.standard_normal((channels, n)) for n in sizes]
+    blocks[5][:, ::5] = -0.0                                  # negative zeros keep their sign through it
+    run_both(sos, blocks, channels)
+
+
+@built
 def test_kernel_leaves_its_inputs_untouched():
     rng = np.random.default_rng(10)
     sos, x = random_cascade(rng), rng.standard_normal((2, 301))
