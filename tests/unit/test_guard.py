@@ -508,3 +508,38 @@ def test_l1_bound_from_a_short_run_is_finite_and_above_the_l1_norm(sos):
     assert a.peak_gain >= partial_l1(sos, 1 << 20)
     peak_h, _ = dense_max_abs_h(sos, 48000, n=1 << 13)
     assert a.peak_gain >= peak_h * (1 - 1e-9)      # analytic (BIBO): L1 >= max |H|, scipy.signal.freqz_sos
+
+
+def test_the_impulse_run_keeps_its_state_out_of_the_subnormal_range_and_its_figure_an_upper_bound():
+    # A fast first section (poles at radius 0.9) fed only the impulse sinks through the subnormal
+    # range (IEEE 754: below 2.2e-308) while a slow second one (radius 0.99999) keeps the run going;
+    # subnormal arithmetic is many times slower, so the run sets tiny state values to zero on the way
+    # and adds their own bound. The figure must not change, and must stay above the L1 norm even
+    # when far larger values are set to zero.
+    import chainrun.impulse as imp
+    sos = np.array([[1.0, 0.3, 0.2, 1.0, -2 * 0.9 * math.cos(0.5), 0.81],
+                    [0.01, 0.0, -0.01, 1.0, -2 * 0.99999 * math.cos(0.01), 0.99999 ** 2]])
+    real = imp.sosfilt
+
+    def run(floor):
+        """(figure, exact, how many stretches ended with a subnormal state value)"""
+        seen = []
+
+        def watch(s, x, zi):
+            y, zf = real(s, x, zi)
+            seen.append(bool(((np.abs(zf) < np.finfo(np.float64).tiny) & (zf != 0.0)).any()))
+            return y, zf
+
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setattr(imp, "sosfilt", watch)
+            mp.setattr(imp, "FLUSH_FLOOR", floor)
+            figure, exact = imp._impulse(sos, 48000, 0.99999)
+        return figure, exact, sum(seen)
+
+    figure, exact, subnormal = run(imp.FLUSH_FLOOR)
+    plain, _, subnormal_plain = run(0.0)                # nothing set to zero: the plain run
+    coarse, _, _ = run(1e-3)                            # values far from negligible set to zero
+    assert exact and figure == plain
+    assert subnormal_plain > 10 and subnormal <= 1      # at most the one stretch before a flush
+    # scipy.signal.sosfilt partial sum over 2**22 samples: a lower bound of the L1 norm
+    assert coarse >= partial_l1(sos, 1 << 22) and coarse >= plain * (1 - 1e-12)
