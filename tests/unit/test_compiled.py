@@ -199,6 +199,22 @@ def _lfilter_both(b, a, blocks, channels):
 
 
 @built
+@pytest.mark.parametrize("order", range(1, 9))
+def test_the_linear_loop_gives_lfilters_bytes_at_every_order_it_takes(order):
+    # _cascade.c has one loop per order from 1 to 8; each against scipy.signal.lfilter (reference
+    # library) with poles drawn inside the unit circle (stable), one to three channels, odd blocks
+    rng = np.random.default_rng(2000 + order)
+    poles = rng.uniform(0.2, 0.95, order) * np.exp(1j * rng.uniform(0, np.pi, order))
+    poles[order % 2:] = np.concatenate([poles[order % 2::2], poles[order % 2::2].conj()])[: order - order % 2]
+    poles[: order % 2] = poles[: order % 2].real
+    a = np.real(np.poly(poles))
+    b = rng.uniform(-1, 1, order + 1)
+    for channels in (1, 2, 3):
+        x = rng.standard_normal((channels, 3001))
+        _lfilter_both(b, a, np.split(x, [1, 2, 700, 2999], axis=1), channels)
+
+
+@built
 @pytest.mark.parametrize("seed", range(24))
 def test_the_linear_loop_gives_lfilters_bytes_for_cascades_folded_into_one_filter(seed):
     # a cascade of 1-4 cookbook biquads folded into one filter of order 2-8 (scipy.signal.sos2tf), as
