@@ -24,6 +24,7 @@ from ..audio.writer import meta_failure
 from ..version import __version__
 from ..errors import AudioError
 from ..fsutil import fsync_path as _fsync_path, remove_quietly as _remove_quietly, temp_path_for
+from ..heap import keep_freed_buffers
 from ..meters import MeterBank
 from ..results import CLIPPED, FAILED, OK, FileResult
 from ..text import db as _db
@@ -87,6 +88,7 @@ def render_file(src: Source, dst: str, sos: np.ndarray, bound: float, policy: Po
     res = FileResult(input=src.path, relpath=relpath or seed_key, status=FAILED, source=src)
     run = None
     blas = _one_blas_thread()
+    keep_freed_buffers()          # block-sized buffers reused from the heap, not fresh pages each block
     try:
         if os.path.exists(dst) and os.path.samefile(dst, src.path):
             raise AudioError("the output would overwrite the input; refused")
@@ -236,6 +238,7 @@ def scan_file(src: Source, block: int = DEFAULT_BLOCK, true_peak: bool = True, r
                       loudness=loudness, channel_mask=getattr(src, "channel_mask", None),
                       over_level=over_level(src.subtype))
     try:
+        keep_freed_buffers()
         reader = _Blocks(src, block, meter)
         try:
             with _one_blas_thread():

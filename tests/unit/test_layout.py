@@ -14,7 +14,7 @@ PKG = REPO / "chainrun"
 
 # Floors, lowest first. A package's floor covers all its modules.
 FLOORS = {
-    "chainrun.version": 0, "chainrun.text": 0, "chainrun.fsutil": 0, "chainrun.interrupt": 0,
+    "chainrun.version": 0, "chainrun.text": 0, "chainrun.fsutil": 0, "chainrun.interrupt": 0, "chainrun.heap": 0,
     "chainrun.errors": 1, "chainrun.audio.source": 1, "chainrun.dsp": 1,
     "chainrun.designers": 2, "chainrun.audio": 2, "chainrun.meters": 2,
     "chainrun.section_types": 3,
