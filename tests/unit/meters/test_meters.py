@@ -19,7 +19,7 @@ from numpy.testing import assert_allclose
 from scipy import signal
 
 from chainrun.meters import ChannelReading, MeterBank as Meter, MeterReading
-from chainrun.meters.truepeak import _interpolation_branches
+from chainrun.meters.interpolator import _interpolation_branches
 
 # chainrun's own tolerance for true-peak readings, common practice, no published source: a full-scale
 # sine up to 0.45*rate must read within +-0.05 dB of its true peak.  (The Meter docstring claims

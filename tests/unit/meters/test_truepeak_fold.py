@@ -15,7 +15,8 @@ from scipy import signal
 
 import chainrun.dsp.compiled as kernel
 from chainrun.dsp import fold
-from chainrun.meters.truepeak import TruePeakMeter, _TP_ROWS_PER_CALL, _TP_SPAN, _interpolation_branches, _weights
+from chainrun.meters.interpolator import _TP_ROWS_PER_CALL, _TP_SPAN, _interpolation_branches, _weights
+from chainrun.meters.truepeak import TruePeakMeter
 
 built = pytest.mark.skipif(not kernel.AVAILABLE and not kernel.REASON.startswith("stale"),
                            reason=f"compiled loops not in use: {kernel.REASON}")
