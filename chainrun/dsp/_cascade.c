@@ -34,8 +34,8 @@
  * extensions: SSE2 on x86-64, NEON on AArch64): lane-wise IEEE operations, so each lane's
  * result is exactly the scalar one.  An odd last channel runs the scalar loop.
  *
- * Three small float32 loops serve the true-peak meter around its matrix products (fold_rows,
- * absmax_sum, absmax_runs; chainrun/dsp/fold.py holds their numpy forms, which give the same bits).
+ * Four small loops serve the true-peak meter around its matrix products (fold_rows, absmax_sum,
+ * absmax_runs, screen_rows; chainrun/dsp/fold.py holds their numpy forms, which give the same bits).
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
@@ -61,7 +61,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 4
+#define CASCADE_ABI 5
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -656,6 +656,83 @@ done:
     return result;
 }
 
+/* The true-peak meter's screen of the rows of one product (chainrun/meters/truepeak.py, _screened;
+ * chainrun/dsp/fold.py holds the numpy form, which gives the same results).  a2, b2: float32
+ * (R, Q), the folded branch-2 products of R rows; z: float32 samples, the product's from `start`
+ * on (R*32 + 37 of them).  Per row r: P2 = max(|a2| + |b2|) over its Q values (float32), X = the
+ * peak |z| of runs r, r+1 and r+2 of 32 samples (the row's 69 samples lie in them); the row is
+ * kept when (0.5 * (X * one_eps + P2) + l13_eps * X) * one_tiny > level, level being the larger of
+ * `level` and every P2 and run peak of the product.  Returns (max P2, number kept); the kept rows'
+ * indices go to rows (int64, R), in order.  Double operations in this order, each rounded once. */
+static PyObject *
+screen_rows(PyObject *self, PyObject *args)
+{
+    PyObject *o_a, *o_b, *o_z, *o_rows, *result = NULL;
+    Py_ssize_t start;
+    double one_eps, l13_eps, one_tiny, level;
+    Py_buffer a = {0}, b = {0}, z = {0}, rows = {0};
+    if (!PyArg_ParseTuple(args, "OOOnddddO:screen_rows", &o_a, &o_b, &o_z, &start, &one_eps, &l13_eps,
+                          &one_tiny, &level, &o_rows))
+        return NULL;
+    if (get_floats(o_a, &a, 0, "a2") < 0 || get_floats(o_b, &b, 0, "b2") < 0 || get_floats(o_z, &z, 0, "z") < 0)
+        goto done;
+    if (PyObject_GetBuffer(o_rows, &rows, PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | PyBUF_WRITABLE) < 0)
+        goto done;
+    Py_ssize_t n_rows = a.ndim == 2 ? a.shape[0] : -1, q = a.ndim == 2 ? a.shape[1] : 0;
+    if (a.ndim != 2 || b.ndim != 2 || b.shape[0] != n_rows || b.shape[1] != q || z.ndim != 1 || q < 1
+        || rows.itemsize != 8 || rows.format == NULL || (strcmp(rows.format, "q") != 0 && strcmp(rows.format, "l") != 0)
+        || rows.len / 8 < n_rows || start < 0 || start + 32 * n_rows + 37 > z.shape[0]) {
+        PyErr_SetString(PyExc_ValueError, "screen_rows: a2, b2 float32 (R, Q); z float32 holding start + 32R + 37 "
+                                          "samples; rows int64 (R,)");
+        goto done;
+    }
+    {
+        const float *as = a.buf, *bs = b.buf, *zs = (const float *)z.buf + start;
+        int64_t *out = rows.buf;
+        Py_ssize_t kept = 0, n_runs = n_rows + 2, n_z = 32 * n_rows + 37;
+        double p2max = 0.0;
+        double *runs = PyMem_RawMalloc((size_t)(n_runs + n_rows) * sizeof(double));
+        if (runs == NULL) {
+            PyErr_NoMemory();
+            goto done;
+        }
+        double *p2 = runs + n_runs;
+        Py_BEGIN_ALLOW_THREADS
+        for (Py_ssize_t k = 0; k < n_runs; k++) {
+            Py_ssize_t r0 = 32 * k, r1 = r0 + 32 < n_z ? r0 + 32 : n_z;
+            runs[k] = tp_from_bits(absmax_loop(zs + r0, r1 - r0));
+            if (runs[k] > level)
+                level = runs[k];
+        }
+        for (Py_ssize_t r = 0; r < n_rows; r++) {
+            p2[r] = tp_from_bits(absmax_sum_loop(as + r * q, bs + r * q, q));
+            if (p2[r] > p2max)
+                p2max = p2[r];
+        }
+        if (p2max > level)
+            level = p2max;
+        for (Py_ssize_t r = 0; r < n_rows; r++) {
+            double x = runs[r];
+            if (runs[r + 1] > x)
+                x = runs[r + 1];
+            if (runs[r + 2] > x)
+                x = runs[r + 2];
+            double bound = (0.5 * (x * one_eps + p2[r]) + l13_eps * x) * one_tiny;
+            if (bound > level)
+                out[kept++] = r;
+        }
+        Py_END_ALLOW_THREADS
+        PyMem_RawFree(runs);
+        result = Py_BuildValue("(dn)", p2max, kept);
+    }
+done:
+    PyBuffer_Release(&rows);
+    PyBuffer_Release(&z);
+    PyBuffer_Release(&b);
+    PyBuffer_Release(&a);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"cascade", cascade, METH_VARARGS,
      "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
@@ -671,6 +748,9 @@ static PyMethodDef methods[] = {
      "absmax_sum(a, b) -> max(|a| + |b|) over two float32 buffers of one length (NaN if any is NaN)."},
     {"absmax_runs", absmax_runs, METH_VARARGS,
      "absmax_runs(z, run, out): out[k] = max |z| over z[k*run : (k+1)*run] (float32 in, float64 out)."},
+    {"screen_rows", screen_rows, METH_VARARGS,
+     "screen_rows(a2, b2, z, start, one_eps, l13_eps, one_tiny, level, rows) -> (max P2, kept): the true-peak\n"
+     "meter's screen of one product's rows (see chainrun/dsp/fold.py)."},
     {NULL, NULL, 0, NULL},
 };
 

@@ -1,6 +1,6 @@
 """The optional compiled biquad cascade: the same bytes as scipy.signal.sosfilt, in less CPU.
 
-``fold_rows``, ``absmax_sum`` and ``absmax_runs`` are the true-peak meter's loops around its matrix products
+``fold_rows``, ``absmax_sum``, ``absmax_runs`` and ``screen_rows`` are the true-peak meter's loops around its matrix products
 (chainrun/dsp/fold.py), or None.
 
 ``linear`` is the same for ``scipy.signal.lfilter``'s loop (the loudness meter's K-weighting),
@@ -23,10 +23,10 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs"]
+__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs", "screen_rows"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 4                                   # CASCADE_ABI in _cascade.c
+_ABI = 5                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -105,3 +105,4 @@ cascade_rows = _module.cascade if AVAILABLE else None
 fold_rows = _module.fold_rows if AVAILABLE else None
 absmax_sum = _module.absmax_sum if AVAILABLE else None
 absmax_runs = _module.absmax_runs if AVAILABLE else None
+screen_rows = _module.screen_rows if AVAILABLE else None

@@ -12,7 +12,7 @@ after which the two values of a pair of columns are ``a + b`` and ``a - b`` with
 larger magnitude of the two is ``|a| + |b|``.  See chainrun.meters.truepeak.
 
 :func:`fold_rows` and :func:`absmax_sum` compute these (and :func:`absmax_runs` the peaks of runs of
-samples, for the meter's skip rule) with numpy, or with the optional compiled
+samples, for the meter's skip rule; :func:`screen_rows` the bounds of its screen) with numpy, or with the optional compiled
 extension (chainrun/dsp/_cascade.c) when it is built: the same float32 additions, subtractions
 and magnitudes either way, so the results are the same bits (tests/unit/meters/test_truepeak_fold.py).
 """
@@ -23,7 +23,7 @@ from numpy.lib.stride_tricks import as_strided
 
 from . import compiled
 
-__all__ = ["fold_rows", "absmax_sum", "absmax_runs"]
+__all__ = ["fold_rows", "absmax_sum", "absmax_runs", "screen_rows"]
 
 
 def _fold_rows_numpy(z: np.ndarray, start: int, step: int, s: np.ndarray, d: np.ndarray) -> None:
@@ -83,3 +83,39 @@ def absmax_runs(z: np.ndarray, run: int, out: np.ndarray) -> None:
         compiled.absmax_runs(z, run, out)
     else:
         _absmax_runs_numpy(z, run, out)
+
+
+def _screen_rows_numpy(a2, b2, z, start, one_eps, l13_eps, one_tiny, level, rows) -> tuple[float, int]:
+    n_rows = a2.shape[0]
+    if start < 0 or start + 32 * n_rows + 37 > z.shape[0] or rows.shape[0] < n_rows:
+        raise ValueError("screen_rows: z must hold start + 32R + 37 samples, rows R indices")
+    runs = np.empty(n_rows + 2)
+    _absmax_runs_numpy(z[start:start + 32 * n_rows + 37], 32, runs)
+    if n_rows == 0:
+        return 0.0, 0
+    t = np.abs(a2)
+    t += np.abs(b2)
+    p2 = t.max(axis=1).astype(np.float64)
+    p2max = float(p2.max())
+    level = max(level, float(runs.max()), p2max)
+    x = np.maximum(np.maximum(runs[:-2], runs[1:-1]), runs[2:])
+    bound = (0.5 * (x * one_eps + p2) + l13_eps * x) * one_tiny
+    kept = np.flatnonzero(bound > level)
+    rows[:kept.size] = kept
+    return p2max, int(kept.size)
+
+
+def screen_rows(a2: np.ndarray, b2: np.ndarray, z: np.ndarray, start: int, one_eps: float, l13_eps: float,
+                one_tiny: float, level: float, rows: np.ndarray) -> tuple[float, int]:
+    """The true-peak meter's screen of one product's ``R`` rows of 32 instants (69 samples each).
+
+    ``a2``, ``b2`` (float32, R x Q): the folded branch-2 products; ``z`` (float32): samples, the
+    product's from ``start`` on. Per row, ``P2 = max(|a2| + |b2|)`` and ``X`` the peak |z| of the
+    three runs of 32 samples under it; the row is kept when
+    ``(0.5 * (X * one_eps + P2) + l13_eps * X) * one_tiny`` passes the level, the larger of
+    ``level`` and every P2 and run peak of the product. Returns (max P2, how many kept); the kept
+    rows' indices go to ``rows`` (int64) in order. The same double operations in C and numpy.
+    """
+    if compiled.screen_rows is not None:
+        return compiled.screen_rows(a2, b2, z, start, one_eps, l13_eps, one_tiny, level, rows)
+    return _screen_rows_numpy(a2, b2, z, start, one_eps, l13_eps, one_tiny, level, rows)

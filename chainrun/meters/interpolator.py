@@ -26,6 +26,8 @@ _TP_ROWS_PER_CALL = 512  # rows in every matrix product: one shape whatever the 
 _TP_GROUP = 2           # products whose rows are made ready together
 _TP_DTYPE = np.float32  # arithmetic of the interpolation (the sample peak is always float64)
 _TP_CLAMP = 1.0e30      # finite samples beyond +-this are clamped for interpolation only
+_SCREEN_EPS = 2.0e-5    # the screen's allowance for the rounding of a computed value (at most 1.15e-5 of its
+                        # samples' peak, TruePeakMeter notes), with a margin
 _TP_SPAN = _TP_TAPS + _TP_ROW - 1          # input samples under one row (odd: 69)
 _TP_HALF = _TP_SPAN // 2                   # mirrored pairs of samples in a row; the middle one stands alone
 _TP_CALL_OUT = _TP_ROW * _TP_ROWS_PER_CALL  # interpolated instants per branch in one product
@@ -88,6 +90,56 @@ class _Folded:
     plus: np.ndarray
     minus: np.ndarray
     l1: float
+    screen: "_Screen | None" = None
+
+
+@dataclass(frozen=True)
+class _Screen:
+    """Factor 4: the weights split into the half-sample branch and the other two, and the screen's constant.
+
+    ``e2``, ``o2``: the columns of ``e`` and ``o`` of branch 2 (the 16 pairs of its own outputs
+    ``j`` and ``31 - j``); ``e13``, ``o13``: those of branches 1 and 3 (32 pairs).  ``l13``: for
+    every instant of a row, the value of branch 1 (at ``s + 1/4``) minus the mean of the sample at
+    ``s`` and the value of branch 2 (at ``s + 1/2``) is a filter ``g1`` of the row's samples, and
+    branch 3 (at ``s + 3/4``) minus the mean of branch 2 and the sample at ``s + 1`` is ``g3``;
+    ``l13`` is the largest L1 norm of any of them (about 0.39), taken from the float32 weights the
+    products use.  So ``|branch 1 or 3| <= (max |samples| + max |branch 2|) / 2 + l13 * max |samples|``
+    over a row, in exact arithmetic (chainrun.meters.truepeak says how rounding is allowed for).
+    """
+
+    e2: np.ndarray
+    o2: np.ndarray
+    e13: np.ndarray
+    o13: np.ndarray
+    l13: float
+
+
+def _screen(e: np.ndarray, o: np.ndarray) -> _Screen:
+    """The :class:`_Screen` of the factor-4 weights ``e``, ``o`` (pairs 0-31: branches 1 and 3, 32-47: branch 2)."""
+    h, span, row = _TP_HALF, _TP_SPAN, _TP_ROW
+    e64, o64 = e.astype(np.float64), o.astype(np.float64)
+
+    def taps(pair: int, sign: float) -> np.ndarray:
+        """The weights on the row's samples of the pair's first (sign +1) or second (-1) output."""
+        w = np.empty(span)
+        w[:h] = e64[:h, pair] + sign * o64[:, pair]
+        w[span - 1:h:-1] = e64[:h, pair] - sign * o64[:, pair]
+        w[h] = e64[h, pair]
+        return w
+
+    worst = 0.0
+    for j in range(row):
+        b1, b3 = taps(j, 1.0), taps(row - 1 - j, -1.0)
+        b2 = taps(row + j, 1.0) if j < row // 2 else taps(row + row - 1 - j, -1.0)
+        at_s, at_next = np.zeros(span), np.zeros(span)
+        at_s[j + _TP_TAPS // 2 - 1] = 1.0             # the sample at s: tap 18 of instant j
+        at_next[j + _TP_TAPS // 2] = 1.0              # the sample at s + 1
+        g1, g3 = b1 - (at_s + b2) / 2.0, b3 - (b2 + at_next) / 2.0
+        worst = max(worst, float(np.abs(g1).sum()), float(np.abs(g3).sum()))
+    parts = [np.ascontiguousarray(a[:, cols]) for a in (e, o) for cols in (slice(row, None), slice(0, row))]
+    for a in parts:
+        a.setflags(write=False)
+    return _Screen(parts[0], parts[2], parts[1], parts[3], worst * (1.0 + 1e-9))
 
 
 def _column_pairs(factor: int) -> tuple[np.ndarray, np.ndarray]:
@@ -125,4 +177,4 @@ def _weights(factor: int) -> _Folded:
     l1 = float((2.0 * np.maximum(np.abs(e64[:h]), np.abs(o64)).sum(axis=0) + np.abs(e64[h])).max()) * (1.0 + 1e-4)
     for a in (e, o, plus, minus):
         a.setflags(write=False)
-    return _Folded(e, o, plus, minus, l1)
+    return _Folded(e, o, plus, minus, l1, _screen(e, o) if factor == 4 else None)

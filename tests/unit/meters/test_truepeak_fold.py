@@ -118,3 +118,90 @@ def test_noise_reads_the_reference_within_single_precision(seed):
     ref = max(float(np.max(np.abs(valid))), float(np.max(np.abs(x))))
     # the documented bound is 1.15e-5 of the local peak (TruePeakMeter notes)
     assert abs(m.reading().true_peak[0] - ref) <= 1.15e-5 * ref
+
+
+# --- the screen of rows at 4x -----------------------------------------------------------------------
+
+def test_the_screens_constant_holds_for_the_weights_the_products_use():
+    # Analytic: the screen writes branch 1 at s + 1/4 as the mean of the sample at s and branch 2
+    # at s + 1/2 plus a filter g1 of the row's samples (branch 3 likewise with the sample at s + 1),
+    # so that |branch 1| <= (|x(s)| + |branch 2|) / 2 + L1(g1) max|x|. Checked here on random rows
+    # against the float64 values of the float32 weights, for every instant of a row.
+    fw = _weights(4)
+    sc, rng = fw.screen, np.random.default_rng(5)
+    x = rng.standard_normal((200, _TP_SPAN))
+    h = _TP_SPAN // 2
+    s = np.hstack([x[:, :h] + x[:, :h:-1], x[:, h:h + 1]])
+    d = x[:, :h] - x[:, :h:-1]
+    a, b = s @ fw.e.astype(np.float64), d @ fw.o.astype(np.float64)
+    y = np.empty((200, 32 * 3))
+    y[:, fw.plus], y[:, fw.minus] = a + b, a - b
+    y = y.reshape(200, 32, 3)                                   # (row, instant j, branch 1..3)
+    xs, xnext = x[:, 18:18 + 32], x[:, 19:19 + 32]              # the samples at s and s + 1
+    peak = np.abs(x).max(axis=1)[:, None]
+    g1 = np.abs(y[:, :, 0] - (xs + y[:, :, 1]) / 2)
+    g3 = np.abs(y[:, :, 2] - (y[:, :, 1] + xnext) / 2)
+    assert (g1 <= sc.l13 * peak * (1 + 1e-12)).all() and (g3 <= sc.l13 * peak * (1 + 1e-12)).all()
+    assert 0.3 < sc.l13 < 0.5                                    # about 0.39 (computed, not a spec value)
+    assert max(g1.max(), g3.max()) > 0.5 * sc.l13 * peak.min()  # and not loose by orders of magnitude
+
+
+@built
+def test_compiled_screen_gives_numpys_rows():
+    kept_total, rows_total = 0, 0
+    for seed in range(8):
+        rng = np.random.default_rng(seed)
+        rows = int(rng.integers(0, 600)) if seed else 0
+        a2 = (rng.standard_normal((rows, 16)) * 0.3).astype(np.float32)
+        b2 = (rng.standard_normal((rows, 16)) * 0.3).astype(np.float32)
+        start = int(rng.integers(0, 50))
+        z = (rng.standard_normal(start + 32 * rows + 37 + int(rng.integers(0, 9))) * 0.3).astype(np.float32)
+        level, l13 = float(rng.uniform(0, 2.5)), float(rng.uniform(0.3, 1.5))
+        got, want = np.full(max(rows, 1), -1, np.int64), np.full(max(rows, 1), -1, np.int64)
+        g = kernel.screen_rows(a2, b2, z, start, 1 + 2e-5, l13, 1 + 1e-9, level, got)
+        w = fold._screen_rows_numpy(a2, b2, z, start, 1 + 2e-5, l13, 1 + 1e-9, level, want)
+        assert g == w and got.tobytes() == want.tobytes()       # numpy (reference library): same results
+        kept_total, rows_total = kept_total + g[1], rows_total + rows
+    assert 0 < kept_total < rows_total                          # the draws keep some rows, not all
+
+
+def _tp_both_ways(x, monkeypatch, block=65536):
+    readings = []
+    for screen in (True, False):
+        monkeypatch.setattr(TruePeakMeter, "SCREEN", screen)
+        m = TruePeakMeter(48000, x.shape[0])
+        for i in range(0, x.shape[1], block):
+            m.update(np.ascontiguousarray(x[:, i:i + block]))
+        readings.append((m.reading().true_peak, m.rows_screened, m.rows_computed))
+    return readings
+
+
+@pytest.mark.parametrize("kind", ["noise", "clipped", "sine", "quarter", "clicks", "square"])
+def test_the_screen_never_changes_the_reading(kind, monkeypatch):
+    # The reading with the screen equals the reading with every row computed, to the rounding of
+    # single precision (the same bits where BLAS gives them whatever the product's shape).
+    rng = np.random.default_rng(9)
+    n, t = 3 * 16384 + 999, np.arange(3 * 16384 + 999) / 48000
+    x = {"noise": rng.standard_normal((2, n)) * 0.1,
+         "clipped": np.clip(rng.standard_normal((2, n)) * 0.5, -0.4, 0.4),
+         "sine": np.vstack([np.sin(2 * np.pi * 11997.0 * t + 0.3), 0.5 * np.sin(2 * np.pi * 1000.0 * t)]),
+         # fs/4 with its crests 0.3 of a sample after a sample: the samples read cos(27 deg) = 0.891 of
+         # the amplitude, branch 2 cos(18 deg) = 0.951, branch 1 (0.05 of a sample off) cos(4.5 deg)
+         # = 0.997 (analytic): only the rows the screen keeps reach the reading (faded to half the level
+         # within the first product, so that the instants left for the end do not reach it)
+         "quarter": ((0.675 + 0.225 * np.cos(np.pi * np.clip((t - 0.2) / 0.05, 0, 1)))
+                     * np.sin(2 * np.pi * 12000.0 * t + 0.35 * np.pi))[None, :].repeat(2, axis=0),
+         "clicks": np.where(rng.random((2, n)) < 1e-3, 1.0, 0.0) * rng.choice([-1.0, 1.0], (2, n)),
+         "square": np.sign(np.sin(2 * np.pi * 7001.0 * t))[None, :].repeat(2, axis=0) * 0.7}[kind]
+    (screened, seen, computed), (full, _, _) = _tp_both_ways(x, monkeypatch)
+    assert seen > 0
+    np.testing.assert_allclose(screened, full, rtol=3e-5, atol=0)
+    if kind == "quarter":                       # the interpolator is flat to 0.015 dB below 0.45 fs
+        np.testing.assert_allclose(screened, 0.9 * np.cos(np.pi / 2 * 0.05), rtol=0.002)
+
+
+def test_the_screen_computes_few_rows_of_noise(monkeypatch):
+    # on noise, the rows that could hold a new peak are rare: the point of the screen
+    x = np.random.default_rng(10).standard_normal((2, 6 * 16384)) * 0.1
+    (_, seen, computed), _ = _tp_both_ways(x, monkeypatch)
+    assert seen >= 2 * 5 * 512 and computed < 0.1 * seen
