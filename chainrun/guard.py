@@ -34,7 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .design import MIDSIDE, Chain, design
-from .dsp import freqz_sos, minimize_bounded, point_response
+from .dsp import freqz_sos, minimize_bounded, point_response, unique_sorted
 from .impulse import _impulse, _midside_l1
 from .recipe import Guard, Location, Recipe, RecipeError
 from .section_types import raw_sections
@@ -191,7 +191,7 @@ def _extremes(sos: np.ndarray, rate: float, extra_hz: list[float]) -> tuple[floa
     nyq = rate / 2.0
     grid = np.concatenate([[0.0], np.geomspace(min(LOWEST_HZ, nyq / 2), nyq, GRID_POINTS),
                            [f for f in list(extra_hz) + _pole_hz(sos, rate) if 0 < f < nyq]])
-    grid = np.unique(grid)
+    grid = unique_sorted(grid)
     db = response_db(sos, grid, rate)
 
     at = point_response(sos)          # response_db at one frequency, the same number, faster

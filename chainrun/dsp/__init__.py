@@ -21,8 +21,9 @@ scipy.signal itself is still imported for raw ``iir`` sections (tf2sos), by the 
 fallbacks.
 """
 from .butter import butter_sos
-from .response import freqz_sos, minimize_bounded, point_response
+from .response import freqz_sos, minimize_bounded, point_response, unique_sorted
 from .fir import kaiser_lowpass
 from .kernel import lfilter, sosfilt
 
-__all__ = ["butter_sos", "freqz_sos", "kaiser_lowpass", "lfilter", "minimize_bounded", "point_response", "sosfilt"]
+__all__ = ["butter_sos", "freqz_sos", "kaiser_lowpass", "lfilter", "minimize_bounded", "point_response", "sosfilt",
+           "unique_sorted"]

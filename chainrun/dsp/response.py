@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 
-__all__ = ["freqz_sos", "point_response", "minimize_bounded"]
+__all__ = ["freqz_sos", "point_response", "minimize_bounded", "unique_sorted"]
 
 
 def _polyval(x: np.ndarray, c: np.ndarray) -> np.ndarray:
@@ -37,6 +37,19 @@ def freqz_sos(sos: np.ndarray, freqs, rate: float) -> np.ndarray:
     for row in sos:
         h *= _polyval(zm1, row[:3]) / _polyval(zm1, row[3:])
     return h
+
+
+def unique_sorted(values) -> np.ndarray:
+    """``numpy.unique`` of finite float frequencies: sorted, each value once (0.0 and -0.0 one value,
+    the first kept), the same array; without ``numpy.unique``'s import of ``numpy.ma`` on its
+    first call (7 ms of every ``run`` and ``check``)."""
+    a = np.sort(np.asarray(values, dtype=np.float64).ravel())
+    if a.size > 1:
+        keep = np.empty(a.size, dtype=bool)
+        keep[0] = True
+        np.not_equal(a[1:], a[:-1], out=keep[1:])
+        a = a[keep]
+    return a
 
 
 def point_response(sos: np.ndarray):

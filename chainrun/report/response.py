@@ -14,6 +14,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ..dsp import unique_sorted
 from ..text import fmt_db
 
 if TYPE_CHECKING:
@@ -91,7 +92,7 @@ def freq_grid(chain: Chain, recipe: Recipe, assessment: Assessment, points: int 
     extra = [float(s.params["freq"]) for s in recipe.sections if "freq" in s.params]
     extra.append(float(assessment.max_gain_hz))
     f = np.concatenate([np.geomspace(lo, nyq, points), [x for x in extra if lo < x < nyq]])
-    return np.unique(f)
+    return unique_sorted(f)
 
 
 def response_at(sos: np.ndarray, freqs: np.ndarray, rate: int) -> np.ndarray:

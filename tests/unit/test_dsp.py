@@ -216,3 +216,17 @@ def test_other_dtypes_go_to_scipys_function():
     y, z = sosfilt(sos, x, zi)
     want_y, want_z = signal.sosfilt(sos, x, axis=-1, zi=zi)
     assert y.dtype == np.float32 and y.tobytes() == want_y.tobytes() and z.tobytes() == want_z.tobytes()
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_unique_sorted_is_numpys_unique_on_frequency_grids(seed):
+    # numpy.unique (reference library): the same values in the same order, duplicates and an extra
+    # point that falls on the grid included
+    from chainrun.dsp import unique_sorted
+    rng = np.random.default_rng(seed)
+    grid = np.concatenate([[0.0], np.geomspace(1.0, 24000.0, 4096), rng.uniform(1, 24000, 7),
+                           np.geomspace(1.0, 24000.0, 4096)[rng.integers(0, 4096, 5)], [-0.0, 0.0]])
+    rng.shuffle(grid)
+    got, want = unique_sorted(grid), np.unique(grid)
+    assert got.tobytes() == want.tobytes()
+    assert unique_sorted([]).size == 0 and unique_sorted([3.0]).tolist() == [3.0]
