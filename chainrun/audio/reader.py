@@ -193,6 +193,8 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
             and channels >= 1 and out.shape[0] == channels and out.shape[1] >= frames >= 0):
         unpack(raw, frames, channels, out)                   # the compiled loop: the same values (_cascade.c)
         return out[:, :frames]
+    if frames == 0:                                          # no samples: a strided view would not fit the buffer
+        return out[:, :0]
     if scratch is None or scratch.size < frames:
         scratch = np.empty(frames, dtype=np.int32)
     shifted = scratch[:frames]
