@@ -6,9 +6,10 @@ clip count is exercised) in blocks of 65536 frames; packs every block with
 and without) and unpacks the bytes with ``reader.unpack24``, once with the compiled loops and
 once with the numpy forms (the compiled names set to None), interleaved round by round. Prints
 the median CPU time (time.process_time) per second of audio of each, their ratio, and whether the
-bytes, counts and values matched.
+bytes, counts and values matched. ``--pool N`` cycles N distinct blocks (1: a block still in the
+cache, as one just written by the filter; default: every block distinct, read from memory).
 
-    PYTHONPATH=$PWD python benchmarks/pack24_cost.py [--seconds 60] [--repeats 5]
+    PYTHONPATH=$PWD python benchmarks/pack24_cost.py [--seconds 60] [--repeats 5] [--pool N]
 """
 
 from __future__ import annotations
@@ -48,14 +49,18 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, default=60.0)
     ap.add_argument("--repeats", type=int, default=5)
+    ap.add_argument("--pool", type=int, default=0, help="distinct blocks cycled (0: all distinct)")
     args = ap.parse_args()
     if compiled.pack24_row is None:
         raise SystemExit(f"the compiled loops are not in use: {compiled.REASON}")
     rng = np.random.default_rng(1)
     n_blocks = max(1, int(args.seconds * RATE) // BLOCK)
-    blocks = [rng.normal(0, 0.1, (CHANNELS, BLOCK)) for _ in range(n_blocks)]
+    pool = args.pool if 0 < args.pool < n_blocks else n_blocks
+    blocks = [rng.normal(0, 0.1, (CHANNELS, BLOCK)) for _ in range(pool)]
     blocks[0][0, :5] = [1.5, -1.5, 1.0, -1.0, 0.9999999]
-    raws = [np.frombuffer(rng.bytes(3 * CHANNELS * BLOCK + 1), dtype=np.uint8) for _ in range(n_blocks)]
+    raws = [np.frombuffer(rng.bytes(3 * CHANNELS * BLOCK + 1), dtype=np.uint8) for _ in range(pool)]
+    blocks = [blocks[i % pool] for i in range(n_blocks)]
+    raws = [raws[i % pool] for i in range(n_blocks)]
     seconds = n_blocks * BLOCK / RATE
     loops = {"compiled": (compiled.pack24_row, compiled.unpack24_rows), "numpy": (None, None)}
     times = {(job, name): [] for job in ("pack", "pack+dither", "unpack") for name in loops}
@@ -71,7 +76,7 @@ def main() -> None:
             times["unpack", name].append(t)
             results["unpack", name] = values.tobytes()
     compiled.pack24_row, compiled.unpack24_rows = loops["compiled"]
-    print(f"{seconds:.1f} s of stereo {RATE} Hz audio in blocks of {BLOCK}; median of {args.repeats} (process_time)")
+    print(f"{seconds:.1f} s of stereo {RATE} Hz audio in blocks of {BLOCK} ({pool} distinct); median of {args.repeats} (process_time)")
     for job in ("pack", "pack+dither", "unpack"):
         c, n = (statistics.median(times[job, k]) / seconds * 1e3 for k in ("compiled", "numpy"))
         same = results[job, "compiled"] == results[job, "numpy"]

@@ -36,6 +36,9 @@
  *
  * Three small float32 loops serve the true-peak meter around its matrix products (fold_rows,
  * absmax_sum, absmax_runs; chainrun/dsp/fold.py holds their numpy forms, which give the same bits).
+ *
+ * Two byte loops serve PCM_24 files: pack24_row (quantise one channel row and store its three-byte
+ * codes) and unpack24_rows (the reverse); see their block just before the method table.
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
