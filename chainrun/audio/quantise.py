@@ -126,8 +126,8 @@ class Quantiser:
         r = self.rng.random((frames, channels, 2)) if self.rng is not None else None
         safe = self._safe(peak)
         pack = _compiled.pack24_row
-        if (pack is None or y.dtype != np.float64 or out.dtype != np.uint8 or not out.flags.c_contiguous
-                or (counted is not None and counted.dtype != np.bool_)):
+        if (pack is None or y.dtype != np.float64 or out.dtype != np.uint8 or out.ndim != 1
+                or not out.flags.c_contiguous or (counted is not None and counted.dtype != np.bool_)):
             pack = None
         scratch = None
         clipped = 0
