@@ -76,7 +76,8 @@ def main() -> None:
             times["unpack", name].append(t)
             results["unpack", name] = values.tobytes()
     compiled.pack24_row, compiled.unpack24_rows = loops["compiled"]
-    print(f"{seconds:.1f} s of stereo {RATE} Hz audio in blocks of {BLOCK} ({pool} distinct); median of {args.repeats} (process_time)")
+    print(f"{seconds:.1f} s of stereo {RATE} Hz audio in blocks of {BLOCK} ({pool} distinct); "
+          f"median of {args.repeats} (process_time)")
     for job in ("pack", "pack+dither", "unpack"):
         c, n = (statistics.median(times[job, k]) / seconds * 1e3 for k in ("compiled", "numpy"))
         same = results[job, "compiled"] == results[job, "numpy"]
