@@ -15,6 +15,7 @@ import math
 
 import numpy as np
 
+from ..dsp import compiled as _compiled
 from .formats import SUBTYPES
 
 __all__ = ["Quantiser", "wants_dither", "seed_for"]
@@ -113,7 +114,8 @@ class Quantiser:
         three bytes per channel (low byte first, or high byte first for AIFF), so no
         interleaved int32 array is formed. The bytes go into ``out`` (uint8) when it
         is large enough, else into a new array; the array is returned and its first
-        ``3 * y.size`` bytes are the samples.
+        ``3 * y.size`` bytes are the samples. Each row goes through the compiled loop
+        (``chainrun.dsp.compiled.pack24_row``, the same bytes and count) when it is built.
         """
         if self.bits != 24:
             raise ValueError("packed24 is for PCM_24")
@@ -123,21 +125,44 @@ class Quantiser:
             out = np.empty(nbytes, dtype=np.uint8)
         r = self.rng.random((frames, channels, 2)) if self.rng is not None else None
         safe = self._safe(peak)
-        v = np.empty(frames)
-        code = np.empty(frames, dtype=np.int32)
-        part = np.empty(frames, dtype=np.int32)
-        places = (2, 1, 0) if big_endian else (0, 1, 2)      # where bytes 0 (lowest), 1, 2 of a code go
+        pack = _compiled.pack24_row
+        if (pack is None or y.dtype != np.float64 or out.dtype != np.uint8 or out.ndim != 1
+                or not out.flags.c_contiguous or (counted is not None and counted.dtype != np.bool_)):
+            pack = None
+        scratch = None
         clipped = 0
         for c in range(channels):
-            np.multiply(y[c], self.scale, out=v)
-            clipped += self._round(v, None if r is None else r[:, c], None if counted is None else counted[c], safe)
-            np.copyto(code, v, casting="unsafe")            # whole numbers in range: exact
-            for k, place in enumerate(places):
-                byte = code if k == 0 else np.right_shift(code, 8 * k, out=part)
-                # int32 -> uint8 keeps the low eight bits (two's complement), the byte wanted
-                np.copyto(out[3 * c + place:nbytes:3 * channels], byte, casting="unsafe")
+            row, marks = y[c], None if counted is None else counted[c]
+            if pack is not None:
+                # the compiled loop: the same operations in the same order (_cascade.c); -1 for a row
+                # holding NaN or infinity, which the numpy form below then does as it always has
+                n = pack(np.ascontiguousarray(row), self.scale, r, c,
+                         None if marks is None else np.ascontiguousarray(marks), safe,
+                         self.lo, self.hi, out, 3 * c, 3 * channels, big_endian)
+                if n >= 0:
+                    clipped += n
+                    continue
+            if scratch is None:
+                scratch = np.empty(frames), np.empty(frames, dtype=np.int32), np.empty(frames, dtype=np.int32)
+            clipped += self._pack_row(row, None if r is None else r[:, c], marks, safe, out, c, channels,
+                                      big_endian, scratch)
         self.clipped += clipped
         return out
+
+    def _pack_row(self, row: np.ndarray, r: np.ndarray | None, counted: np.ndarray | None, safe: bool,
+                  out: np.ndarray, c: int, channels: int, big_endian: bool, scratch) -> int:
+        """numpy's form of one channel of :meth:`packed24`: scale, :meth:`_round`, store the three bytes."""
+        v, code, part = scratch
+        nbytes = 3 * channels * len(row)
+        places = (2, 1, 0) if big_endian else (0, 1, 2)      # where bytes 0 (lowest), 1, 2 of a code go
+        np.multiply(row, self.scale, out=v)
+        clipped = self._round(v, r, counted, safe)
+        np.copyto(code, v, casting="unsafe")                # whole numbers in range: exact
+        for k, place in enumerate(places):
+            byte = code if k == 0 else np.right_shift(code, 8 * k, out=part)
+            # int32 -> uint8 keeps the low eight bits (two's complement), the byte wanted
+            np.copyto(out[3 * c + place:nbytes:3 * channels], byte, casting="unsafe")
+        return clipped
 
     def __call__(self, y: np.ndarray, counted: np.ndarray | None = None,
                  peak: float | None = None) -> tuple[np.ndarray, int]:

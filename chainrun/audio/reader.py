@@ -13,6 +13,7 @@ import sys
 import numpy as np
 import soundfile as sf
 
+from ..dsp import compiled as _compiled
 from ..errors import AudioError
 from ..interrupt import stop_point as _stop_point
 from . import sndfile
@@ -181,10 +182,19 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
     times 2**-31 that is exactly ``code / 2**23``, libsndfile's normalised reading.
     The result is written into ``out[:, :frames]`` (shape channels x at least
     frames) and returned; ``scratch`` (int32, at least ``frames`` long) saves an
-    allocation.
+    allocation. The compiled loop (``chainrun.dsp.compiled.unpack24_rows``) does the same when
+    it is built.
     """
     if raw.size < frames * channels * 3 + 1:
         raise ValueError("unpack24: the buffer must hold one byte past the last sample")
+    unpack = _compiled.unpack24_rows
+    if (unpack is not None and raw.dtype == np.uint8 and raw.ndim == 1 and raw.flags.c_contiguous
+            and out.dtype == np.float64 and out.ndim == 2 and out.flags.c_contiguous
+            and channels >= 1 and out.shape[0] == channels and out.shape[1] >= frames >= 0):
+        unpack(raw, frames, channels, out)                   # the compiled loop: the same values (_cascade.c)
+        return out[:, :frames]
+    if frames == 0:                                          # no samples: a strided view would not fit the buffer
+        return out[:, :0]
     if scratch is None or scratch.size < frames:
         scratch = np.empty(frames, dtype=np.int32)
     shifted = scratch[:frames]

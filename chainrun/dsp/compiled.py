@@ -3,6 +3,10 @@
 ``fold_rows``, ``absmax_sum``, ``absmax_runs`` and ``screen_rows`` are the true-peak meter's loops around its matrix products
 (chainrun/dsp/fold.py), or None.
 
+``pack24_row`` and ``unpack24_rows`` are PCM_24's quantise-and-pack of one channel row and its
+unpacking loop (chainrun/audio/quantise.py ``Quantiser.packed24``, chainrun/audio/reader.py
+``unpack24`` hold the numpy forms, which give the same bytes), or None.
+
 ``linear`` is the same for ``scipy.signal.lfilter``'s loop (the loudness meter's K-weighting),
 with the call ``linear(b, a, x, zi) -> (y, zf)``, or None.
 
@@ -23,10 +27,11 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs", "screen_rows"]
+__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs",
+           "screen_rows", "pack24_row", "unpack24_rows"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 5                                   # CASCADE_ABI in _cascade.c
+_ABI = 6                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -106,3 +111,6 @@ fold_rows = _module.fold_rows if AVAILABLE else None
 absmax_sum = _module.absmax_sum if AVAILABLE else None
 absmax_runs = _module.absmax_runs if AVAILABLE else None
 screen_rows = _module.screen_rows if AVAILABLE else None
+# PCM_24 packing (Quantiser.packed24) and unpacking (reader.unpack24); their numpy forms are the fallback.
+pack24_row = _module.pack24_row if AVAILABLE else None
+unpack24_rows = _module.unpack24_rows if AVAILABLE else None

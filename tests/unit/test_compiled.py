@@ -17,6 +17,8 @@ import pytest
 from scipy import signal
 
 import chainrun.dsp.compiled as kernel
+from chainrun.audio.quantise import Quantiser
+from chainrun.audio.reader import unpack24
 from chainrun.render.filter import _Filter, sosfilt as filter_sosfilt
 from support import REPO
 
@@ -251,3 +253,96 @@ def test_the_linear_loop_leaves_other_filters_to_scipy_and_modifies_no_input():
     assert kernel.linear(b, a * 2.0, x, zi) is None                     # a[0] != 1
     assert kernel.linear(b.astype(np.float32), a, x, zi) is None        # not float64 throughout
     assert kernel.linear(np.ones(10), np.r_[1.0, np.zeros(9)], x, np.zeros((2, 9))) is None   # order 9
+
+
+# --- PCM_24 packing and unpacking (Quantiser.packed24, reader.unpack24) -----------------------------
+# The reference is each function's numpy form (the compiled names set to None, as without a build),
+# whose bytes tests/unit/audio/test_formats.py checks against libsndfile and numpy's byte views.
+
+def _packed_both(monkeypatch, y, counted=None, peak=None, big_endian=False, dither=False, seed=3):
+    """(bytes, clipped) of packed24 with the compiled loop, then with the numpy form."""
+    got, compiled_loop = [], kernel.pack24_row
+    assert compiled_loop is not None                                     # the compiled loop is in use
+    for loop in (compiled_loop, None):
+        monkeypatch.setattr(kernel, "pack24_row", loop)
+        q = Quantiser("PCM_24", dither, seed)
+        n = 3 * y.size
+        out = q.packed24(y, counted, peak, big_endian, out=np.full(n + 5, 0xAA, dtype=np.uint8))
+        assert (out[n:] == 0xAA).all()                                   # nothing written past the samples
+        got.append((out[:n].tobytes(), q.clipped, q.rng.random() if dither else None))   # draws used alike
+    monkeypatch.setattr(kernel, "pack24_row", compiled_loop)
+    return got
+
+
+@built
+@pytest.mark.parametrize("channels", [1, 2, 3, 4, 5, 6])
+@pytest.mark.parametrize("frames", [0, 1, 7, 1001])
+@pytest.mark.parametrize("dither", [False, True])
+@pytest.mark.parametrize("big_endian", [False, True])
+def test_pack24_gives_the_numpy_forms_bytes_and_counts(monkeypatch, channels, frames, dither, big_endian):
+    rng = np.random.default_rng(channels * 1000 + frames + 7 * dither + big_endian)
+    y = rng.uniform(-1.1, 1.1, (channels, frames))                 # beyond full scale too: codes clip
+    if frames:
+        y[0, 0] = -1.0                                              # the lowest code
+        y[-1, -1] = (2 ** 23 - 0.5) / 2 ** 23                       # a tie just above the top code
+    counted = rng.random((channels, frames)) < 0.3                  # some already counted by the clip policy
+    for marks in (None, counted):
+        compiled_form, numpy_form = _packed_both(monkeypatch, y, marks, big_endian=big_endian, dither=dither)
+        assert compiled_form == numpy_form
+    # a true peak lets the search be skipped; the bytes and counts stay the numpy form's
+    quiet = y * 0.5
+    peak = float(np.abs(quiet).max()) if frames else None
+    compiled_form, numpy_form = _packed_both(monkeypatch, quiet, peak=peak, big_endian=big_endian, dither=dither)
+    assert compiled_form == numpy_form
+
+
+@built
+@pytest.mark.parametrize("big_endian", [False, True])
+def test_pack24_rounds_exact_halves_to_even(monkeypatch, big_endian):
+    # IEEE 754 roundTiesToEven (numpy.rint's rounding in the default mode): k + 0.5 goes to whichever of
+    # k and k + 1 is even. Rounding half away from zero would give 3 for 2.5, -3 for -2.5, and
+    # -2**23 - 1 (a clip, counted) for -2**23 - 0.5.
+    halves = np.array([0.5, 1.5, 2.5, -0.5, -1.5, -2.5, 4096.5, -4097.5, 2 ** 23 - 2.5, 2 ** 23 - 1.5,
+                       -2 ** 23 + 0.5, -2 ** 23 - 0.5, 2 ** 23 - 0.5])
+    even = [0, 2, 2, 0, -2, -2, 4096, -4098, 2 ** 23 - 2, 2 ** 23 - 2, -2 ** 23, -2 ** 23, 2 ** 23 - 1]
+    clipped = 1                        # 2**23 - 0.5 rounds to 2**23, one above the top code: clipped, counted
+    y = (halves / 2 ** 23)[None, :]    # exact: halves of codes are multiples of 2**-24, well inside float64
+    # analytic: the little-endian 24-bit sample is the low three bytes of the two's-complement code
+    want = np.array(even, dtype="<i4").view(np.uint8).reshape(-1, 4)[:, :3]
+    want = np.ascontiguousarray(want[:, ::-1] if big_endian else want).tobytes()
+    compiled_form, numpy_form = _packed_both(monkeypatch, y, big_endian=big_endian)
+    assert compiled_form == numpy_form == (want, clipped, None)
+    # the raw loop too, on a stereo layout: row 1 alone, three bytes every six
+    out = np.zeros(6 * y.shape[1], dtype=np.uint8)
+    n = kernel.pack24_row(np.ascontiguousarray(y[0]), 2.0 ** 23, None, 0, None, False, -2.0 ** 23, 2.0 ** 23 - 1,
+                          out, 3, 6, big_endian)
+    assert n == clipped and out.reshape(-1, 6)[:, 3:].tobytes() == want
+    assert not out.reshape(-1, 6)[:, :3].any()                              # the other channel untouched
+
+
+@built
+def test_pack24_sends_rows_with_nan_or_infinity_to_the_numpy_form(monkeypatch):
+    y = np.array([[0.25, np.nan, -0.5, 0.1], [np.inf, -np.inf, 0.75, 0.0], [0.1, 0.2, 0.3, 1.5]])
+    out = np.zeros(12, dtype=np.uint8)
+    assert kernel.pack24_row(y[0], 2.0 ** 23, None, 0, None, False, -2.0 ** 23, 2.0 ** 23 - 1, out, 0, 3, False) == -1
+    with np.errstate(invalid="ignore"):                   # numpy's cast of NaN warns; both paths take it
+        compiled_form, numpy_form = _packed_both(monkeypatch, y, counted=np.zeros(y.shape, dtype=bool))
+    assert compiled_form == numpy_form
+
+
+@built
+@pytest.mark.parametrize("channels", [1, 2, 3, 4, 5, 6])
+@pytest.mark.parametrize("frames", [0, 1, 7, 1001])
+def test_unpack24_gives_the_numpy_forms_values(monkeypatch, channels, frames):
+    rng = np.random.default_rng(channels * 100 + frames)
+    raw = np.frombuffer(rng.bytes(3 * channels * frames + 1), dtype=np.uint8)
+    got, compiled_loop = [], kernel.unpack24_rows
+    assert compiled_loop is not None                                     # the compiled loop is in use
+    for loop in (compiled_loop, None):
+        monkeypatch.setattr(kernel, "unpack24_rows", loop)
+        out = np.full((channels, frames + 3), np.nan)
+        got.append(unpack24(raw, frames, channels, out).tobytes())
+        assert np.isnan(out[:, frames:]).all()                            # nothing written past the frames
+    assert got[0] == got[1]
+    with pytest.raises(ValueError, match="raw"):
+        compiled_loop(raw[:3 * channels * frames], frames, channels, np.empty((channels, frames)))
