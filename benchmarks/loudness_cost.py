@@ -86,7 +86,7 @@ def filter_floor(blocks: list, seconds: float, repeats: int) -> None:
     """Print the cost of the K-weighting filter alone: lfilter, and the compiled probe if it builds."""
     from scipy import signal
     meter = LoudnessMeter(RATE, CHANNELS)
-    b, a = meter._b, meter._a                               # the meter's own 4th-order filter
+    b, a = meter._kw.b, meter._kw.a                          # the meter's own 4th-order filter
 
     def timed(run) -> float:
         runs = []

@@ -64,7 +64,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 6
+#define CASCADE_ABI 7
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -417,11 +417,51 @@ linear_pair_##K(const double *b, const double *a, const double *x0, const double
         zi1[k] = z[k][1];                                                                         \
     }                                                                                             \
 }
+
+/* Four signals side by side in one 4-lane vector (the loudness meters of a file's input and output,
+ * stacked, or the first four channels of a wider file): the chain of dependent operations is the
+ * same as for one signal, so four take the time of one.  Lane-wise, each lane is linear_one. */
+#define LINEAR_QUAD(K)                                                                            \
+WAVE_LOOP static void                                                                             \
+linear_quad_##K(const double *b, const double *a, const double *const *x, double *const *y,       \
+                Py_ssize_t n_samples, double *const *zi, int square)                              \
+{                                                                                                 \
+    lanes4_t bb[K + 1], aa[K + 1], z[K];                                                          \
+    _Pragma("GCC unroll 9")                                                                       \
+    for (int k = 0; k <= K; k++) {                                                                \
+        bb[k] = (lanes4_t){b[k], b[k], b[k], b[k]};                                               \
+        aa[k] = (lanes4_t){a[k], a[k], a[k], a[k]};                                               \
+    }                                                                                             \
+    _Pragma("GCC unroll 8")                                                                       \
+    for (int k = 0; k < K; k++)                                                                   \
+        z[k] = (lanes4_t){zi[0][k], zi[1][k], zi[2][k], zi[3][k]};                                \
+    const double *x0 = x[0], *x1 = x[1], *x2 = x[2], *x3 = x[3];                                  \
+    double *y0 = y[0], *y1 = y[1], *y2 = y[2], *y3 = y[3];                                        \
+    for (Py_ssize_t n = 0; n < n_samples; n++) {                                                  \
+        lanes4_t xn = {x0[n], x1[n], x2[n], x3[n]};                                               \
+        lanes4_t yn = z[0] + bb[0] * xn;                                                          \
+        _Pragma("GCC unroll 8")                                                                   \
+        for (int k = 0; k < K - 1; k++)                                                           \
+            z[k] = z[k + 1] + xn * bb[k + 1] - yn * aa[k + 1];                                    \
+        z[K - 1] = xn * bb[K] - yn * aa[K];                                                       \
+        if (square)                                                                               \
+            yn = yn * yn;                                                                         \
+        y0[n] = yn[0];                                                                            \
+        y1[n] = yn[1];                                                                            \
+        y2[n] = yn[2];                                                                            \
+        y3[n] = yn[3];                                                                            \
+    }                                                                                             \
+    _Pragma("GCC unroll 8")                                                                       \
+    for (int k = 0; k < K; k++)                                                                   \
+        for (int c = 0; c < 4; c++)                                                               \
+            zi[c][k] = z[k][c];                                                                   \
+}
 #else
 #define LINEAR_PAIR(K)
+#define LINEAR_QUAD(K)
 #endif
 
-#define LINEAR_FOR(K) LINEAR_ONE(K) LINEAR_PAIR(K)
+#define LINEAR_FOR(K) LINEAR_ONE(K) LINEAR_PAIR(K) LINEAR_QUAD(K)
 LINEAR_FOR(1) LINEAR_FOR(2) LINEAR_FOR(3) LINEAR_FOR(4) LINEAR_FOR(5) LINEAR_FOR(6) LINEAR_FOR(7) LINEAR_FOR(8)
 
 typedef void (*linear_one_fn)(const double *, const double *, const double *, double *, Py_ssize_t, double *, int);
@@ -433,46 +473,85 @@ typedef void (*linear_pair_fn)(const double *, const double *, const double *, c
 static const linear_pair_fn LINEAR_PAIRS[LINEAR_MAX_ORDER] = {
     linear_pair_1, linear_pair_2, linear_pair_3, linear_pair_4, linear_pair_5, linear_pair_6, linear_pair_7,
     linear_pair_8};
+typedef void (*linear_quad_fn)(const double *, const double *, const double *const *, double *const *,
+                               Py_ssize_t, double *const *, int);
+static const linear_quad_fn LINEAR_QUADS[LINEAR_MAX_ORDER] = {
+    linear_quad_1, linear_quad_2, linear_quad_3, linear_quad_4, linear_quad_5, linear_quad_6, linear_quad_7,
+    linear_quad_8};
 #endif
+
+/* Rows of signals through the lfilter loops: four side by side, then two, then one.  The rows need
+ * not lie in one array (the loudness meters of a file's input and output are filtered together). */
+static void
+linear_rows(const double *bs, const double *as, Py_ssize_t order, const double *const *xr, double *const *yr,
+            double *const *zr, Py_ssize_t n_rows, Py_ssize_t n_samples, int square)
+{
+    Py_ssize_t i = 0;
+#if CASCADE_HAVE_PAIR
+    for (; i + 3 < n_rows; i += 4)
+        LINEAR_QUADS[order - 1](bs, as, xr + i, yr + i, n_samples, zr + i, square);
+    for (; i + 1 < n_rows; i += 2)
+        LINEAR_PAIRS[order - 1](bs, as, xr[i], xr[i + 1], yr[i], yr[i + 1], n_samples, zr[i], zr[i + 1], square);
+#endif
+    for (; i < n_rows; i++)
+        LINEAR_ONES[order - 1](bs, as, xr[i], yr[i], n_samples, zr[i], square);
+}
 
 static PyObject *
 linear(PyObject *self, PyObject *args)
 {
-    PyObject *o_b, *o_a, *o_x, *o_zi, *o_y, *result = NULL;
+    PyObject *o_b, *o_a, *o_x, *o_zi, *o_y, *o_x2 = NULL, *o_zi2 = NULL, *o_y2 = NULL, *result = NULL;
     Py_buffer b = {0}, a = {0}, x = {0}, zi = {0}, y = {0};   /* releasing an unfilled view does nothing */
+    Py_buffer x2 = {0}, zi2 = {0}, y2 = {0};
+    const double **xr = NULL;
     int square = 0;
-    if (!PyArg_ParseTuple(args, "OOOOO|p:linear", &o_b, &o_a, &o_x, &o_zi, &o_y, &square))
+    if (!PyArg_ParseTuple(args, "OOOOO|pOOO:linear", &o_b, &o_a, &o_x, &o_zi, &o_y, &square, &o_x2, &o_zi2, &o_y2))
         return NULL;
     if (get_doubles(o_b, &b, 0, 1, "b") < 0 || get_doubles(o_a, &a, 0, 1, "a") < 0
         || get_doubles(o_x, &x, 0, 2, "x") < 0 || get_doubles(o_zi, &zi, 1, 2, "zi") < 0
         || get_doubles(o_y, &y, 1, 2, "y") < 0)
         goto done;
+    int two = o_x2 != NULL;
+    if (two && (o_zi2 == NULL || o_y2 == NULL || get_doubles(o_x2, &x2, 0, 2, "x2") < 0
+                || get_doubles(o_zi2, &zi2, 1, 2, "zi2") < 0 || get_doubles(o_y2, &y2, 1, 2, "y2") < 0))
+        goto done;
 
-    Py_ssize_t order = b.shape[0] - 1, n_signals = x.shape[0], n_samples = x.shape[1];
+    Py_ssize_t order = b.shape[0] - 1, n1 = x.shape[0], n_samples = x.shape[1], n2 = two ? x2.shape[0] : 0;
     if (order < 1 || order > LINEAR_MAX_ORDER || a.shape[0] != order + 1 || ((const double *)a.buf)[0] != 1.0
-        || zi.shape[0] != n_signals || zi.shape[1] != order || y.shape[0] != n_signals || y.shape[1] != n_samples) {
-        PyErr_SetString(PyExc_ValueError, "linear: b and a (K+1,) with a[0] == 1 and 1 <= K <= 8, "
-                                          "x and y (C, N), zi (C, K)");
+        || zi.shape[0] != n1 || zi.shape[1] != order || y.shape[0] != n1 || y.shape[1] != n_samples
+        || (two && (x2.shape[1] != n_samples || zi2.shape[0] != n2 || zi2.shape[1] != order || y2.shape[0] != n2
+                    || y2.shape[1] != n_samples))) {
+        if (!PyErr_Occurred())
+            PyErr_SetString(PyExc_ValueError, "linear: b and a (K+1,) with a[0] == 1 and 1 <= K <= 8, "
+                                              "x and y (C, N), zi (C, K); x2, y2 (C2, N), zi2 (C2, K)");
+        goto done;
+    }
+    xr = PyMem_Malloc(sizeof(double *) * 3 * (size_t)(n1 + n2 + 1));
+    if (xr == NULL) {
+        PyErr_NoMemory();
         goto done;
     }
     {
-        const double *bs = b.buf, *as = a.buf, *xs = x.buf;
-        double *ys = y.buf, *zs = zi.buf;
-        Py_ssize_t i = 0;
+        double **yr = (double **)(xr + n1 + n2 + 1), **zr = yr + n1 + n2;
+        for (Py_ssize_t i = 0; i < n1 + n2; i++) {
+            int first = i < n1;
+            Py_ssize_t r = first ? i : i - n1;
+            xr[i] = (const double *)(first ? x.buf : x2.buf) + r * n_samples;
+            yr[i] = (double *)(first ? y.buf : y2.buf) + r * n_samples;
+            zr[i] = (double *)(first ? zi.buf : zi2.buf) + r * order;
+        }
+        const double *bs = b.buf, *as = a.buf;
         Py_BEGIN_ALLOW_THREADS
-#if CASCADE_HAVE_PAIR
-        for (; i + 1 < n_signals; i += 2)
-            LINEAR_PAIRS[order - 1](bs, as, xs + i * n_samples, xs + (i + 1) * n_samples,
-                                    ys + i * n_samples, ys + (i + 1) * n_samples, n_samples,
-                                    zs + i * order, zs + (i + 1) * order, square);
-#endif
-        for (; i < n_signals; i++)
-            LINEAR_ONES[order - 1](bs, as, xs + i * n_samples, ys + i * n_samples, n_samples, zs + i * order, square);
+        linear_rows(bs, as, order, xr, yr, zr, n1 + n2, n_samples, square);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
     Py_INCREF(result);
 done:
+    PyMem_Free(xr);
+    PyBuffer_Release(&y2);
+    PyBuffer_Release(&zi2);
+    PyBuffer_Release(&x2);
     PyBuffer_Release(&y);
     PyBuffer_Release(&zi);
     PyBuffer_Release(&x);
@@ -948,9 +1027,10 @@ static PyMethodDef methods[] = {
      "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
      "C-contiguous float64 buffers; the same arithmetic as scipy.signal.sosfilt."},
     {"linear", linear, METH_VARARGS,
-     "linear(b, a, x, zi, y[, square]): filter x (C, N) through b/a (K+1,), a[0] == 1, into y, updating\n"
-     "zi (C, K) in place; C-contiguous float64 buffers; the same arithmetic as scipy.signal.lfilter.\n"
-     "With square true, y holds the squares of the output (each y*y, rounded once)."},
+     "linear(b, a, x, zi, y[, square[, x2, zi2, y2]]): filter x (C, N) through b/a (K+1,), a[0] == 1, into y,\n"
+     "updating zi (C, K) in place; C-contiguous float64 buffers; the same arithmetic as scipy.signal.lfilter.\n"
+     "With square true, y holds the squares of the output (each y*y, rounded once).  With x2, zi2, y2\n"
+     "(C2 rows of the same N), those rows are filtered too, in the same pass (four rows side by side)."},
     {"fold_rows", fold_rows, METH_VARARGS,
      "fold_rows(z, start, step, s, d): sums and differences of mirrored samples of the rows of z\n"
      "(float32) that start at start + r*step; see chainrun/dsp/fold.py."},

@@ -27,11 +27,11 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs",
+__all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "linear_two", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs",
            "screen_rows", "pack24_row", "unpack24_rows"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 6                                   # CASCADE_ABI in _cascade.c
+_ABI = 7                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -101,8 +101,28 @@ def _linear(b, a, x, zi, square=False):
     return y, state
 
 
+def _linear_two(b, a, x1, zi1, x2, zi2, square=False):
+    """``_linear`` of two blocks of the same frames in one pass (their rows side by side in the
+    loop's vectors): ``(y1, zf1, y2, zf2)``, the same bits as two calls; None where ``_linear``
+    would give None for either."""
+    x1, x2 = np.asarray(x1), np.asarray(x2)
+    order = len(np.asarray(b)) - 1
+    if (x2.ndim != 2 or x1.ndim != 2 or x2.shape[1] != x1.shape[1] or np.asarray(zi2).shape != (len(x2), order)
+            or x2.dtype != np.float64 or np.asarray(zi2).dtype != np.float64):
+        return None
+    if _linear(b, a, x1[:, :0], zi1) is None:                   # the checks of _linear, on no frames
+        return None
+    b, a = np.ascontiguousarray(b, dtype=np.float64), np.ascontiguousarray(a, dtype=np.float64)
+    x1, x2 = np.ascontiguousarray(x1), np.ascontiguousarray(x2)
+    s1, s2 = np.array(zi1, dtype=np.float64, order="C"), np.array(zi2, dtype=np.float64, order="C")
+    y1, y2 = np.empty_like(x1), np.empty_like(x2)
+    _module.linear(b, a, x1, s1, y1, bool(square), x2, s2, y2)
+    return y1, s1, y2, s2
+
+
 cascade = _cascade if AVAILABLE else None
 linear = _linear if AVAILABLE else None
+linear_two = _linear_two if AVAILABLE else None
 # The raw loop: cascade_rows(sos, x, state, y) with x, y (signals, N) and state (signals, sections, 2),
 # all C-contiguous float64, state updated in place (chainrun.dsp.kernel's sosfilt uses it first).
 cascade_rows = _module.cascade if AVAILABLE else None

@@ -322,6 +322,19 @@ class MeterBank:
                                                             self._loudness) if m is not None)
         self._reading: MeterReading | None = None   # result() since the last non-empty update
 
+    def follow(self, leader: "MeterBank") -> bool:
+        """Take blocks in step with ``leader`` (the same frames, given to ``leader`` first, in one
+        thread), so that the two loudness meters K-weight each block in one pass
+        (:meth:`LoudnessMeter.follow`); True if paired. The figures are unchanged."""
+        if self._loudness is None or leader._loudness is None:
+            return False
+        return self._loudness.follow(leader._loudness)
+
+    def unfollow(self) -> None:
+        """End :meth:`follow`."""
+        if self._loudness is not None:
+            self._loudness.unfollow()
+
     def update(self, block: np.ndarray, extremes: tuple[np.ndarray, np.ndarray] | None = None) -> None:
         """Meter one block.
 

@@ -1,4 +1,5 @@
-"""Gating of BS.1770-4 / EBU Tech 3342: the bounded histogram of window loudness and the gated mean.
+"""Gating of BS.1770-4 / EBU Tech 3342: the bounded histogram of window loudness and the gated mean;
+the loudness meter's figures (:class:`LoudnessReading`).
 
 The windows above the -70 LUFS absolute gate are kept in bins 0.005 LU wide, each bin holding
 its count and the sum of its windows' mean squares, so memory does not grow with the file and
@@ -8,10 +9,11 @@ the gated mean is exact except for the windows of the one bin that holds a relat
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["integrated_of"]
+__all__ = ["integrated_of", "LoudnessReading"]
 
 _OFFSET = -0.691          # BS.1770-4 Annex 1, eq. 2
 _ABS_GATE = -70.0         # LUFS, BS.1770-4 and Tech 3342
@@ -96,4 +98,55 @@ def integrated_of(histograms) -> float | None:
     return _lufs(kept[2] / kept[1])
 
 
+@dataclass(frozen=True)
+class LoudnessReading:
+    """Loudness figures of a stream.  None: below the -70 LUFS gate, or too short.
 
+    Attributes
+    ----------
+    integrated_lufs : float or None
+        Gated integrated loudness, BS.1770-4 (LUFS).
+    loudness_range_lu : float or None
+        Loudness range, EBU Tech 3342 (LU).
+    max_momentary_lufs, max_short_term_lufs : float or None
+        Largest 400 ms / 3 s loudness, windows every 10 ms (LUFS).
+    channel_weights : tuple of float
+        The weight G of each channel (0.0 = left out).
+    weights_note : str
+        How the weights were chosen.
+    frames : int
+        Frames metered.
+    nonfinite_samples : int
+        NaN and +-Inf samples, metered as 0.0.
+    """
+
+    integrated_lufs: float | None
+    loudness_range_lu: float | None
+    max_momentary_lufs: float | None
+    max_short_term_lufs: float | None
+    channel_weights: tuple[float, ...]
+    weights_note: str
+    frames: int
+    nonfinite_samples: int
+
+    def to_dict(self) -> dict:
+        """The reading as JSON-safe plain types."""
+        return {
+            "integrated_lufs": self.integrated_lufs,
+            "loudness_range_lu": self.loudness_range_lu,
+            "max_momentary_lufs": self.max_momentary_lufs,
+            "max_short_term_lufs": self.max_short_term_lufs,
+            "channel_weights": [float(g) for g in self.channel_weights],
+            "weights_note": self.weights_note,
+            "frames": int(self.frames),
+            "nonfinite_samples": int(self.nonfinite_samples),
+        }
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "LoudnessReading":
+        """Inverse of :meth:`to_dict`."""
+        def opt(v):
+            return None if v is None else float(v)
+        return cls(opt(d["integrated_lufs"]), opt(d["loudness_range_lu"]), opt(d["max_momentary_lufs"]),
+                   opt(d["max_short_term_lufs"]), tuple(float(g) for g in d["channel_weights"]),
+                   str(d["weights_note"]), int(d["frames"]), int(d["nonfinite_samples"]))

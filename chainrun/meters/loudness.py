@@ -79,13 +79,11 @@ samples beyond +-1e100 are clamped there for metering only.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
-from ..dsp.kernel import lfilter_squares, sos2tf
-from .gating import _GATE_POWER, _REL_GATE_LRA, _Histogram, _lufs, integrated_of
-from .weighting import channel_weights, k_weighting_sos
+from .gating import _GATE_POWER, _REL_GATE_LRA, LoudnessReading, _Histogram, _lufs, integrated_of
+from .weighting import KWeighting, channel_weights, k_weighting_sos, squares_together
 
 __all__ = ["LoudnessMeter", "LoudnessReading", "k_weighting_sos", "channel_weights", "integrated_of"]
 
@@ -94,64 +92,8 @@ _MOMENTARY = 40           # sub-blocks in a momentary window / gating block (400
 _SHORT = 300              # sub-blocks in a short-term window (3 s)
 _STEP = 10                # sub-blocks between gating blocks and between LRA windows (100 ms)
 _CLAMP = 1.0e100
-_FLUSH_PERIOD = 65536      # frames between flushes of subnormal filter state (as the renderer's filter)
-_DENORMAL_FLOOR = 1e-200
 _SLACK = 2.0 * np.finfo(np.float64).eps   # per-term rounding bound of a sum, with a factor 2 to spare
 _BATCH = 1000             # sub-blocks (10 s) gathered before their windows are evaluated together
-
-
-@dataclass(frozen=True)
-class LoudnessReading:
-    """Loudness figures of a stream.  None: below the -70 LUFS gate, or too short.
-
-    Attributes
-    ----------
-    integrated_lufs : float or None
-        Gated integrated loudness, BS.1770-4 (LUFS).
-    loudness_range_lu : float or None
-        Loudness range, EBU Tech 3342 (LU).
-    max_momentary_lufs, max_short_term_lufs : float or None
-        Largest 400 ms / 3 s loudness, windows every 10 ms (LUFS).
-    channel_weights : tuple of float
-        The weight G of each channel (0.0 = left out).
-    weights_note : str
-        How the weights were chosen.
-    frames : int
-        Frames metered.
-    nonfinite_samples : int
-        NaN and +-Inf samples, metered as 0.0.
-    """
-
-    integrated_lufs: float | None
-    loudness_range_lu: float | None
-    max_momentary_lufs: float | None
-    max_short_term_lufs: float | None
-    channel_weights: tuple[float, ...]
-    weights_note: str
-    frames: int
-    nonfinite_samples: int
-
-    def to_dict(self) -> dict:
-        """The reading as JSON-safe plain types."""
-        return {
-            "integrated_lufs": self.integrated_lufs,
-            "loudness_range_lu": self.loudness_range_lu,
-            "max_momentary_lufs": self.max_momentary_lufs,
-            "max_short_term_lufs": self.max_short_term_lufs,
-            "channel_weights": [float(g) for g in self.channel_weights],
-            "weights_note": self.weights_note,
-            "frames": int(self.frames),
-            "nonfinite_samples": int(self.nonfinite_samples),
-        }
-
-    @classmethod
-    def from_dict(cls, d: dict) -> "LoudnessReading":
-        """Inverse of :meth:`to_dict`."""
-        def opt(v):
-            return None if v is None else float(v)
-        return cls(opt(d["integrated_lufs"]), opt(d["loudness_range_lu"]), opt(d["max_momentary_lufs"]),
-                   opt(d["max_short_term_lufs"]), tuple(float(g) for g in d["channel_weights"]),
-                   str(d["weights_note"]), int(d["frames"]), int(d["nonfinite_samples"]))
 
 
 class LoudnessMeter:
@@ -203,16 +145,14 @@ class LoudnessMeter:
     def __init__(self, rate: int, channels: int, channel_mask: int | None = None) -> None:
         if isinstance(channels, bool) or not isinstance(channels, (int, np.integer)) or channels < 1:
             raise ValueError(f"channels must be an integer >= 1, got {channels!r}")
-        self._sos = k_weighting_sos(rate)
         self._rate = int(rate)
         self._channels = int(channels)
         self._weights, self._note = channel_weights(self._channels, channel_mask)
         self._used = [c for c, g in enumerate(self._weights) if g != 0.0]
-        self._lfilter = lfilter_squares       # K-weighted squares: a compiled loop without scipy.signal (dsp)
-        # Both stages as one 4th-order filter: one pass over the samples instead of two (the
-        # readings move by less than 1e-9 LU from the cascade's, at 192 kHz; 1e-12 LU at 48 kHz).
-        self._b, self._a = sos2tf(self._sos)
-        self._zi = np.zeros((len(self._used), len(self._a) - 1))
+        self._kw = KWeighting(self._rate, len(self._used))
+        self._follower: LoudnessMeter | None = None       # see follow()
+        self._leader: LoudnessMeter | None = None
+        self._waiting: tuple[np.ndarray, int] | None = None   # a leader's block, not yet K-weighted
         self._carry = np.zeros((len(self._used), 0))     # filtered samples of the incomplete sub-block
         self._subs = 0                                    # complete sub-blocks so far
         self._tail = np.zeros(0)                          # energies of the last <= 299 sub-blocks
@@ -282,35 +222,50 @@ class LoudnessMeter:
             x = np.clip(x, -_CLAMP, _CLAMP)
         frame0, self._frames = self._frames, self._frames + n
         if not self._used:
-            sq = np.zeros((1, n))
-        else:
-            sq = self._k_weight(x, frame0)
-        self._subblocks(sq)
+            self._subblocks(np.zeros((1, n)))
+            return
+        if self._follower is not None:          # a leader: the block waits for the follower's
+            self._finish_waiting()
+            self._waiting = (x, frame0)
+            return
+        lead = self._leader
+        if lead is not None and lead._waiting is not None:
+            lx, lf0 = lead._waiting
+            if lf0 == frame0 and lx.shape[1] == n:
+                lead._waiting = None
+                sq_lead, sq = squares_together(lead._kw, lx, self._kw, x, frame0)
+                lead._subblocks(sq_lead)
+                self._subblocks(sq)
+                return
+            lead._finish_waiting()
+        self._subblocks(self._kw.squares(x, frame0))
 
-    def _k_weight(self, x: np.ndarray, frame0: int) -> np.ndarray:
-        """The squares of the K-weighted block, the state carried; at every multiple of _FLUSH_PERIOD
-        frames from the start (the same points whatever the blocks) state values below
-        _DENORMAL_FLOOR become zero.
+    def follow(self, leader: "LoudnessMeter") -> bool:
+        """Take blocks in step with ``leader`` (each block given to the leader first, then the same
+        frames here, in one thread), and K-weight both in one pass. True if paired (same rate,
+        channels to weight in both); :meth:`unfollow` ends it. The figures are the same bits.
 
-        After loud content, silence leaves the state decaying into the subnormal range, where
-        arithmetic is many times slower (measured: a file of digital silence took 4.8 times as
-        long as noise). A value below 1e-200 adds less than 1e-200 to any sample.
+        The leader keeps its block until this meter's arrives, and takes it on alone whenever
+        anything asks it for its figures, or a block here does not match.
         """
-        n, period = x.shape[1], _FLUSH_PERIOD
-        boundary = (frame0 // period + 1) * period          # first flush point after frame0
-        if boundary >= frame0 + n:              # none inside the block, at most one at its end (the usual case)
-            y, self._zi = self._lfilter(self._b, self._a, x, self._zi)
-            if boundary == frame0 + n:          # blocks of the period's size end on a flush point: no copy
-                self._zi[np.abs(self._zi) < _DENORMAL_FLOOR] = 0.0
-            return y
-        y, start = np.empty_like(x), 0
-        for stop in list(range(boundary - frame0, n, period)) + [n]:
-            if stop > start:
-                y[:, start:stop], self._zi = self._lfilter(self._b, self._a, x[:, start:stop], self._zi)
-            if (frame0 + stop) % period == 0:
-                self._zi[np.abs(self._zi) < _DENORMAL_FLOOR] = 0.0
-            start = stop
-        return y
+        if leader is self or leader._rate != self._rate or not (self._used and leader._used) \
+                or leader._follower is not None or self._leader is not None:
+            return False
+        leader._follower, self._leader = self, leader
+        return True
+
+    def unfollow(self) -> None:
+        """End :meth:`follow`; the leader takes on a block still waiting."""
+        lead = self._leader
+        if lead is not None:
+            lead._follower, self._leader = None, None
+            lead._finish_waiting()
+
+    def _finish_waiting(self) -> None:
+        if self._waiting is not None:
+            x, frame0 = self._waiting
+            self._waiting = None
+            self._subblocks(self._kw.squares(x, frame0))
 
     def _subblocks(self, sq: np.ndarray) -> None:
         """Sum the complete 10 ms sub-blocks of the carry followed by ``sq`` (squares of the new samples).
@@ -356,6 +311,7 @@ class LoudnessMeter:
         The windows are the same whenever they are evaluated: each window's mean square is
         summed from the same energies, and the histograms take the gating blocks in stream order.
         """
+        self._finish_waiting()
         if self._pending_n:
             energy = self._pending[0] if len(self._pending) == 1 else np.concatenate(self._pending)
             self._pending, self._pending_n = [], 0

@@ -1,4 +1,5 @@
-"""BS.1770-4 K-weighting at any sample rate, and the channel weights G from a speaker mask.
+"""BS.1770-4 K-weighting at any sample rate (coefficients and the running filter), and the channel
+weights G from a speaker mask.
 
 Used by :class:`~chainrun.meters.loudness.LoudnessMeter`.
 """
@@ -9,7 +10,12 @@ import math
 
 import numpy as np
 
-__all__ = ["k_weighting_sos", "channel_weights"]
+from ..dsp.kernel import lfilter_squares, lfilter_squares_two, sos2tf
+
+__all__ = ["k_weighting_sos", "channel_weights", "KWeighting", "squares_together"]
+
+_FLUSH_PERIOD = 65536      # frames between flushes of subnormal filter state (as the renderer's filter)
+_DENORMAL_FLOOR = 1e-200
 
 # ITU-R BS.1770-4 Annex 1, Table 1 (stage 1, shelving filter) and Table 2 (stage 2, high-pass),
 # both at 48 kHz: (b0, b1, b2), (1, a1, a2).
@@ -124,3 +130,70 @@ def channel_weights(channels: int, channel_mask: int | None = None) -> tuple[tup
     if extra:
         note += f"; {extra} channel(s) beyond the mask 1.0"
     return tuple(weights), note
+
+
+class KWeighting:
+    """The K-weighting of a meter's channels, run block by block with its state: the squares of its output.
+
+    Both stages as one 4th-order filter: one pass over the samples instead of two (the readings
+    move by less than 1e-9 LU from the cascade's, at 192 kHz; 1e-12 LU at 48 kHz). The loop is
+    the compiled lfilter loop (chainrun.dsp), lfilter's operations; without it, scipy's.
+    """
+
+    def __init__(self, rate: int, rows: int) -> None:
+        self.b, self.a = sos2tf(k_weighting_sos(rate))
+        self.zi = np.zeros((rows, len(self.a) - 1))
+
+    def squares(self, x: np.ndarray, frame0: int) -> np.ndarray:
+        """The squares of the K-weighted block ``x`` (rows x frames) whose first frame is ``frame0``."""
+        (y,), (self.zi,) = _squares(self.b, self.a, [x], [self.zi], frame0)
+        return y
+
+
+def _filter(b, a, xs, zis):
+    """lfilter_squares of one block, or of two of the same frames in one pass."""
+    if len(xs) == 1:
+        y, z = lfilter_squares(b, a, xs[0], zis[0])
+        return [y], [z]
+    y1, z1, y2, z2 = lfilter_squares_two(b, a, xs[0], zis[0], xs[1], zis[1])
+    return [y1, y2], [z1, z2]
+
+
+def _squares(b: np.ndarray, a: np.ndarray, xs: list, zis: list, frame0: int) -> tuple[list, list]:
+    """The squares of the K-weighted blocks ``xs`` (one, or two of the same frames) and the states
+    after them; at every multiple of _FLUSH_PERIOD frames from the start (the same points whatever
+    the blocks) state values below _DENORMAL_FLOOR become zero.
+
+    After loud content, silence leaves the state decaying into the subnormal range, where
+    arithmetic is many times slower (measured: a file of digital silence took 4.8 times as
+    long as noise). A value below 1e-200 adds less than 1e-200 to any sample.
+    """
+    n, period = xs[0].shape[1], _FLUSH_PERIOD
+    boundary = (frame0 // period + 1) * period          # first flush point after frame0
+    if boundary >= frame0 + n:              # none inside the block, at most one at its end (the usual case)
+        ys, zis = _filter(b, a, xs, zis)
+        if boundary == frame0 + n:          # blocks of the period's size end on a flush point: no copy
+            for z in zis:
+                z[np.abs(z) < _DENORMAL_FLOOR] = 0.0
+        return ys, zis
+    ys, start = [np.empty_like(x) for x in xs], 0
+    for stop in list(range(boundary - frame0, n, period)) + [n]:
+        if stop > start:
+            part, zis = _filter(b, a, [x[:, start:stop] for x in xs], zis)
+            for y, p in zip(ys, part):
+                y[:, start:stop] = p
+        if (frame0 + stop) % period == 0:
+            for z in zis:
+                z[np.abs(z) < _DENORMAL_FLOOR] = 0.0
+        start = stop
+    return ys, zis
+
+
+def squares_together(first: KWeighting, x1: np.ndarray, second: KWeighting, x2: np.ndarray,
+                     frame0: int) -> tuple[np.ndarray, np.ndarray]:
+    """``first.squares(x1, frame0)`` and ``second.squares(x2, frame0)`` in one pass: the compiled
+    loop runs the rows of both side by side, four in the time of two. Every row is filtered on
+    its own, so the squares and states are the same bits as apart. The two must have the same
+    filter (the same rate) and blocks of the same frames."""
+    (y1, y2), (first.zi, second.zi) = _squares(first.b, first.a, [x1, x2], [first.zi, second.zi], frame0)
+    return y1, y2

@@ -163,6 +163,9 @@ class OnOver:
         out_meter = MeterBank(src.rate, src.channels, full_scale=self.meter_full_scale(run.out_fs), **run.meter_args)
         reader = _Blocks(src, policy.block_size, run.in_meter)
         out = _Output(run.tmp, src, run.fmt, run.out_subtype, run.meta)
+        # In one thread the output's loudness meter takes each block right after the input's:
+        # the two K-weight it in one pass (the same figures).
+        paired = policy.threads <= 1 and out_meter.follow(run.in_meter)
         try:
             def process(item):
                 frame0, x, x_peak = item
@@ -175,6 +178,8 @@ class OnOver:
                     out.put(run.quantise, y, over_mask, peak)
             _pipeline(reader, process, encode, policy.threads > 1)
         finally:
+            if paired:
+                out_meter.unfollow()
             reader.close()
             out.close()
         over = _over(filt.out_peak, _max_tp(out_meter.result()), policy)

@@ -203,15 +203,15 @@ def _lfilter_both(b, a, blocks, channels):
 @built
 @pytest.mark.parametrize("order", range(1, 9))
 def test_the_linear_loop_gives_lfilters_bytes_at_every_order_it_takes(order):
-    # _cascade.c has one loop per order from 1 to 8; each against scipy.signal.lfilter (reference
-    # library) with poles drawn inside the unit circle (stable), one to three channels, odd blocks
+    # _cascade.c has loops per order from 1 to 8 (one, two and four signals side by side); each against
+    # scipy.signal.lfilter (reference library) with poles drawn inside the unit circle (stable), odd blocks
     rng = np.random.default_rng(2000 + order)
     poles = rng.uniform(0.2, 0.95, order) * np.exp(1j * rng.uniform(0, np.pi, order))
     poles[order % 2:] = np.concatenate([poles[order % 2::2], poles[order % 2::2].conj()])[: order - order % 2]
     poles[: order % 2] = poles[: order % 2].real
     a = np.real(np.poly(poles))
     b = rng.uniform(-1, 1, order + 1)
-    for channels in (1, 2, 3):
+    for channels in (1, 2, 3, 4, 5, 6, 9):             # four side by side, then two, then one
         x = rng.standard_normal((channels, 3001))
         _lfilter_both(b, a, np.split(x, [1, 2, 700, 2999], axis=1), channels)
 
@@ -346,3 +346,19 @@ def test_unpack24_gives_the_numpy_forms_values(monkeypatch, channels, frames):
     assert got[0] == got[1]
     with pytest.raises(ValueError, match="raw"):
         compiled_loop(raw[:3 * channels * frames], frames, channels, np.empty((channels, frames)))
+
+
+@built
+@pytest.mark.parametrize("rows", [(2, 2), (1, 2), (3, 3), (2, 0), (5, 1)])
+def test_the_linear_loop_on_two_blocks_at_once_gives_lfilters_bytes_for_each(rows):
+    # the loudness meters of a file's input and output K-weight their blocks in one pass (their rows
+    # side by side); each block's squares and state against scipy.signal.lfilter (reference library)
+    rng = np.random.default_rng(sum(rows))
+    b, a = signal.sos2tf(random_cascade(rng)[:2])
+    x1, x2 = rng.standard_normal((rows[0], 4001)), rng.standard_normal((rows[1], 4001))
+    z1, z2 = rng.standard_normal((rows[0], len(a) - 1)), rng.standard_normal((rows[1], len(a) - 1))
+    y1, f1, y2, f2 = kernel.linear_two(b, a, x1, z1, x2, z2, square=True)
+    for x, z, y, f in ((x1, z1, y1, f1), (x2, z2, y2, f2)):
+        ys, zs = signal.lfilter(b, a, x, axis=-1, zi=z)
+        assert y.tobytes() == np.square(ys).tobytes() and f.tobytes() == np.ascontiguousarray(zs).tobytes()
+    assert kernel.linear_two(b, a, x1, z1, x2[:, :4000], z2) is None          # not the same frames

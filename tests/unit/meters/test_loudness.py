@@ -520,7 +520,7 @@ def test_state_left_by_loud_content_is_flushed_in_silence(block):
     # then happens after the block's one filter call
     for i in range(0, x.shape[1], block):
         m.update(x[:, i:i + block])
-    assert np.all(m._zi == 0.0)
+    assert np.all(m._kw.zi == 0.0)
     whole = LoudnessMeter(48000, 2)
     whole.update(x)
     assert whole.reading() == m.reading()
