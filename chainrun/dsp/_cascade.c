@@ -64,7 +64,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 7
+#define CASCADE_ABI 8
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -1022,6 +1022,64 @@ done:
     return result;
 }
 
+/* The RMS meter's sums (chainrun/dsp/sums.py holds the numpy form, which gives the same bits): of a
+ * float64 row, the sum and the sum of squares, each in 32 running sums (sample i into sum i mod 32,
+ * in order, starting from the first 32 samples), combined pairwise (sum 2k with sum 2k+1, level by
+ * level), then the last n mod 32 samples added in order; every square x*x rounded once.  One pass;
+ * the running sums sit in vector lanes, each lane its own, so nothing is reordered, and 32 of them
+ * keep the adders busy where 8 would wait on each other. */
+#define SUMS_LANES 32
+
+TP_LOOP static void
+sums32_loop(const double *restrict x, Py_ssize_t n, double *restrict out)
+{
+    double a[SUMS_LANES] = {0}, q[SUMS_LANES] = {0};
+    Py_ssize_t m = n - n % SUMS_LANES;
+    if (m) {
+        for (int j = 0; j < SUMS_LANES; j++) {
+            a[j] = x[j];
+            q[j] = x[j] * x[j];
+        }
+        for (Py_ssize_t i = SUMS_LANES; i < m; i += SUMS_LANES)
+            for (int j = 0; j < SUMS_LANES; j++) {
+                a[j] += x[i + j];
+                q[j] += x[i + j] * x[i + j];
+            }
+    }
+    for (int w = SUMS_LANES / 2; w >= 1; w /= 2)
+        for (int j = 0; j < w; j++) {
+            a[j] = a[2 * j] + a[2 * j + 1];
+            q[j] = q[2 * j] + q[2 * j + 1];
+        }
+    double s1 = a[0], s2 = q[0];
+    for (Py_ssize_t i = m; i < n; i++) {
+        s1 += x[i];
+        s2 += x[i] * x[i];
+    }
+    out[0] = s1;
+    out[1] = s2;
+}
+
+static PyObject *
+row_sums(PyObject *self, PyObject *args)
+{
+    PyObject *o_x, *result = NULL;
+    Py_buffer x = {0};
+    if (!PyArg_ParseTuple(args, "O:row_sums", &o_x))
+        return NULL;
+    if (get_doubles(o_x, &x, 0, 1, "x") < 0)
+        return NULL;
+    double out[2];
+    const double *xs = x.buf;
+    Py_ssize_t n = x.shape[0];
+    Py_BEGIN_ALLOW_THREADS
+    sums32_loop(xs, n, out);
+    Py_END_ALLOW_THREADS
+    result = Py_BuildValue("(dd)", out[0], out[1]);
+    PyBuffer_Release(&x);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"cascade", cascade, METH_VARARGS,
      "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
@@ -1038,6 +1096,8 @@ static PyMethodDef methods[] = {
      "absmax_sum(a, b) -> max(|a| + |b|) over two float32 buffers of one length (NaN if any is NaN)."},
     {"absmax_runs", absmax_runs, METH_VARARGS,
      "absmax_runs(z, run, out): out[k] = max |z| over z[k*run : (k+1)*run] (float32 in, float64 out)."},
+    {"row_sums", row_sums, METH_VARARGS,
+     "row_sums(x) -> (sum, sum of squares) of a float64 row, in 32 running sums (see chainrun/dsp/sums.py)."},
     {"screen_rows", screen_rows, METH_VARARGS,
      "screen_rows(a2, b2, z, start, one_eps, l13_eps, one_tiny, level, rows) -> (max P2, kept): the true-peak\n"
      "meter's screen of one product's rows (see chainrun/dsp/fold.py)."},

@@ -11,6 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..dsp.sums import row_sums
+
 __all__ = ["PeakMeter", "PeakReading", "RMSMeter", "RMSReading"]
 
 
@@ -88,7 +90,8 @@ class RMSReading:
 
 
 class RMSMeter:
-    """Streaming RMS and DC offset: compensated sums of x and x**2 over the finite samples."""
+    """Streaming RMS and DC offset: sums of x and x**2 over the finite samples, each block's in one pass
+    (chainrun.dsp.sums: eight running sums), added up across blocks with compensation."""
 
     HEADLINE = (("rms_dbfs", "RMS", "dBFS"),)
 
@@ -109,7 +112,7 @@ class RMSMeter:
             for c in range(self._channels):
                 row, cnt, _, _ = _finite_row(block, bad, c, float(hi[c]), float(lo[c]))
                 self._finite[c] += cnt
-                s1, s2 = float(row.sum()), _sum_of_squares(row)
+                s1, s2 = row_sums(row)
                 self._sum[c], self._sum_comp[c] = _neumaier(self._sum[c], self._sum_comp[c], s1)
                 self._sumsq[c], self._sumsq_comp[c] = _neumaier(self._sumsq[c], self._sumsq_comp[c], s2)
 
@@ -122,25 +125,6 @@ class RMSMeter:
             rms.append(math.sqrt(max(msq, 0.0)))
             dc.append(mean)
         return RMSReading(tuple(rms), tuple(dc))
-
-
-def _sum_of_squares(row: np.ndarray) -> float:
-    """sum(row**2) without a temporary, accurate like numpy's pairwise sum.
-
-    einsum sums each run of 128 squares and numpy's pairwise ``sum`` adds the
-    runs up (relative error ~1e-15 where one long einsum gives ~1e-13 on 65536
-    equal values).  Not ``np.dot``: a BLAS dot of a long row may wake BLAS
-    worker threads, which costs milliseconds when they have to wait for a core.
-    """
-    m = row.shape[0] // 128 * 128
-    total = 0.0
-    if m:
-        runs = row[:m].reshape(-1, 128)
-        total = float(np.einsum("ij,ij->i", runs, runs).sum())
-    if m < row.shape[0]:
-        rest = row[m:]
-        total += float(np.einsum("i,i->", rest, rest))
-    return total
 
 
 def _neumaier(total: float, comp: float, value: float) -> tuple[float, float]:

@@ -362,3 +362,22 @@ def test_the_linear_loop_on_two_blocks_at_once_gives_lfilters_bytes_for_each(row
         ys, zs = signal.lfilter(b, a, x, axis=-1, zi=z)
         assert y.tobytes() == np.square(ys).tobytes() and f.tobytes() == np.ascontiguousarray(zs).tobytes()
     assert kernel.linear_two(b, a, x1, z1, x2[:, :4000], z2) is None          # not the same frames
+
+
+@built
+@pytest.mark.parametrize("n", [0, 1, 7, 31, 32, 33, 64, 4097, 65536])
+def test_the_rms_sums_give_their_numpy_forms_bits_and_stay_near_the_exact_sums(n):
+    import math
+
+    from chainrun.dsp import sums
+    rng = np.random.default_rng(n)
+    x = rng.standard_normal(n) * 10.0 ** rng.uniform(-3, 3, n)
+    if n > 3:
+        x[:3] = [-0.0, 1e-310, -1e300 ** 0.5]
+    got, want = kernel.row_sums(x), sums._row_sums_numpy(x)
+    assert np.array([got]).tobytes() == np.array([want]).tobytes()     # the same bits
+    # math.fsum (Python standard library): the correctly rounded sums; the module's bound
+    exact1, exact2 = math.fsum(x.tolist()), math.fsum((x * x).tolist())
+    scale1, scale2 = float(np.abs(x).sum()), float((x * x).sum())
+    assert abs(got[0] - exact1) <= (n / 32 + 40) * 2.0 ** -53 * scale1
+    assert abs(got[1] - exact2) <= (n / 32 + 40) * 2.0 ** -53 * scale2 * 2
