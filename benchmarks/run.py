@@ -22,7 +22,9 @@ I  the import floor: a process that only imports numpy, soundfile and scipy.sign
 
 A, A2, B, C, D and I run interleaved, round after round, each in its own process, so that a noisy
 neighbour slows all of them alike; the figures are medians. Peak RSS is the whole process's
-(``ru_maxrss`` from ``os.wait4``), CPU time its user + system time. Each ratio is given twice:
+(``ru_maxrss`` from ``os.wait4``), CPU time its user + system time. Every child runs with
+OPENBLAS_NUM_THREADS=1 (CHILD_ENV): none uses BLAS threads for its work, and their idle spin at
+start-up distorted the CPU figures (see CHILD_ENV). Each ratio is given twice:
 for the whole process (start-up, imports, design and reports included) and per extra second of
 audio (the same steps on a short file subtracted, which leaves the cost that grows with the
 audio). Separately: peak RSS of A on a short vs a long file, 16 files with one vs two workers
@@ -220,8 +222,17 @@ class Run:
         self.wall, self.cpu, self.rss = wall, cpu, rss
 
 
+# Every timed child starts without BLAS worker threads. numpy's OpenBLAS starts them on import and
+# they spin for about 0.07 s of CPU before sleeping; a 0.1 s process (C on the 1-second file) exits
+# during the spin and a longer one pays all of it, so the spin inflated C's per-second CPU time (by
+# 0.05 to 0.1 ms per second of audio on 600 s, five times that on 120 s) and flattered A/C. No step
+# here uses BLAS threads for its work (chainrun meters with one BLAS thread, threadpoolctl).
+CHILD_ENV = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+
+
 def timed(cmd: list[str], env: dict | None = None) -> Run:
-    """Run one child process to its end and measure it."""
+    """Run one child process to its end and measure it (its environment with CHILD_ENV)."""
+    env = dict(os.environ if env is None else env, **CHILD_ENV)
     t0 = time.perf_counter()
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, env=env)
     _, status, usage = os.wait4(proc.pid, 0)
@@ -473,7 +484,7 @@ def main(argv: list[str] | None = None) -> int:
               f"({wk.wall('I'):.2f} s in this group) and the growing part halved exactly: {best:.2f}x", ""]
 
     print("meters alone, in-process CPU...", file=sys.stderr)
-    one_core = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
+    one_core = dict(os.environ, **CHILD_ENV)
     costs = {}
     for kind in ("truepeak", "loudness"):
         proc = subprocess.run([sys.executable, os.path.abspath(__file__), "--meter-cost", kind, f"{meter_s:g}",
