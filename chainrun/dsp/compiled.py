@@ -83,15 +83,20 @@ def _cascade(sos, x, axis=-1, zi=None):
     return y, state.transpose(1, 0, 2)
 
 
+def _linear_args(b, a, x, zi) -> bool:
+    """True when ``_linear`` can take these (float64, ``a[0] == 1``, order 1-8, shapes that fit)."""
+    order = len(b) - 1
+    return (b.ndim == 1 and a.shape == b.shape and 1 <= order <= 8 and a[0] == 1.0 and x.ndim == 2
+            and zi.shape == (len(x), order) and all(v.dtype == np.float64 for v in (b, a, x, zi)))
+
+
 def _linear(b, a, x, zi, square=False):
     """lfilter's loop for chainrun's blocks: ``(y, zf)`` as ``scipy.signal.lfilter(b, a, x, axis=-1, zi=zi)``
     for float64 ``x`` (channels, frames), ``zi`` (channels, K), ``b`` and ``a`` (K+1,) with
     ``a[0] == 1`` and K <= 8; None for anything else (the caller then uses scipy's loop). Inputs are
     not modified. With ``square``, ``y`` holds ``numpy.square`` of the output instead (the same bits)."""
     b, a, x, zi = np.asarray(b), np.asarray(a), np.asarray(x), np.asarray(zi)
-    order = len(b) - 1
-    if (b.ndim != 1 or a.shape != b.shape or not 1 <= order <= 8 or a[0] != 1.0 or x.ndim != 2
-            or zi.shape != (len(x), order) or any(v.dtype != np.float64 for v in (b, a, x, zi))):
+    if not _linear_args(b, a, x, zi):
         return None
     b, a = np.ascontiguousarray(b, dtype=np.float64), np.ascontiguousarray(a, dtype=np.float64)
     x = np.ascontiguousarray(x, dtype=np.float64)
@@ -105,16 +110,13 @@ def _linear_two(b, a, x1, zi1, x2, zi2, square=False):
     """``_linear`` of two blocks of the same frames in one pass (their rows side by side in the
     loop's vectors): ``(y1, zf1, y2, zf2)``, the same bits as two calls; None where ``_linear``
     would give None for either."""
-    x1, x2 = np.asarray(x1), np.asarray(x2)
-    order = len(np.asarray(b)) - 1
-    if (x2.ndim != 2 or x1.ndim != 2 or x2.shape[1] != x1.shape[1] or np.asarray(zi2).shape != (len(x2), order)
-            or x2.dtype != np.float64 or np.asarray(zi2).dtype != np.float64):
+    b, a = np.asarray(b), np.asarray(a)
+    x1, zi1, x2, zi2 = np.asarray(x1), np.asarray(zi1), np.asarray(x2), np.asarray(zi2)
+    if not (_linear_args(b, a, x1, zi1) and _linear_args(b, a, x2, zi2) and x2.shape[1] == x1.shape[1]):
         return None
-    if _linear(b, a, x1[:, :0], zi1) is None:                   # the checks of _linear, on no frames
-        return None
-    b, a = np.ascontiguousarray(b, dtype=np.float64), np.ascontiguousarray(a, dtype=np.float64)
+    b, a = np.ascontiguousarray(b), np.ascontiguousarray(a)
     x1, x2 = np.ascontiguousarray(x1), np.ascontiguousarray(x2)
-    s1, s2 = np.array(zi1, dtype=np.float64, order="C"), np.array(zi2, dtype=np.float64, order="C")
+    s1, s2 = np.array(zi1, order="C"), np.array(zi2, order="C")   # copies: zi1, zi2 are never modified
     y1, y2 = np.empty_like(x1), np.empty_like(x2)
     _module.linear(b, a, x1, s1, y1, bool(square), x2, s2, y2)
     return y1, s1, y2, s2
