@@ -1,12 +1,23 @@
 """Shared pytest helpers. Keep this file small and generic; add fixtures below."""
 from __future__ import annotations
 
+import signal
 import textwrap
 from pathlib import Path
 
 import pytest
 
 REPO = Path(__file__).resolve().parents[1]
+
+# The stop-signal tests send SIGINT and SIGQUIT to the chainrun processes they start. A shell starts
+# a background job (`pytest ... &`) with both ignored, the processes it starts inherit that, and
+# chainrun keeps an ignored signal ignored (chainrun/interrupt.py), as a background program should:
+# those tests would then see runs that cannot be stopped. The suite restores the usual dispositions
+# for itself, and so for what it starts.
+if signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
+    signal.signal(signal.SIGINT, signal.default_int_handler)
+if hasattr(signal, "SIGQUIT") and signal.getsignal(signal.SIGQUIT) is signal.SIG_IGN:
+    signal.signal(signal.SIGQUIT, signal.SIG_DFL)
 
 
 @pytest.fixture
