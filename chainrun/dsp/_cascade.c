@@ -70,6 +70,19 @@
 #define CASCADE_SOURCE_DIGEST ""
 #endif
 
+/* Loops built for AVX-512, AVX2 and the baseline by GCC, one picked when the module loads (target
+ * clones): WAVE_LOOP for the loops written with vector types; VECTOR_LOOP, at -O3 as well, for the
+ * plain loops the compiler vectorises (the true-peak, PCM_24 and RMS loops).  In all of them each
+ * vector lane does exactly the scalar operations, and nothing is reordered but a max, whose order
+ * does not matter (the RMS sums keep one running sum per lane): the results are the scalar bits. */
+#if defined(__GNUC__) && !defined(__clang__) && defined(__x86_64__) && defined(__linux__)
+#define WAVE_LOOP __attribute__((target_clones("avx512f", "avx2", "default")))
+#define VECTOR_LOOP __attribute__((target_clones("avx512f", "avx2", "default"), optimize("O3")))
+#else
+#define WAVE_LOOP
+#define VECTOR_LOOP
+#endif
+
 /* Sections held on the stack by the two-lane loop; a longer cascade runs the scalar loop. */
 #define PAIR_MAX_SECTIONS 64
 
@@ -147,11 +160,6 @@ cascade_pair(const double *sos, Py_ssize_t n_sections, const double *x0, const d
  * zero coefficients and are never read.  Measured by timing the loops alone in C (65536 frames,
  * random stable sections): stereo, six sections, 3.9 ns a frame against 7.4 for cascade_pair; one
  * signal of six sections, 4.2 against 7.1 for cascade_one. */
-#if defined(__GNUC__) && !defined(__clang__) && defined(__x86_64__) && defined(__linux__)
-#define WAVE_LOOP __attribute__((target_clones("avx512f", "avx2", "default")))
-#else
-#define WAVE_LOOP
-#endif
 typedef double lanes4_t __attribute__((vector_size(32)));
 #if defined(__clang__)
 #define SHIFT_W2(a, b) __builtin_shufflevector((a), (b), 2, 3, 4, 5)
@@ -283,19 +291,35 @@ cascade_wave(const double *sos, Py_ssize_t S, int w, const double *const *x, dou
 #define CASCADE_HAVE_PAIR 0
 #endif
 
+/* A C-contiguous buffer of `ndim` dimensions (any number when ndim < 0) whose items are `itemsize`
+ * bytes in one of the struct codes of `codes`, native order (the code alone, or after '=' or '@');
+ * `type` names it in the error.  The one way every function here takes its arrays. */
 static int
-get_doubles(PyObject *obj, Py_buffer *view, int writable, int ndim, const char *name)
+get_array(PyObject *obj, Py_buffer *view, int writable, int ndim, Py_ssize_t itemsize, const char *codes,
+          const char *type, const char *name)
 {
     int flags = PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | (writable ? PyBUF_WRITABLE : 0);
     if (PyObject_GetBuffer(obj, view, flags) < 0)
         return -1;
-    if (view->ndim != ndim || view->itemsize != 8 || view->format == NULL
-        || !(strcmp(view->format, "d") == 0 || strcmp(view->format, "=d") == 0)) {   /* native order */
-        PyErr_Format(PyExc_TypeError, "cascade: %s must be a C-contiguous %d-d float64 array", name, ndim);
+    const char *f = view->format;
+    if (f != NULL && (f[0] == '=' || f[0] == '@'))
+        f++;
+    if ((ndim >= 0 && view->ndim != ndim) || view->itemsize != itemsize || f == NULL || f[0] == '\0'
+        || f[1] != '\0' || strchr(codes, f[0]) == NULL) {
+        if (ndim >= 0)
+            PyErr_Format(PyExc_TypeError, "_cascade: %s must be a C-contiguous %d-d %s array", name, ndim, type);
+        else
+            PyErr_Format(PyExc_TypeError, "_cascade: %s must be a C-contiguous %s array", name, type);
         PyBuffer_Release(view);
         return -1;
     }
     return 0;
+}
+
+static int
+get_doubles(PyObject *obj, Py_buffer *view, int writable, int ndim, const char *name)
+{
+    return get_array(obj, view, writable, ndim, 8, "d", "float64", name);
 }
 
 static PyObject *
@@ -560,18 +584,10 @@ done:
     return result;
 }
 
-/* The true-peak meter's two loops around its matrix products (chainrun/dsp/fold.py says what they
+/* The true-peak meter's loops around its matrix products (chainrun/dsp/fold.py says what they
  * compute; chainrun/meters/truepeak.py why).  float32 additions, subtractions and magnitudes, each
  * rounded once, as numpy's: the results are numpy's bits. */
 
-/* These loops hold only additions, subtractions, magnitudes and comparisons: vectorised, each lane
- * does exactly the scalar operation, and nothing is reordered but the max, whose order does not
- * matter.  GCC builds them for AVX-512, AVX2 and the baseline and picks one when the module loads. */
-#if defined(__GNUC__) && !defined(__clang__) && defined(__x86_64__) && defined(__linux__)
-#define TP_LOOP __attribute__((target_clones("avx512f", "avx2", "default"), optimize("O3")))
-#else
-#define TP_LOOP
-#endif
 
 /* The max of floats >= +0 (or NaN, with the sign cleared) is the max of their bit patterns as
  * unsigned integers, a reduction every vector unit has; a pattern above +inf's is a NaN. */
@@ -587,7 +603,7 @@ tp_from_bits(uint32_t m)
     return (double)f;
 }
 
-TP_LOOP static void
+VECTOR_LOOP static void
 fold_loop(const float *zs, Py_ssize_t start, Py_ssize_t step, Py_ssize_t rows, Py_ssize_t half,
           float *restrict ss, float *restrict ds)
 {
@@ -604,7 +620,7 @@ fold_loop(const float *zs, Py_ssize_t start, Py_ssize_t step, Py_ssize_t rows, P
     }
 }
 
-TP_LOOP static uint32_t
+VECTOR_LOOP static uint32_t
 absmax_sum_loop(const float *restrict as, const float *restrict bs, Py_ssize_t n)
 {
     uint32_t m = 0;
@@ -617,7 +633,7 @@ absmax_sum_loop(const float *restrict as, const float *restrict bs, Py_ssize_t n
     return m;
 }
 
-TP_LOOP static uint32_t
+VECTOR_LOOP static uint32_t
 absmax_loop(const float *restrict zs, Py_ssize_t n)
 {
     uint32_t m = 0;
@@ -633,16 +649,7 @@ absmax_loop(const float *restrict zs, Py_ssize_t n)
 static int
 get_floats(PyObject *obj, Py_buffer *view, int writable, const char *name)
 {
-    int flags = PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | (writable ? PyBUF_WRITABLE : 0);
-    if (PyObject_GetBuffer(obj, view, flags) < 0)
-        return -1;
-    if (view->itemsize != 4 || view->format == NULL
-        || !(strcmp(view->format, "f") == 0 || strcmp(view->format, "=f") == 0)) {   /* native order */
-        PyErr_Format(PyExc_TypeError, "fold: %s must be a C-contiguous float32 array", name);
-        PyBuffer_Release(view);
-        return -1;
-    }
-    return 0;
+    return get_array(obj, view, writable, -1, 4, "f", "float32", name);
 }
 
 static PyObject *
@@ -759,12 +766,11 @@ screen_rows(PyObject *self, PyObject *args)
         return NULL;
     if (get_floats(o_a, &a, 0, "a2") < 0 || get_floats(o_b, &b, 0, "b2") < 0 || get_floats(o_z, &z, 0, "z") < 0)
         goto done;
-    if (PyObject_GetBuffer(o_rows, &rows, PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | PyBUF_WRITABLE) < 0)
+    if (get_array(o_rows, &rows, 1, 1, 8, "ql", "int64", "rows") < 0)
         goto done;
     Py_ssize_t n_rows = a.ndim == 2 ? a.shape[0] : -1, q = a.ndim == 2 ? a.shape[1] : 0;
     if (a.ndim != 2 || b.ndim != 2 || b.shape[0] != n_rows || b.shape[1] != q || z.ndim != 1 || q < 1
-        || rows.itemsize != 8 || rows.format == NULL || (strcmp(rows.format, "q") != 0 && strcmp(rows.format, "l") != 0)
-        || rows.len / 8 < n_rows || start < 0 || start + 32 * n_rows + 37 > z.shape[0]) {
+        || rows.shape[0] < n_rows || start < 0 || start + 32 * n_rows + 37 > z.shape[0]) {
         PyErr_SetString(PyExc_ValueError, "screen_rows: a2, b2 float32 (R, Q); z float32 holding start + 32R + 37 "
                                           "samples; rows int64 (R,)");
         goto done;
@@ -835,7 +841,7 @@ done:
  * clamps exact), then stored as one 16-bit and one 8-bit write per sample. */
 #define PACK24_CHUNK 1024
 
-TP_LOOP static Py_ssize_t
+VECTOR_LOOP static Py_ssize_t
 pack24_codes(const double *restrict y, Py_ssize_t n, double scale, const double *restrict r,
              Py_ssize_t r_step, const unsigned char *restrict counted, int safe, double lo, double hi,
              int32_t *restrict codes, int *restrict nonfinite)
@@ -911,16 +917,7 @@ pack24_loop(const double *y, Py_ssize_t n, double scale, const double *r, Py_ssi
 static int
 get_bytes(PyObject *obj, Py_buffer *view, int writable, const char *format, const char *name)
 {
-    int flags = PyBUF_C_CONTIGUOUS | PyBUF_FORMAT | (writable ? PyBUF_WRITABLE : 0);
-    if (PyObject_GetBuffer(obj, view, flags) < 0)
-        return -1;
-    if (view->ndim != 1 || view->itemsize != 1 || view->format == NULL || strcmp(view->format, format) != 0) {
-        PyErr_Format(PyExc_TypeError, "pack24: %s must be a C-contiguous 1-d %s array", name,
-                     format[0] == '?' ? "bool" : "uint8");
-        PyBuffer_Release(view);
-        return -1;
-    }
-    return 0;
+    return get_array(obj, view, writable, 1, 1, format, format[0] == '?' ? "bool" : "uint8", name);
 }
 
 static PyObject *
@@ -967,7 +964,7 @@ done:
     return result;
 }
 
-TP_LOOP static void
+VECTOR_LOOP static void
 unpack24_loop(const unsigned char *restrict raw, Py_ssize_t frames, Py_ssize_t channels,
               double *restrict out, Py_ssize_t width)
 {
@@ -1030,7 +1027,7 @@ done:
  * keep the adders busy where 8 would wait on each other. */
 #define SUMS_LANES 32
 
-TP_LOOP static void
+VECTOR_LOOP static void
 sums32_loop(const double *restrict x, Py_ssize_t n, double *restrict out)
 {
     double a[SUMS_LANES] = {0}, q[SUMS_LANES] = {0};
