@@ -12,6 +12,21 @@ from .interpolator import (_SCREEN_EPS, _TP_CALL_OUT, _TP_CLAMP, _TP_DTYPE, _TP_
 
 __all__ = ["TruePeakMeter", "TruePeakReading"]
 
+def _products(s: np.ndarray, d: np.ndarray, e: np.ndarray, o: np.ndarray, a: np.ndarray, b: np.ndarray,
+              products: list[int]) -> None:
+    """``s @ e`` into ``a`` and ``d @ o`` into ``b`` for the runs of 512 rows listed in ``products``,
+    one BLAS call per product whatever the run (the same shape, so the same bits)."""
+    rpc = _TP_ROWS_PER_CALL
+    if len(products) * rpc == s.shape[0]:                    # all: numpy makes one BLAS call per product
+        stack = (len(products), rpc, -1)
+        np.matmul(s.reshape(stack), e, out=a.reshape(stack))
+        np.matmul(d.reshape(stack), o, out=b.reshape(stack))
+        return
+    for k in products:
+        np.matmul(s[k * rpc:(k + 1) * rpc], e, out=a[k * rpc:(k + 1) * rpc])
+        np.matmul(d[k * rpc:(k + 1) * rpc], o, out=b[k * rpc:(k + 1) * rpc])
+
+
 @dataclass(frozen=True)
 class TruePeakReading:
     """Per channel, the larger of the sample peak and max |interpolated| (linear); the oversampling factor."""
@@ -152,6 +167,7 @@ class TruePeakMeter:
             if self._fw.screen is not None:                              # branch 2 alone (_screened)
                 self._a2 = np.empty((rows, self._fw.screen.e2.shape[1]), dtype=_TP_DTYPE)
                 self._b2 = np.empty_like(self._a2)
+                self._kept = np.empty(_TP_ROWS_PER_CALL, dtype=np.int64)    # rows the screen keeps
         self.rows_screened = 0      # rows whose branch 2 was computed by the screen, and of those,
         self.rows_computed = 0      # the rows whose branches 1 and 3 were computed too
 
@@ -260,15 +276,8 @@ class TruePeakMeter:
         s, d = self._s[:n_rows], self._d[:n_rows]
         fold_rows(z[c], start, _TP_ROW, s, d)
         a, b = self._a2[:n_rows], self._b2[:n_rows]
-        if len(todo) * rpc == n_rows:                              # numpy makes one BLAS call per product
-            stack = (len(todo), rpc, -1)
-            np.matmul(s.reshape(stack), sc.e2, out=a.reshape(stack))
-            np.matmul(d.reshape(stack), sc.o2, out=b.reshape(stack))
-        else:
-            for k in todo:
-                np.matmul(s[k * rpc:(k + 1) * rpc], sc.e2, out=a[k * rpc:(k + 1) * rpc])
-                np.matmul(d[k * rpc:(k + 1) * rpc], sc.o2, out=b[k * rpc:(k + 1) * rpc])
-        kept = np.empty(rpc, dtype=np.int64)
+        _products(s, d, sc.e2, sc.o2, a, b, todo)
+        kept = self._kept
         one_eps, l13_eps = 1.0 + _SCREEN_EPS, sc.l13 + 1.5 * _SCREEN_EPS
         for k in todo:
             r0, r1 = k * rpc, (k + 1) * rpc
@@ -298,15 +307,10 @@ class TruePeakMeter:
         if products is None:                                       # one product of its own shape
             np.matmul(s, fw.e, out=a)
             np.matmul(d, fw.o, out=b)
-        elif len(products) * _TP_ROWS_PER_CALL == n_rows:          # all: numpy makes one BLAS call per product
-            stack = (len(products), _TP_ROWS_PER_CALL, -1)
-            np.matmul(s.reshape(stack), fw.e, out=a.reshape(stack))
-            np.matmul(d.reshape(stack), fw.o, out=b.reshape(stack))
         else:
-            runs = [(k * _TP_ROWS_PER_CALL, (k + 1) * _TP_ROWS_PER_CALL) for k in products]
-            for r0, r1 in runs:
-                np.matmul(s[r0:r1], fw.e, out=a[r0:r1])
-                np.matmul(d[r0:r1], fw.o, out=b[r0:r1])
+            _products(s, d, fw.e, fw.o, a, b, products)
+            if len(products) * _TP_ROWS_PER_CALL != n_rows:
+                runs = [(k * _TP_ROWS_PER_CALL, (k + 1) * _TP_ROWS_PER_CALL) for k in products]
         n_inst = n_rows * _TP_ROW
         mask = None
         if zbad is not None:
