@@ -11,6 +11,7 @@ import math
 import numpy as np
 
 from .dsp import sosfilt
+from .dsp.flush import DENORMAL_FLOOR
 
 __all__ = ["IMPULSE_BLOCK", "IMPULSE_CAP", "IMPULSE_WORK", "TAIL_REL"]
 
@@ -18,7 +19,7 @@ IMPULSE_BLOCK = 1 << 16     # impulse response computed in blocks of this many s
 IMPULSE_CAP = 1 << 27       # ... up to this many samples
 IMPULSE_WORK = 1 << 29      # ... and this many row-samples (rows x samples); then the tail is bounded
 TAIL_REL = 1e-10            # the run stops once the tail's bound is below this fraction of the sum
-FLUSH_FLOOR = 1e-200        # every FLUSH_EVERY samples, state values below this are set to zero (_run_block)
+FLUSH_FLOOR = DENORMAL_FLOOR  # every FLUSH_EVERY samples, state values below this are set to zero (_run_block)
 FLUSH_EVERY = 1 << 13
 _EPS = float(np.finfo(np.float64).eps)
 

@@ -10,12 +10,12 @@ import math
 
 import numpy as np
 
+from ..dsp.flush import flush, stretches
 from ..dsp.kernel import lfilter_squares, lfilter_squares_two, sos2tf
 
 __all__ = ["k_weighting_sos", "channel_weights", "KWeighting", "squares_together"]
 
-_FLUSH_PERIOD = 65536      # frames between flushes of subnormal filter state (as the renderer's filter)
-_DENORMAL_FLOOR = 1e-200
+
 
 # ITU-R BS.1770-4 Annex 1, Table 1 (stage 1, shelving filter) and Table 2 (stage 2, high-pass),
 # both at 48 kHz: (b0, b1, b2), (1, a1, a2).
@@ -161,31 +161,25 @@ def _filter(b, a, xs, zis):
 
 def _squares(b: np.ndarray, a: np.ndarray, xs: list, zis: list, frame0: int) -> tuple[list, list]:
     """The squares of the K-weighted blocks ``xs`` (one, or two of the same frames) and the states
-    after them; at every multiple of _FLUSH_PERIOD frames from the start (the same points whatever
-    the blocks) state values below _DENORMAL_FLOOR become zero.
-
-    After loud content, silence leaves the state decaying into the subnormal range, where
-    arithmetic is many times slower (measured: a file of digital silence took 4.8 times as
-    long as noise). A value below 1e-200 adds less than 1e-200 to any sample.
+    after them; at the flush points of chainrun/dsp/flush.py (every 65536 frames from the start,
+    the same points whatever the blocks) state values below 1e-200 become zero (measured: a file
+    of digital silence took 4.8 times as long as noise without it).
     """
-    n, period = xs[0].shape[1], _FLUSH_PERIOD
-    boundary = (frame0 // period + 1) * period          # first flush point after frame0
-    if boundary >= frame0 + n:              # none inside the block, at most one at its end (the usual case)
+    parts = stretches(frame0, xs[0].shape[1])
+    if len(parts) == 1:                     # no flush point inside the block (the usual case)
         ys, zis = _filter(b, a, xs, zis)
-        if boundary == frame0 + n:          # blocks of the period's size end on a flush point: no copy
+        if parts[0][2]:                     # blocks of the period's size end on a flush point: no copy
             for z in zis:
-                z[np.abs(z) < _DENORMAL_FLOOR] = 0.0
+                flush(z)
         return ys, zis
-    ys, start = [np.empty_like(x) for x in xs], 0
-    for stop in list(range(boundary - frame0, n, period)) + [n]:
-        if stop > start:
-            part, zis = _filter(b, a, [x[:, start:stop] for x in xs], zis)
-            for y, p in zip(ys, part):
-                y[:, start:stop] = p
-        if (frame0 + stop) % period == 0:
+    ys = [np.empty_like(x) for x in xs]
+    for start, stop, at_flush in parts:
+        part, zis = _filter(b, a, [x[:, start:stop] for x in xs], zis)
+        for y, p in zip(ys, part):
+            y[:, start:stop] = p
+        if at_flush:
             for z in zis:
-                z[np.abs(z) < _DENORMAL_FLOOR] = 0.0
-        start = stop
+                flush(z)
     return ys, zis
 
 

@@ -17,6 +17,7 @@ import numpy as np
 
 from ..design import EVERY, MIDSIDE
 from ..dsp import compiled, sosfilt
+from ..dsp.flush import flush, stretches
 from ..errors import AudioError
 
 __all__ = ["_Filter"]
@@ -27,13 +28,11 @@ class _Filter:
 
     Denormals: after loud content, a decaying filter state sinks towards the
     subnormal range, where arithmetic is many times slower, and can stay there.
-    Every FLUSH_PERIOD frames, counted from the start of the file (so the result
-    does not depend on the block size), state values below DENORMAL_FLOOR are set
-    to exactly zero; they would contribute less than 1e-200 to any output sample.
+    Every 65536 frames, counted from the start of the file (so the result does
+    not depend on the block size), state values below 1e-200 are set to exactly
+    zero; they would contribute less than 1e-200 to any output sample
+    (chainrun/dsp/flush.py).
     """
-
-    FLUSH_PERIOD = 65536
-    DENORMAL_FLOOR = 1e-200
 
     def __init__(self, sos, channels: int, bound: float):
         """``sos``: one cascade (S x 6) for every channel, or a Chain with channel paths
@@ -67,21 +66,17 @@ class _Filter:
                        for p, rows in groups if rows]
 
     def _filter(self, x: np.ndarray, frame0: int) -> np.ndarray:
-        n, period = x.shape[-1], self.FLUSH_PERIOD
-        end = frame0 + n
-        boundary = (frame0 // period + 1) * period        # first flush point after frame0
-        if boundary >= end:                               # none inside the block (the usual case)
+        parts = stretches(frame0, x.shape[-1])
+        if len(parts) == 1:                               # no flush point inside the block (the usual case)
             y = self._apply(x)
-            if boundary == end:
+            if parts[0][2]:
                 self._flush()
             return y
         y = np.empty_like(x)
-        start = 0
-        for stop in list(range(boundary - frame0, n, period)) + [n]:
+        for start, stop, at_flush in parts:
             y[:, start:stop] = self._apply(x[:, start:stop])
-            if (frame0 + stop) % period == 0:
+            if at_flush:
                 self._flush()
-            start = stop
         return y
 
     def _apply(self, x: np.ndarray) -> np.ndarray:
@@ -101,10 +96,10 @@ class _Filter:
 
     def _flush(self) -> None:
         if self.routing == EVERY:
-            self.zi[np.abs(self.zi) < self.DENORMAL_FLOOR] = 0.0
+            flush(self.zi)
             return
         for _, _, zi in self._paths:
-            zi[np.abs(zi) < self.DENORMAL_FLOOR] = 0.0
+            flush(zi)
 
     def __call__(self, x: np.ndarray, frame0: int, x_peak: float) -> np.ndarray:
         """Filter one block; ``x_peak`` is max |x| of the block (the reader has it already)."""

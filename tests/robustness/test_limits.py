@@ -69,7 +69,7 @@ def test_long_silence_after_loud_content_equals_sosfilt_and_flushes_to_exact_zer
     sos = design(load(str(recipe)), rate).sos
     loud = noise(24_000, 2, seed=8) * 3.0              # 0.5 s near full scale, the peak boosting it further
     need = _silence_needed(sos)
-    period = 65536                                     # render._Filter.FLUSH_PERIOD: the flush runs this often
+    period = 65536                                     # dsp.flush.FLUSH_PERIOD: the flush runs this often
     x = np.concatenate([loud, np.zeros((need + 3 * period, 2))])
     x /= 2 * np.abs(x).max()
     src = tmp_path / "in" / "tide_out.wav"
