@@ -64,7 +64,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 8
+#define CASCADE_ABI 9
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -1077,6 +1077,88 @@ row_sums(PyObject *self, PyObject *args)
     return result;
 }
 
+/* The loudness meter's 10 ms sub-block sums (chainrun/dsp/sums.py segment_sums): numpy's
+ * add.reduceat along the rows, bit for bit.  numpy starts a segment's result with its first value
+ * and adds the pairwise sum of the others (its loops_utils.h.src): fewer than 8 values added in
+ * order to -0.0; up to 128 in 8 running sums (value i into sum i mod 8), combined as
+ * ((r0 + r1) + (r2 + r3)) + ((r4 + r5) + (r6 + r7)), then the last n mod 8 added in order; more
+ * than 128 split at n/2 rounded down to a multiple of 8, each part summed so and the two added.
+ * The 8 running sums sit in the lanes of one vector, each lane its own, so nothing is reordered. */
+typedef double lanes8_t __attribute__((vector_size(64)));
+
+VECTOR_LOOP static double
+pairwise_sum(const double *a, Py_ssize_t n)
+{
+    if (n < 8) {
+        double res = -0.0;
+        for (Py_ssize_t i = 0; i < n; i++)
+            res += a[i];
+        return res;
+    }
+    if (n > 128) {
+        Py_ssize_t n2 = n / 2;
+        n2 -= n2 % 8;
+        return pairwise_sum(a, n2) + pairwise_sum(a + n2, n - n2);
+    }
+    lanes8_t r, v;
+    memcpy(&r, a, sizeof r);
+    Py_ssize_t i = 8, m = n - n % 8;
+    for (; i < m; i += 8) {
+        memcpy(&v, a + i, sizeof v);
+        r += v;
+    }
+    double res = ((r[0] + r[1]) + (r[2] + r[3])) + ((r[4] + r[5]) + (r[6] + r[7]));
+    for (; i < n; i++)
+        res += a[i];
+    return res;
+}
+
+static PyObject *
+segment_sums(PyObject *self, PyObject *args)
+{
+    PyObject *o_x, *o_starts, *o_out, *result = NULL;
+    Py_ssize_t stop;
+    Py_buffer x = {0}, starts = {0}, out = {0};
+    if (!PyArg_ParseTuple(args, "OOnO:segment_sums", &o_x, &o_starts, &stop, &o_out))
+        return NULL;
+    if (get_doubles(o_x, &x, 0, 2, "x") < 0 || get_array(o_starts, &starts, 0, 1, 8, "qlL", "int64", "starts") < 0
+        || get_doubles(o_out, &out, 1, 2, "out") < 0)
+        goto done;
+    {
+        Py_ssize_t rows = x.shape[0], width = x.shape[1], k = starts.shape[0];
+        const int64_t *st = starts.buf;
+        int ok = k >= 1 && stop >= 1 && stop <= width && out.shape[0] == rows && out.shape[1] == k;
+        for (Py_ssize_t i = 0; ok && i < k; i++)
+            ok = st[i] >= 0 && st[i] < stop;
+        if (!ok) {
+            PyErr_SetString(PyExc_ValueError, "segment_sums: x (R, N), 1 <= stop <= N, starts (K,) each in "
+                                              "[0, stop), out (R, K)");
+            goto done;
+        }
+        const double *xs = x.buf;
+        double *os = out.buf;
+        Py_BEGIN_ALLOW_THREADS
+        for (Py_ssize_t r = 0; r < rows; r++) {
+            const double *row = xs + r * width;
+            for (Py_ssize_t i = 0; i < k; i++) {
+                Py_ssize_t a = st[i], b = i + 1 < k ? st[i + 1] : stop;
+                double v = row[a];                      /* numpy: an empty segment gives its first value */
+                if (b - a > 1)
+                    v += pairwise_sum(row + a + 1, b - a - 1);
+                os[r * k + i] = v;
+            }
+        }
+        Py_END_ALLOW_THREADS
+        Py_INCREF(Py_None);
+        result = Py_None;
+    }
+done:
+    PyBuffer_Release(&out);
+    PyBuffer_Release(&starts);
+    PyBuffer_Release(&x);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"cascade", cascade, METH_VARARGS,
      "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
@@ -1095,6 +1177,9 @@ static PyMethodDef methods[] = {
      "absmax_runs(z, run, out): out[k] = max |z| over z[k*run : (k+1)*run] (float32 in, float64 out)."},
     {"row_sums", row_sums, METH_VARARGS,
      "row_sums(x) -> (sum, sum of squares) of a float64 row, in 32 running sums (see chainrun/dsp/sums.py)."},
+    {"segment_sums", segment_sums, METH_VARARGS,
+     "segment_sums(x, starts, stop, out): out (R, K) = numpy.add.reduceat(x[:, :stop], starts, axis=1), the same\n"
+     "bits (x (R, N) float64, starts (K,) int64); see chainrun/dsp/sums.py."},
     {"screen_rows", screen_rows, METH_VARARGS,
      "screen_rows(a2, b2, z, start, one_eps, l13_eps, one_tiny, level, rows) -> (max P2, kept): the true-peak\n"
      "meter's screen of one product's rows (see chainrun/dsp/fold.py)."},

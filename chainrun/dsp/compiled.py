@@ -28,10 +28,10 @@ from pathlib import Path
 import numpy as np
 
 __all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "linear_two", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs",
-           "screen_rows", "pack24_row", "unpack24_rows", "row_sums"]
+           "screen_rows", "pack24_row", "unpack24_rows", "row_sums", "segment_sums"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 8                                   # CASCADE_ABI in _cascade.c
+_ABI = 9                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -135,6 +135,8 @@ absmax_runs = _module.absmax_runs if AVAILABLE else None
 screen_rows = _module.screen_rows if AVAILABLE else None
 # The RMS meter's sums (chainrun/dsp/sums.py holds the numpy form).
 row_sums = _module.row_sums if AVAILABLE else None
+# The loudness meter's sub-block sums, numpy.add.reduceat's bits (chainrun/dsp/sums.py).
+segment_sums = _module.segment_sums if AVAILABLE else None
 # PCM_24 packing (Quantiser.packed24) and unpacking (reader.unpack24); their numpy forms are the fallback.
 pack24_row = _module.pack24_row if AVAILABLE else None
 unpack24_rows = _module.unpack24_rows if AVAILABLE else None

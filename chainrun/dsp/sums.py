@@ -1,4 +1,7 @@
-"""The RMS meter's sums of a row: of its samples and of their squares, in one pass.
+"""Sums of rows: the RMS meter's sums of a row (:func:`row_sums`), the loudness meter's sub-block
+sums (:func:`segment_sums`).
+
+:func:`row_sums` gives the sum of a row's samples and of their squares, in one pass:
 
 32 running sums each (sample ``i`` into sum ``i mod 32``, in order, starting from the first 32
 samples), combined pairwise (sum ``2k`` with sum ``2k + 1``, level by level), then the last
@@ -16,7 +19,7 @@ import numpy as np
 
 from . import compiled
 
-__all__ = ["row_sums"]
+__all__ = ["row_sums", "segment_sums"]
 
 
 _LANES = 32
@@ -47,3 +50,41 @@ def row_sums(x: np.ndarray) -> tuple[float, float]:
     if compiled.row_sums is not None and x.dtype == np.float64 and x.ndim == 1 and x.flags.c_contiguous:
         return compiled.row_sums(x)
     return _row_sums_numpy(np.asarray(x, dtype=np.float64))
+
+
+def _probe_segments() -> bool:
+    """True if the compiled segment sums give numpy's bits here: segments of every length from 1 to
+    20 and around each split of numpy's pairwise sum (128, 256, 512) and a sub-block's (441, 480,
+    960), of values >= 0 as the meter's squares are, and of signed ones."""
+    lengths = [*range(1, 21), 127, 128, 129, 130, 135, 255, 256, 257, 264, 441, 480, 511, 512, 513, 960, 1921]
+    starts = np.cumsum([0, *lengths[:-1]]).astype(np.int64)
+    x = np.random.default_rng(1770).standard_normal((2, int(sum(lengths))))
+    x[0] *= x[0]
+    out = np.empty((2, len(lengths)))
+    compiled.segment_sums(x, starts, x.shape[1], out)
+    return bool(np.array_equal(out, np.add.reduceat(x, starts, axis=1)))
+
+
+_compiled_segments: list = []      # [the compiled loop, or None when it is missing or differs], once probed
+
+
+def segment_sums(x: np.ndarray, starts: np.ndarray, stop: int) -> np.ndarray:
+    """``numpy.add.reduceat(x[:, :stop], starts, axis=1)``, the same bits: the sum of each row's
+    segment from ``starts[i]`` to ``starts[i + 1]`` (the last to ``stop``).
+
+    ``x`` is float64 (rows, N), C-contiguous, ``starts`` int64 in ``[0, stop)``. The compiled
+    loop (chainrun/dsp/_cascade.c) does numpy's operations in numpy's order: each segment's first
+    value plus numpy's pairwise sum of the others, the pairwise sum's 8 running sums in one vector.
+    It is used once a probe of one call shows it gives numpy's bits here (a numpy that summed
+    another way would make it step aside); tests/unit/test_compiled.py compares the two widely.
+    """
+    if not _compiled_segments:
+        _compiled_segments.append(compiled.segment_sums if compiled.segment_sums is not None
+                                  and _probe_segments() else None)
+    loop = _compiled_segments[0]
+    if (loop is not None and x.dtype == np.float64 and x.ndim == 2 and x.flags.c_contiguous
+            and starts.dtype == np.int64 and starts.ndim == 1):
+        out = np.empty((x.shape[0], starts.shape[0]))
+        loop(x, starts, int(stop), out)
+        return out
+    return np.add.reduceat(x[:, :stop], starts, axis=1)

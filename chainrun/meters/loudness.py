@@ -82,6 +82,7 @@ import math
 
 import numpy as np
 
+from ..dsp.sums import segment_sums
 from .gating import _GATE_POWER, _REL_GATE_LRA, LoudnessReading, _Histogram, _lufs, integrated_of
 from .weighting import KWeighting, channel_weights, k_weighting_sos, squares_together
 
@@ -94,6 +95,7 @@ _STEP = 10                # sub-blocks between gating blocks and between LRA win
 _CLAMP = 1.0e100
 _SLACK = 2.0 * np.finfo(np.float64).eps   # per-term rounding bound of a sum, with a factor 2 to spare
 _BATCH = 1000             # sub-blocks (10 s) gathered before their windows are evaluated together
+_FIRST = np.zeros(1, dtype=np.int64)   # the one segment of the joined carry
 
 
 class LoudnessMeter:
@@ -271,8 +273,9 @@ class LoudnessMeter:
         """Sum the complete 10 ms sub-blocks of the carry followed by ``sq`` (squares of the new samples).
 
         The sub-block that straddles the carry and ``sq`` is summed from a small joined
-        copy; the others straight from ``sq``. ``numpy.add.reduceat`` sums each segment
-        the same way wherever it lies, so every sub-block sum is the same in any split.
+        copy; the others straight from ``sq``. ``numpy.add.reduceat`` (or the compiled loop
+        that gives its bits, chainrun.dsp.sums.segment_sums) sums each segment the same way
+        wherever it lies, so every sub-block sum is the same in any split.
         """
         k0 = self._subs
         start = self._edge(k0)                                   # absolute index of the carry's start
@@ -286,11 +289,11 @@ class LoudnessMeter:
         edges = self._edges(k0, k1 - k0 + 1, -(start + held))    # in sq; edges[0] <= 0
         if held:
             head = np.concatenate([self._carry, sq[:, :edges[1]]], axis=1)
-            first = np.add.reduceat(head, [0], axis=1)
-            sums = (np.concatenate([first, np.add.reduceat(sq[:, :edges[-1]], edges[1:-1], axis=1)], axis=1)
+            first = segment_sums(head, _FIRST, head.shape[1])
+            sums = (np.concatenate([first, segment_sums(sq, edges[1:-1], edges[-1])], axis=1)
                     if k1 - k0 > 1 else first)
         else:
-            sums = np.add.reduceat(sq[:, :edges[-1]], edges[:-1], axis=1)
+            sums = segment_sums(sq, edges[:-1], edges[-1])
         energy = None               # channel order: a fixed sum (1.0 * s and 0.0 + s are s, s >= +0)
         for row, c in enumerate(self._used):
             term = sums[row] if self._weights[c] == 1.0 else self._weights[c] * sums[row]

@@ -381,3 +381,53 @@ def test_the_rms_sums_give_their_numpy_forms_bits_and_stay_near_the_exact_sums(n
     scale1, scale2 = float(np.abs(x).sum()), float((x * x).sum())
     assert abs(got[0] - exact1) <= (n / 32 + 40) * 2.0 ** -53 * scale1
     assert abs(got[1] - exact2) <= (n / 32 + 40) * 2.0 ** -53 * scale2 * 2
+
+
+@built
+@pytest.mark.parametrize("seed", range(6))
+def test_the_segment_sums_give_numpys_reduceat_bits(seed):
+    # the reference is numpy's own add.reduceat (numpy, from the registry): the loudness meter's
+    # sub-block sums must not move by a bit when the compiled loop takes them over
+    from chainrun.dsp import sums
+    rng = np.random.default_rng(seed)
+    rows, n = int(rng.integers(1, 6)), int(rng.integers(1, 6000))
+    x = rng.standard_normal((rows, n)) * 10.0 ** rng.uniform(-150, 150, (rows, n))
+    if seed % 2:
+        x *= x                                                   # squares, as the meter sums
+    x[:, :: max(n // 7, 1)] = -0.0 if seed % 2 == 0 else 0.0
+    stop = int(rng.integers(1, n + 1))
+    k = int(rng.integers(1, min(stop, 40) + 1))
+    starts = np.sort(rng.choice(stop, size=k, replace=False)).astype(np.int64)
+    if seed == 3 and k > 2:
+        starts[1] = starts[2]                                    # an empty segment: its first value, as numpy
+    out = np.empty((rows, k))
+    kernel.segment_sums(x, starts, stop, out)
+    assert out.tobytes() == np.add.reduceat(x[:, :stop], starts, axis=1).tobytes()
+    assert sums.segment_sums(x, starts, stop).tobytes() == out.tobytes()
+
+
+@built
+def test_the_segment_sums_cover_every_length_and_refuse_starts_outside_the_row():
+    rng = np.random.default_rng(48000)
+    for n in [*range(1, 140), 255, 256, 257, 441, 480, 960, 1920, 3840]:
+        x = rng.standard_normal((2, n + 3)) ** 2
+        starts = np.array([0, 1, 1 + n // 2], dtype=np.int64)[: 1 + (n > 1) + (n > 3)]
+        out = np.empty((2, starts.shape[0]))
+        kernel.segment_sums(x, starts, n, out)
+        assert out.tobytes() == np.add.reduceat(x[:, :n], starts, axis=1).tobytes(), n
+    with pytest.raises(ValueError, match="segment_sums"):
+        kernel.segment_sums(np.ones((2, 8)), np.array([0, 8], dtype=np.int64), 8, np.empty((2, 2)))
+
+
+def test_segment_sums_step_aside_for_a_loop_that_does_not_give_numpys_bits(monkeypatch):
+    from chainrun.dsp import sums
+
+    def off_by_a_bit(x, starts, stop, out):
+        out[...] = np.nextafter(np.add.reduceat(x[:, :stop], starts, axis=1), np.inf)
+
+    monkeypatch.setattr(sums.compiled, "segment_sums", off_by_a_bit)
+    monkeypatch.setattr(sums, "_compiled_segments", [])
+    x = np.random.default_rng(5).random((2, 2000))
+    starts = np.arange(0, 2000, 480, dtype=np.int64)
+    assert sums.segment_sums(x, starts, 2000).tobytes() == np.add.reduceat(x, starts, axis=1).tobytes()
+    assert sums._compiled_segments == [None]
