@@ -14,6 +14,7 @@ import numpy as np
 import soundfile as sf
 
 from ..dsp import compiled as _compiled
+from ..dsp.sums import row_extremes
 from ..errors import AudioError
 from ..interrupt import stop_point as _stop_point
 from . import sndfile
@@ -270,7 +271,7 @@ class _Blocks:
                 raise AudioError(f"ended early: {self.done} of {self.src.frames} frames could be read "
                                  "(cut short, or changed while being read)")
             raise StopIteration
-        his, los = x.max(axis=1), x.min(axis=1)
+        his, los = row_extremes(x)
         hi, lo = float(his.max()), float(los.min())
         if not (math.isfinite(hi) and math.isfinite(lo)):
             ch, at = np.argwhere(~np.isfinite(x))[0]

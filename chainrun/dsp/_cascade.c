@@ -64,7 +64,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 9
+#define CASCADE_ABI 10
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -1159,6 +1159,93 @@ done:
     return result;
 }
 
+/* The per-channel extremes of a block (chainrun/dsp/sums.py row_extremes): of each float64 row, its
+ * max and min in one pass instead of numpy's two (x.max(axis=1), x.min(axis=1)), the same values:
+ * NaN for both when the row holds a NaN, as numpy's.  Only a zero extreme may come with the other
+ * sign of zero than numpy's (numpy's own SIMD loops do not promise one); chainrun compares the
+ * extremes and takes magnitudes, never their sign of zero. */
+typedef long long lanes8_mask_t __attribute__((vector_size(64)));
+
+static inline lanes8_t
+select8(lanes8_mask_t m, lanes8_t a, lanes8_t b)              /* a where m, else b */
+{
+    lanes8_mask_t ai, bi;
+    memcpy(&ai, &a, sizeof ai);
+    memcpy(&bi, &b, sizeof bi);
+    ai = (m & ai) | (~m & bi);
+    memcpy(&a, &ai, sizeof a);
+    return a;
+}
+
+VECTOR_LOOP static void
+extremes_loop(const double *restrict x, Py_ssize_t n, double *restrict hi, double *restrict lo)
+{
+    double h = x[0], l = x[0];
+    int nan = x[0] != x[0];
+    Py_ssize_t m = n - n % 32;
+    if (m) {                                /* four vectors of 8 running extremes: none waits on another */
+        lanes8_t mx[4], mn[4], v;
+        lanes8_mask_t bad[4];
+        for (int k = 0; k < 4; k++) {
+            memcpy(&mx[k], x + 8 * k, sizeof v);
+            mn[k] = mx[k];
+            bad[k] = mx[k] != mx[k];
+        }
+        for (Py_ssize_t i = 32; i < m; i += 32)
+            for (int k = 0; k < 4; k++) {
+                memcpy(&v, x + i + 8 * k, sizeof v);
+                mx[k] = select8(v > mx[k], v, mx[k]);
+                mn[k] = select8(v < mn[k], v, mn[k]);
+                bad[k] |= v != v;
+            }
+        for (int k = 0; k < 4; k++)
+            for (int j = 0; j < 8; j++) {
+                h = mx[k][j] > h ? mx[k][j] : h;
+                l = mn[k][j] < l ? mn[k][j] : l;
+                nan |= bad[k][j] != 0;
+            }
+    }
+    for (Py_ssize_t i = m; i < n; i++) {
+        h = x[i] > h ? x[i] : h;
+        l = x[i] < l ? x[i] : l;
+        nan |= x[i] != x[i];
+    }
+    *hi = nan ? NAN : h;
+    *lo = nan ? NAN : l;
+}
+
+static PyObject *
+row_extremes(PyObject *self, PyObject *args)
+{
+    PyObject *o_x, *o_hi, *o_lo, *result = NULL;
+    Py_buffer x = {0}, hi = {0}, lo = {0};
+    if (!PyArg_ParseTuple(args, "OOO:row_extremes", &o_x, &o_hi, &o_lo))
+        return NULL;
+    if (get_doubles(o_x, &x, 0, 2, "x") < 0 || get_doubles(o_hi, &hi, 1, 1, "hi") < 0
+        || get_doubles(o_lo, &lo, 1, 1, "lo") < 0)
+        goto done;
+    if (x.shape[1] < 1 || hi.shape[0] != x.shape[0] || lo.shape[0] != x.shape[0]) {
+        PyErr_SetString(PyExc_ValueError, "row_extremes: x (R, N) with N >= 1, hi and lo (R,)");
+        goto done;
+    }
+    {
+        const double *xs = x.buf;
+        double *hs = hi.buf, *ls = lo.buf;
+        Py_ssize_t rows = x.shape[0], n = x.shape[1];
+        Py_BEGIN_ALLOW_THREADS
+        for (Py_ssize_t r = 0; r < rows; r++)
+            extremes_loop(xs + r * n, n, hs + r, ls + r);
+        Py_END_ALLOW_THREADS
+        Py_INCREF(Py_None);
+        result = Py_None;
+    }
+done:
+    PyBuffer_Release(&lo);
+    PyBuffer_Release(&hi);
+    PyBuffer_Release(&x);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"cascade", cascade, METH_VARARGS,
      "cascade(sos, x, zi, y): filter x (C, N) through sos (S, 6) into y, updating zi (C, S, 2) in place;\n"
@@ -1177,6 +1264,9 @@ static PyMethodDef methods[] = {
      "absmax_runs(z, run, out): out[k] = max |z| over z[k*run : (k+1)*run] (float32 in, float64 out)."},
     {"row_sums", row_sums, METH_VARARGS,
      "row_sums(x) -> (sum, sum of squares) of a float64 row, in 32 running sums (see chainrun/dsp/sums.py)."},
+    {"row_extremes", row_extremes, METH_VARARGS,
+     "row_extremes(x, hi, lo): hi[r], lo[r] = max and min of row r of x (R, N >= 1), float64, in one pass\n"
+     "(NaN for both when the row holds one); see chainrun/dsp/sums.py."},
     {"segment_sums", segment_sums, METH_VARARGS,
      "segment_sums(x, starts, stop, out): out (R, K) = numpy.add.reduceat(x[:, :stop], starts, axis=1), the same\n"
      "bits (x (R, N) float64, starts (K,) int64); see chainrun/dsp/sums.py."},

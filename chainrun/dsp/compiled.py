@@ -28,10 +28,10 @@ from pathlib import Path
 import numpy as np
 
 __all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "linear_two", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs",
-           "screen_rows", "pack24_row", "unpack24_rows", "row_sums", "segment_sums"]
+           "screen_rows", "pack24_row", "unpack24_rows", "row_sums", "segment_sums", "row_extremes"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 9                                   # CASCADE_ABI in _cascade.c
+_ABI = 10                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -137,6 +137,8 @@ screen_rows = _module.screen_rows if AVAILABLE else None
 row_sums = _module.row_sums if AVAILABLE else None
 # The loudness meter's sub-block sums, numpy.add.reduceat's bits (chainrun/dsp/sums.py).
 segment_sums = _module.segment_sums if AVAILABLE else None
+# A block's per-channel max and min in one pass (chainrun/dsp/sums.py row_extremes).
+row_extremes = _module.row_extremes if AVAILABLE else None
 # PCM_24 packing (Quantiser.packed24) and unpacking (reader.unpack24); their numpy forms are the fallback.
 pack24_row = _module.pack24_row if AVAILABLE else None
 unpack24_rows = _module.unpack24_rows if AVAILABLE else None

@@ -1,5 +1,5 @@
-"""Sums of rows: the RMS meter's sums of a row (:func:`row_sums`), the loudness meter's sub-block
-sums (:func:`segment_sums`).
+"""Passes over rows: the RMS meter's sums of a row (:func:`row_sums`), the loudness meter's sub-block
+sums (:func:`segment_sums`), a block's per-channel extremes (:func:`row_extremes`).
 
 :func:`row_sums` gives the sum of a row's samples and of their squares, in one pass:
 
@@ -19,7 +19,7 @@ import numpy as np
 
 from . import compiled
 
-__all__ = ["row_sums", "segment_sums"]
+__all__ = ["row_sums", "segment_sums", "row_extremes"]
 
 
 _LANES = 32
@@ -88,3 +88,16 @@ def segment_sums(x: np.ndarray, starts: np.ndarray, stop: int) -> np.ndarray:
         loop(x, starts, int(stop), out)
         return out
     return np.add.reduceat(x[:, :stop], starts, axis=1)
+
+
+def row_extremes(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(x.max(axis=1), x.min(axis=1))`` of a block (channels x frames, frames >= 1): the same values
+    (NaN for both in a row holding NaN), in one pass with the compiled loop when it is built. A
+    zero extreme may carry the other sign of zero than numpy's; nothing in chainrun reads that sign.
+    """
+    if (compiled.row_extremes is not None and x.dtype == np.float64 and x.ndim == 2 and x.shape[1]
+            and x.flags.c_contiguous):
+        hi, lo = np.empty(x.shape[0]), np.empty(x.shape[0])
+        compiled.row_extremes(x, hi, lo)
+        return hi, lo
+    return x.max(axis=1), x.min(axis=1)

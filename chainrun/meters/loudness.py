@@ -82,7 +82,7 @@ import math
 
 import numpy as np
 
-from ..dsp.sums import segment_sums
+from ..dsp.sums import row_extremes, segment_sums
 from .gating import _GATE_POWER, _REL_GATE_LRA, LoudnessReading, _Histogram, _lufs, integrated_of
 from .weighting import KWeighting, channel_weights, k_weighting_sos, squares_together
 
@@ -212,7 +212,7 @@ class LoudnessMeter:
         x = block[self._used] if len(self._used) < self._channels else block
         x = np.ascontiguousarray(x, dtype=np.float64)
         if extremes is None:
-            extremes = (block.max(axis=1), block.min(axis=1))     # NaN shows up in both
+            extremes = row_extremes(block)                          # NaN shows up in both
         hi = float(np.maximum.reduce(extremes[0], axis=None))     # np.max / np.min without their wrapper
         lo = float(np.minimum.reduce(extremes[1], axis=None))
         if not (math.isfinite(hi) and math.isfinite(lo)):

@@ -18,6 +18,7 @@ import numpy as np
 from ..design import EVERY, MIDSIDE
 from ..dsp import compiled, sosfilt
 from ..dsp.flush import flush, stretches
+from ..dsp.sums import row_extremes
 from ..errors import AudioError
 
 __all__ = ["_Filter"]
@@ -108,7 +109,7 @@ class _Filter:
         self.extremes = None
         if x.size:
             self.in_peak = max(self.in_peak, x_peak)
-            his, los = y.max(axis=1), y.min(axis=1)
+            his, los = row_extremes(y)
             self.extremes = (his, los)         # per channel, for the output meter
             hi, lo = float(his.max()), float(los.min())
             if not (math.isfinite(hi) and math.isfinite(lo)):

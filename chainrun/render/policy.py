@@ -17,6 +17,7 @@ from ..version import __version__
 from ..audio.formats import is_float
 from ..audio.reader import _Blocks
 from ..audio.writer import _Output
+from ..dsp.sums import row_extremes
 from ..errors import BatchError
 from ..fsutil import remove_quietly as _remove_quietly, temp_path_for
 from ..meters import MeterBank, MeterReading
@@ -314,7 +315,7 @@ def write_from_scratch(run, policy: Policy, gain: float) -> MeterBank:
     out_meter = MeterBank(src.rate, src.channels, full_scale=run.out_fs, **run.meter_args)
     with _Output(run.tmp, src, run.fmt, run.out_subtype, run.meta) as out:
         def pass2(y):
-            extremes = y.max(axis=1), y.min(axis=1)
+            extremes = row_extremes(y)
             out_meter.update(y, extremes)
             return y, max(float(extremes[0].max()), -float(extremes[1].min()))
 

@@ -431,3 +431,21 @@ def test_segment_sums_step_aside_for_a_loop_that_does_not_give_numpys_bits(monke
     starts = np.arange(0, 2000, 480, dtype=np.int64)
     assert sums.segment_sums(x, starts, 2000).tobytes() == np.add.reduceat(x, starts, axis=1).tobytes()
     assert sums._compiled_segments == [None]
+
+
+@built
+@pytest.mark.parametrize("n", [1, 7, 8, 31, 32, 33, 65, 4099, 65536])
+def test_the_row_extremes_are_numpys_max_and_min(n):
+    # the reference is numpy's own max and min (from the registry), NaN propagating as there
+    from chainrun.dsp.sums import row_extremes
+    rng = np.random.default_rng(n)
+    x = rng.standard_normal((4, n)) * 10.0 ** rng.uniform(-300, 300, (4, n))
+    x[1, n // 2] = np.inf
+    x[2, n - 1] = -np.inf
+    x[3, n // 3] = np.nan
+    for rows in (x, x[:3], np.ascontiguousarray(x[:, ::-1])):
+        hi, lo = row_extremes(rows)
+        want_hi, want_lo = rows.max(axis=1), rows.min(axis=1)
+        assert np.array_equal(hi, want_hi, equal_nan=True) and np.array_equal(lo, want_lo, equal_nan=True)
+    with pytest.raises(ValueError, match="row_extremes"):
+        kernel._module.row_extremes(np.ones((2, 0)), np.empty(2), np.empty(2))
