@@ -172,7 +172,7 @@ def cut_short(src: Source) -> str | None:
 
 
 def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
-             scratch: np.ndarray | None = None) -> np.ndarray:
+             scratch: np.ndarray | None = None, extremes: np.ndarray | None = None) -> np.ndarray:
     """Packed little-endian 3-byte samples -> channel-major float64, the values libsndfile reads.
 
     The inverse of :meth:`Quantiser.packed24`. ``raw`` (uint8, contiguous) holds the bytes of
@@ -183,8 +183,10 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
     times 2**-31 that is exactly ``code / 2**23``, libsndfile's normalised reading.
     The result is written into ``out[:, :frames]`` (shape channels x at least
     frames) and returned; ``scratch`` (int32, at least ``frames`` long) saves an
-    allocation. The compiled loop (``chainrun.dsp.compiled.unpack24_rows``) does the same when
-    it is built.
+    allocation. With ``extremes`` (float64, 2 x channels) and ``frames >= 1``, each row's max and
+    min go into ``extremes[0]`` and ``extremes[1]``, the values ``row_extremes`` gives (the compiled
+    loop takes them from the codes as it unpacks). The compiled loop
+    (``chainrun.dsp.compiled.unpack24_rows``) does the same when it is built.
     """
     if raw.size < frames * channels * 3 + 1:
         raise ValueError("unpack24: the buffer must hold one byte past the last sample")
@@ -192,7 +194,11 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
     if (unpack is not None and raw.dtype == np.uint8 and raw.ndim == 1 and raw.flags.c_contiguous
             and out.dtype == np.float64 and out.ndim == 2 and out.flags.c_contiguous
             and channels >= 1 and out.shape[0] == channels and out.shape[1] >= frames >= 0):
-        unpack(raw, frames, channels, out)                   # the compiled loop: the same values (_cascade.c)
+        ok_ext = (extremes is not None and frames >= 1 and extremes.dtype == np.float64
+                  and extremes.shape == (2, channels) and extremes.flags.c_contiguous)
+        unpack(raw, frames, channels, out, extremes if ok_ext else None)   # the same values (_cascade.c)
+        if extremes is not None and frames >= 1 and not ok_ext:
+            extremes[0], extremes[1] = row_extremes(out[:, :frames])
         return out[:, :frames]
     if frames == 0:                                          # no samples: a strided view would not fit the buffer
         return out[:, :0]
@@ -203,6 +209,8 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
         samples = np.ndarray((frames,), dtype="<i4", buffer=raw, offset=3 * c, strides=(3 * channels,))
         np.left_shift(samples, 8, out=shifted)
         np.multiply(shifted, 2.0 ** -31, out=out[c, :frames])
+    if extremes is not None:
+        extremes[0], extremes[1] = row_extremes(out[:, :frames])
     return out[:, :frames]
 
 
@@ -241,6 +249,7 @@ class _Blocks:
             self.bytes = np.zeros(block * self.frame_bytes + 1, dtype=np.uint8)   # + 1: see unpack24
             self.scratch = np.empty(block, dtype=np.int32)
             self.ptr = sndfile.pointer_to(self.bytes)
+            self.ext = np.empty((2, src.channels))                                 # the block's extremes
         else:
             self.buf = np.empty((block, src.channels), dtype=np.float64)
         self.done = 0
@@ -260,7 +269,7 @@ class _Blocks:
         got = sndfile.read_raw(self.f, self.ptr, want * self.frame_bytes)
         n = max(got, 0) // self.frame_bytes
         x = np.empty((self.src.channels, n), dtype=np.float64)
-        return unpack24(self.bytes, n, self.src.channels, x, self.scratch) if n else x
+        return unpack24(self.bytes, n, self.src.channels, x, self.scratch, self.ext) if n else x
 
     def __next__(self) -> tuple[int, np.ndarray, float]:
         _stop_point()
@@ -271,7 +280,7 @@ class _Blocks:
                 raise AudioError(f"ended early: {self.done} of {self.src.frames} frames could be read "
                                  "(cut short, or changed while being read)")
             raise StopIteration
-        his, los = row_extremes(x)
+        his, los = (self.ext[0].copy(), self.ext[1].copy()) if self.raw else row_extremes(x)
         hi, lo = float(his.max()), float(los.min())
         if not (math.isfinite(hi) and math.isfinite(lo)):
             ch, at = np.argwhere(~np.isfinite(x))[0]

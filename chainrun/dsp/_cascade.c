@@ -64,7 +64,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 10
+#define CASCADE_ABI 11
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -966,12 +966,13 @@ done:
 
 VECTOR_LOOP static void
 unpack24_loop(const unsigned char *restrict raw, Py_ssize_t frames, Py_ssize_t channels,
-              double *restrict out, Py_ssize_t width)
+              double *restrict out, Py_ssize_t width, double *restrict ext)
 {
     for (Py_ssize_t c = 0; c < channels; c++) {
         const unsigned char *b = raw + 3 * c;
         double *o = out + c * width;
         Py_ssize_t step = 3 * channels;
+        int32_t hi = INT32_MIN, lo = INT32_MAX;                 /* the row's largest and smallest code << 8 */
         for (Py_ssize_t i = 0; i < frames; i++) {
             const unsigned char *s = b + i * step;
 #if defined(__BYTE_ORDER__) && __BYTE_ORDER__ == __ORDER_LITTLE_ENDIAN__
@@ -984,6 +985,12 @@ unpack24_loop(const unsigned char *restrict raw, Py_ssize_t frames, Py_ssize_t c
             int32_t shifted;
             memcpy(&shifted, &u, sizeof shifted);               /* code << 8, two's complement */
             o[i] = (double)shifted * 0x1p-31;
+            hi = shifted > hi ? shifted : hi;
+            lo = shifted < lo ? shifted : lo;
+        }
+        if (ext != NULL && frames > 0) {                        /* the same values as the row's max and min */
+            ext[c] = (double)hi * 0x1p-31;
+            ext[channels + c] = (double)lo * 0x1p-31;
         }
     }
 }
@@ -991,29 +998,33 @@ unpack24_loop(const unsigned char *restrict raw, Py_ssize_t frames, Py_ssize_t c
 static PyObject *
 unpack24_rows(PyObject *self, PyObject *args)
 {
-    PyObject *o_raw, *o_out, *result = NULL;
+    PyObject *o_raw, *o_out, *o_ext = Py_None, *result = NULL;
     Py_ssize_t frames, channels;
-    Py_buffer raw = {0}, out = {0};
-    if (!PyArg_ParseTuple(args, "OnnO:unpack24_rows", &o_raw, &frames, &channels, &o_out))
+    Py_buffer raw = {0}, out = {0}, ext = {0};
+    if (!PyArg_ParseTuple(args, "OnnO|O:unpack24_rows", &o_raw, &frames, &channels, &o_out, &o_ext))
         return NULL;
-    if (get_bytes(o_raw, &raw, 0, "B", "raw") < 0 || get_doubles(o_out, &out, 1, 2, "out") < 0)
+    if (get_bytes(o_raw, &raw, 0, "B", "raw") < 0 || get_doubles(o_out, &out, 1, 2, "out") < 0
+        || (o_ext != Py_None && get_doubles(o_ext, &ext, 1, 2, "extremes") < 0))
         goto done;
     if (frames < 0 || channels < 1 || out.shape[0] != channels || out.shape[1] < frames
-        || raw.shape[0] < 3 * frames * channels + 1) {
-        PyErr_SetString(PyExc_ValueError, "unpack24_rows: raw (> 3*frames*channels,) uint8, out (channels, >= frames)");
+        || raw.shape[0] < 3 * frames * channels + 1
+        || (o_ext != Py_None && (ext.shape[0] != 2 || ext.shape[1] != channels))) {
+        PyErr_SetString(PyExc_ValueError, "unpack24_rows: raw (> 3*frames*channels,) uint8, out (channels, >= frames), "
+                                          "extremes (2, channels)");
         goto done;
     }
     {
         const unsigned char *rs = raw.buf;
-        double *os = out.buf;
+        double *os = out.buf, *es = o_ext != Py_None ? ext.buf : NULL;
         Py_ssize_t width = out.shape[1];
         Py_BEGIN_ALLOW_THREADS
-        unpack24_loop(rs, frames, channels, os, width);
+        unpack24_loop(rs, frames, channels, os, width, es);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
     Py_INCREF(result);
 done:
+    PyBuffer_Release(&ext);
     PyBuffer_Release(&out);
     PyBuffer_Release(&raw);
     return result;
@@ -1279,8 +1290,9 @@ static PyMethodDef methods[] = {
      "3-byte codes at out[offset::stride]; the count of clipped samples not in counted, or -1 for a\n"
      "row holding NaN or infinity (left unfinished); see chainrun/audio/quantise.py."},
     {"unpack24_rows", unpack24_rows, METH_VARARGS,
-     "unpack24_rows(raw, frames, channels, out): packed little-endian 3-byte interleaved samples into\n"
-     "out[:, :frames] (float64, channels x width) as code / 2**23; see chainrun/audio/reader.py."},
+     "unpack24_rows(raw, frames, channels, out[, extremes]): packed little-endian 3-byte interleaved samples\n"
+     "into out[:, :frames] (float64, channels x width) as code / 2**23, and with extremes (float64, 2 x\n"
+     "channels; frames >= 1) each row's max and min into its two rows; see chainrun/audio/reader.py."},
     {NULL, NULL, 0, NULL},
 };
 

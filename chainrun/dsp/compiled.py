@@ -31,7 +31,7 @@ __all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "linear_two", 
            "screen_rows", "pack24_row", "unpack24_rows", "row_sums", "segment_sums", "row_extremes"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 10                                   # CASCADE_ABI in _cascade.c
+_ABI = 11                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 

@@ -341,8 +341,11 @@ def test_unpack24_gives_the_numpy_forms_values(monkeypatch, channels, frames):
     for loop in (compiled_loop, None):
         monkeypatch.setattr(kernel, "unpack24_rows", loop)
         out = np.full((channels, frames + 3), np.nan)
-        got.append(unpack24(raw, frames, channels, out).tobytes())
+        ext = np.full((2, channels), np.nan)
+        got.append(unpack24(raw, frames, channels, out, extremes=ext).tobytes())
         assert np.isnan(out[:, frames:]).all()                            # nothing written past the frames
+        if frames:                                  # each row's max and min, numpy's (from the registry)
+            assert np.array_equal(ext, [out[:, :frames].max(axis=1), out[:, :frames].min(axis=1)])
     assert got[0] == got[1]
     with pytest.raises(ValueError, match="raw"):
         compiled_loop(raw[:3 * channels * frames], frames, channels, np.empty((channels, frames)))
