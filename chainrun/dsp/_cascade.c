@@ -34,8 +34,9 @@
  * extensions: SSE2 on x86-64, NEON on AArch64): lane-wise IEEE operations, so each lane's
  * result is exactly the scalar one.  An odd last channel runs the scalar loop.
  *
- * Four small loops serve the true-peak meter around its matrix products (fold_rows, absmax_sum,
- * absmax_runs, screen_rows; chainrun/dsp/fold.py holds their numpy forms, which give the same bits).
+ * Small loops serve the true-peak meter around its matrix products (fold_rows, absmax_sum,
+ * absmax_runs, prescreen_rows, screen_picked; chainrun/dsp/fold.py holds their numpy forms, which give
+ * the same bits).
  *
  * Two byte loops serve PCM_24 files: pack24_row (quantise one channel row and store its three-byte
  * codes) and unpack24_rows (the reverse); see their block just before the method table.
@@ -64,7 +65,7 @@
 #endif              /* GCC ignores the pragma: setup.py passes -ffp-contract=off */
 
 /* Bump when the calling convention changes; compiled.py refuses a build of another version. */
-#define CASCADE_ABI 11
+#define CASCADE_ABI 12
 
 #ifndef CASCADE_SOURCE_DIGEST
 #define CASCADE_SOURCE_DIGEST ""
@@ -746,53 +747,178 @@ done:
     return result;
 }
 
-/* The true-peak meter's screen of the rows of one product (chainrun/meters/truepeak.py, _screened;
- * chainrun/dsp/fold.py holds the numpy form, which gives the same results).  a2, b2: float32
- * (R, Q), the folded branch-2 products of R rows; z: float32 samples, the product's from `start`
- * on (R*32 + 37 of them).  Per row r: P2 = max(|a2| + |b2|) over its Q values (float32), X = the
- * peak |z| of runs r, r+1 and r+2 of 32 samples (the row's 69 samples lie in them); the row is
- * kept when (0.5 * (X * one_eps + P2) + l13_eps * X) * one_tiny > level, level being the larger of
- * `level` and every P2 and run peak of the product.  Returns (max P2, number kept); the kept rows'
- * indices go to rows (int64, R), in order.  Double operations in this order, each rounded once. */
-static PyObject *
-screen_rows(PyObject *self, PyObject *args)
+/* The true-peak meter's prescreen of the rows of one product (chainrun/meters/truepeak.py, _screened;
+ * chainrun/dsp/fold.py holds the numpy form, which gives the same results).  z: float32 samples,
+ * the product's R rows of 69 from `start` on (R*32 + 37 of them).  Per row r, X = the peak |z| of
+ * runs r, r+1 and r+2 of 32 samples (its 69 samples lie in them), and for each of its 32 instants j the value
+ * of the 8 taps of branch 2 nearest to it, c_j = sum over k of centre[k][j] * z[32r + j + 15 + k]
+ * (float32 products and sums, k in order, from 0); P2b = max |c_j| + tail * X bounds every branch-2 value
+ * the products would compute (`tail`: the other taps' L1 norm plus the allowances for rounding).
+ * The level is the larger of `level` and every run peak of the product.  A row is a candidate when
+ * P2b * one_tiny or (0.5 * (X * one_eps + P2b) + l13_eps * X) * one_tiny (screen_picked's bound of
+ * branches 1 and 3, with P2b for P2) passes the level; its folded samples go to s and d (as
+ * fold_rows), its X to xs and its index to rows, the candidates packed in order.  Returns (level,
+ * number of candidates).  Double operations in this order, each rounded once. */
+#define PRESCREEN_TAPS 8
+typedef float lanes16f_t __attribute__((vector_size(64)));
+
+/* max |c_j| over a row's 32 instants: c_j in float32, the taps in order (two vectors of 16 instants) */
+static inline __attribute__((always_inline)) double
+prescreen_peak(const float *restrict x, const float *restrict centre)
 {
-    PyObject *o_a, *o_b, *o_z, *o_rows, *result = NULL;
-    Py_ssize_t start;
-    double one_eps, l13_eps, one_tiny, level;
-    Py_buffer a = {0}, b = {0}, z = {0}, rows = {0};
-    if (!PyArg_ParseTuple(args, "OOOnddddO:screen_rows", &o_a, &o_b, &o_z, &start, &one_eps, &l13_eps,
-                          &one_tiny, &level, &o_rows))
+    lanes16f_t a0 = {0}, a1 = {0}, v, c;
+    for (int k = 0; k < PRESCREEN_TAPS; k++) {
+        memcpy(&c, centre + 32 * k, sizeof c);
+        memcpy(&v, x + 15 + k, sizeof v);
+        a0 += c * v;
+        memcpy(&c, centre + 32 * k + 16, sizeof c);
+        memcpy(&v, x + 31 + k, sizeof v);
+        a1 += c * v;
+    }
+    float t[32];
+    memcpy(t, &a0, sizeof a0);
+    memcpy(t + 16, &a1, sizeof a1);
+    uint32_t m = 0;
+    for (int j = 0; j < 32; j++) {
+        uint32_t u;
+        memcpy(&u, &t[j], sizeof u);
+        u &= 0x7fffffffu;                                       /* |c_j|: no NaN here (finite samples) */
+        m = u > m ? u : m;
+    }
+    return tp_from_bits(m);
+}
+
+/* The peaks of the runs of 32 of n samples (the last run short, runs past the samples 0.0) into runs[0 ..
+ * n_runs - 1]; returns the larger of `level` and all of them. */
+VECTOR_LOOP static double
+runs_loop(const float *zs, Py_ssize_t n, double *runs, Py_ssize_t n_runs, double level)
+{
+    for (Py_ssize_t k = 0; k < n_runs; k++) {
+        Py_ssize_t r0 = 32 * k, r1 = r0 + 32 < n ? r0 + 32 : n;
+        uint32_t m = 0;
+        for (Py_ssize_t i = r0; i < r1; i++) {
+            uint32_t u;
+            float t = fabsf(zs[i]);
+            memcpy(&u, &t, sizeof u);
+            m = u > m ? u : m;
+        }
+        runs[k] = tp_from_bits(m);
+        if (runs[k] > level)
+            level = runs[k];
+    }
+    return level;
+}
+
+/* The prescreen's loop over the rows (see prescreen_rows below); returns the number of candidates. */
+VECTOR_LOOP static Py_ssize_t
+prescreen_loop(const float *zs, Py_ssize_t n_rows, const double *runs, const float *centre, double tail,
+               double one_eps, double l13_eps, double one_tiny, double level, float *ss, float *ds,
+               double *xo, int64_t *out)
+{
+    Py_ssize_t n = 0;
+    for (Py_ssize_t r = 0; r < n_rows; r++) {
+        double x = runs[r];
+        if (runs[r + 1] > x)
+            x = runs[r + 1];
+        if (runs[r + 2] > x)
+            x = runs[r + 2];
+        double p2b = prescreen_peak(zs + 32 * r, centre) + tail * x;
+        double b13 = (0.5 * (x * one_eps + p2b) + l13_eps * x) * one_tiny;
+        if (p2b * one_tiny > level || b13 > level) {
+            fold_loop(zs, 32 * r, 32, 1, 34, ss + 35 * n, ds + 34 * n);
+            xo[n] = x;
+            out[n++] = r;
+        }
+    }
+    return n;
+}
+
+static PyObject *
+prescreen_rows(PyObject *self, PyObject *args)
+{
+    PyObject *o_z, *o_c, *o_s, *o_d, *o_x, *o_rows, *result = NULL;
+    Py_ssize_t start, n_rows;
+    double tail, one_eps, l13_eps, one_tiny, level;
+    Py_buffer z = {0}, c = {0}, s = {0}, d = {0}, xs = {0}, rows = {0};
+    if (!PyArg_ParseTuple(args, "OnnOdddddOOOO:prescreen_rows", &o_z, &start, &n_rows, &o_c, &tail, &one_eps,
+                          &l13_eps, &one_tiny, &level, &o_s, &o_d, &o_x, &o_rows))
         return NULL;
-    if (get_floats(o_a, &a, 0, "a2") < 0 || get_floats(o_b, &b, 0, "b2") < 0 || get_floats(o_z, &z, 0, "z") < 0)
+    if (get_floats(o_z, &z, 0, "z") < 0 || get_floats(o_c, &c, 0, "centre") < 0
+        || get_floats(o_s, &s, 1, "s") < 0 || get_floats(o_d, &d, 1, "d") < 0
+        || get_doubles(o_x, &xs, 1, 1, "xs") < 0 || get_array(o_rows, &rows, 1, 1, 8, "ql", "int64", "rows") < 0)
         goto done;
-    if (get_array(o_rows, &rows, 1, 1, 8, "ql", "int64", "rows") < 0)
-        goto done;
-    Py_ssize_t n_rows = a.ndim == 2 ? a.shape[0] : -1, q = a.ndim == 2 ? a.shape[1] : 0;
-    if (a.ndim != 2 || b.ndim != 2 || b.shape[0] != n_rows || b.shape[1] != q || z.ndim != 1 || q < 1
-        || rows.shape[0] < n_rows || start < 0 || start + 32 * n_rows + 37 > z.shape[0]) {
-        PyErr_SetString(PyExc_ValueError, "screen_rows: a2, b2 float32 (R, Q); z float32 holding start + 32R + 37 "
-                                          "samples; rows int64 (R,)");
+    if (z.ndim != 1 || n_rows < 0 || start < 0 || start + 32 * n_rows + 37 > z.shape[0]
+        || c.ndim != 2 || c.shape[0] != PRESCREEN_TAPS || c.shape[1] != 32 || s.ndim != 2 || d.ndim != 2
+        || s.shape[1] != 35 || d.shape[1] != 34 || s.shape[0] < n_rows || d.shape[0] < n_rows
+        || xs.shape[0] < n_rows || rows.shape[0] < n_rows) {
+        PyErr_SetString(PyExc_ValueError, "prescreen_rows: z float32 holding start + 32R + 37 samples, centre float32 (8, 32), "
+                                          "s (>= R, 35), d (>= R, 34), xs (>= R,), rows (>= R,)");
         goto done;
     }
     {
-        const float *as = a.buf, *bs = b.buf, *zs = (const float *)z.buf + start;
+        const float *zs = (const float *)z.buf + start;
+        const float *cs = c.buf;
+        float *ss = s.buf, *ds = d.buf;
+        double *xo = xs.buf;
         int64_t *out = rows.buf;
-        Py_ssize_t kept = 0, n_runs = n_rows + 2, n_z = 32 * n_rows + 37;
-        double p2max = 0.0;
-        double *runs = PyMem_RawMalloc((size_t)(n_runs + n_rows) * sizeof(double));
+        Py_ssize_t n = 0, n_runs = n_rows + 2, n_z = 32 * n_rows + 37;
+        double *runs = PyMem_RawMalloc((size_t)(n_runs > 0 ? n_runs : 1) * sizeof(double));
         if (runs == NULL) {
             PyErr_NoMemory();
             goto done;
         }
-        double *p2 = runs + n_runs;
         Py_BEGIN_ALLOW_THREADS
-        for (Py_ssize_t k = 0; k < n_runs; k++) {
-            Py_ssize_t r0 = 32 * k, r1 = r0 + 32 < n_z ? r0 + 32 : n_z;
-            runs[k] = tp_from_bits(absmax_loop(zs + r0, r1 - r0));
-            if (runs[k] > level)
-                level = runs[k];
+        level = runs_loop(zs, n_z, runs, n_runs, level);
+        n = prescreen_loop(zs, n_rows, runs, cs, tail, one_eps, l13_eps, one_tiny, level, ss, ds, xo, out);
+        Py_END_ALLOW_THREADS
+        PyMem_RawFree(runs);
+        result = Py_BuildValue("(dn)", level, n);
+    }
+done:
+    PyBuffer_Release(&rows);
+    PyBuffer_Release(&xs);
+    PyBuffer_Release(&d);
+    PyBuffer_Release(&s);
+    PyBuffer_Release(&c);
+    PyBuffer_Release(&z);
+    return result;
+}
+
+/* The screen of the prescreen's candidates (chainrun/dsp/fold.py screen_picked): a2, b2 float32 (N, Q),
+ * their folded branch-2 products, xs (N,) their X.  Per row, P2 = max(|a2| + |b2|) over its Q values
+ * (float32); the level is raised to the largest P2; a row is kept when
+ * (0.5 * (X * one_eps + P2) + l13_eps * X) * one_tiny passes it.  Returns (max P2, number kept); the
+ * kept rows' indices (into the N) go to rows, in order.  Double operations in this order. */
+static PyObject *
+screen_picked(PyObject *self, PyObject *args)
+{
+    PyObject *o_a, *o_b, *o_x, *o_rows, *result = NULL;
+    double one_eps, l13_eps, one_tiny, level;
+    Py_buffer a = {0}, b = {0}, xs = {0}, rows = {0};
+    if (!PyArg_ParseTuple(args, "OOOddddO:screen_picked", &o_a, &o_b, &o_x, &one_eps, &l13_eps, &one_tiny,
+                          &level, &o_rows))
+        return NULL;
+    if (get_floats(o_a, &a, 0, "a2") < 0 || get_floats(o_b, &b, 0, "b2") < 0
+        || get_doubles(o_x, &xs, 0, 1, "xs") < 0 || get_array(o_rows, &rows, 1, 1, 8, "ql", "int64", "rows") < 0)
+        goto done;
+    Py_ssize_t n_rows = a.ndim == 2 ? a.shape[0] : -1, q = a.ndim == 2 ? a.shape[1] : 0;
+    if (a.ndim != 2 || b.ndim != 2 || b.shape[0] != n_rows || b.shape[1] != q || q < 1
+        || xs.shape[0] != n_rows || rows.shape[0] < n_rows) {
+        PyErr_SetString(PyExc_ValueError, "screen_picked: a2, b2 float32 (N, Q); xs (N,); rows int64 (>= N,)");
+        goto done;
+    }
+    {
+        const float *as = a.buf, *bs = b.buf;
+        const double *x = xs.buf;
+        int64_t *out = rows.buf;
+        Py_ssize_t kept = 0;
+        double p2max = 0.0;
+        double *p2 = PyMem_RawMalloc((size_t)(n_rows > 0 ? n_rows : 1) * sizeof(double));
+        if (p2 == NULL) {
+            PyErr_NoMemory();
+            goto done;
         }
+        Py_BEGIN_ALLOW_THREADS
         for (Py_ssize_t r = 0; r < n_rows; r++) {
             p2[r] = tp_from_bits(absmax_sum_loop(as + r * q, bs + r * q, q));
             if (p2[r] > p2max)
@@ -801,22 +927,17 @@ screen_rows(PyObject *self, PyObject *args)
         if (p2max > level)
             level = p2max;
         for (Py_ssize_t r = 0; r < n_rows; r++) {
-            double x = runs[r];
-            if (runs[r + 1] > x)
-                x = runs[r + 1];
-            if (runs[r + 2] > x)
-                x = runs[r + 2];
-            double bound = (0.5 * (x * one_eps + p2[r]) + l13_eps * x) * one_tiny;
+            double bound = (0.5 * (x[r] * one_eps + p2[r]) + l13_eps * x[r]) * one_tiny;
             if (bound > level)
                 out[kept++] = r;
         }
         Py_END_ALLOW_THREADS
-        PyMem_RawFree(runs);
+        PyMem_RawFree(p2);
         result = Py_BuildValue("(dn)", p2max, kept);
     }
 done:
     PyBuffer_Release(&rows);
-    PyBuffer_Release(&z);
+    PyBuffer_Release(&xs);
     PyBuffer_Release(&b);
     PyBuffer_Release(&a);
     return result;
@@ -1281,9 +1402,12 @@ static PyMethodDef methods[] = {
     {"segment_sums", segment_sums, METH_VARARGS,
      "segment_sums(x, starts, stop, out): out (R, K) = numpy.add.reduceat(x[:, :stop], starts, axis=1), the same\n"
      "bits (x (R, N) float64, starts (K,) int64); see chainrun/dsp/sums.py."},
-    {"screen_rows", screen_rows, METH_VARARGS,
-     "screen_rows(a2, b2, z, start, one_eps, l13_eps, one_tiny, level, rows) -> (max P2, kept): the true-peak\n"
-     "meter's screen of one product's rows (see chainrun/dsp/fold.py)."},
+    {"prescreen_rows", prescreen_rows, METH_VARARGS,
+     "prescreen_rows(z, start, R, centre, tail, one_eps, l13_eps, one_tiny, level, s, d, xs, rows) -> (level, n):\n"
+     "the true-peak meter's prescreen of one product's rows (see chainrun/dsp/fold.py)."},
+    {"screen_picked", screen_picked, METH_VARARGS,
+     "screen_picked(a2, b2, xs, one_eps, l13_eps, one_tiny, level, rows) -> (max P2, kept): the screen of the\n"
+     "prescreen's candidates (see chainrun/dsp/fold.py)."},
     {"pack24_row", pack24_row, METH_VARARGS,
      "pack24_row(y, scale, r, channel, counted, safe, lo, hi, out, offset, stride, big_endian) -> count:\n"
      "quantise one float64 row (dither r[:, channel] or None, rint, clip to [lo, hi] unless safe) into\n"

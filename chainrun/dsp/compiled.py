@@ -1,6 +1,6 @@
 """The optional compiled biquad cascade: the same bytes as scipy.signal.sosfilt, in less CPU.
 
-``fold_rows``, ``absmax_sum``, ``absmax_runs`` and ``screen_rows`` are the true-peak meter's loops around its matrix products
+``fold_rows``, ``absmax_sum``, ``absmax_runs``, ``prescreen_rows`` and ``screen_picked`` are the true-peak meter's loops around its matrix products
 (chainrun/dsp/fold.py), or None.
 
 ``pack24_row`` and ``unpack24_rows`` are PCM_24's quantise-and-pack of one channel row and its
@@ -28,10 +28,11 @@ from pathlib import Path
 import numpy as np
 
 __all__ = ["AVAILABLE", "REASON", "ENV_OFF", "cascade", "linear", "linear_two", "cascade_rows", "fold_rows", "absmax_sum", "absmax_runs",
-           "screen_rows", "pack24_row", "unpack24_rows", "row_sums", "segment_sums", "row_extremes"]
+           "prescreen_rows", "screen_picked", "pack24_row", "unpack24_rows", "row_sums", "segment_sums",
+           "row_extremes"]
 
 ENV_OFF = "CHAINRUN_NO_KERNEL"
-_ABI = 11                                   # CASCADE_ABI in _cascade.c
+_ABI = 12                                   # CASCADE_ABI in _cascade.c
 _SOURCE = Path(__file__).with_name("_cascade.c")
 
 
@@ -132,7 +133,8 @@ cascade_rows = _module.cascade if AVAILABLE else None
 fold_rows = _module.fold_rows if AVAILABLE else None
 absmax_sum = _module.absmax_sum if AVAILABLE else None
 absmax_runs = _module.absmax_runs if AVAILABLE else None
-screen_rows = _module.screen_rows if AVAILABLE else None
+prescreen_rows = _module.prescreen_rows if AVAILABLE else None
+screen_picked = _module.screen_picked if AVAILABLE else None
 # The RMS meter's sums (chainrun/dsp/sums.py holds the numpy form).
 row_sums = _module.row_sums if AVAILABLE else None
 # The loudness meter's sub-block sums, numpy.add.reduceat's bits (chainrun/dsp/sums.py).

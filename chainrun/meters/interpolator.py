@@ -105,6 +105,14 @@ class _Screen:
     ``l13`` is the largest L1 norm of any of them (about 0.39), taken from the float32 weights the
     products use.  So ``|branch 1 or 3| <= (max |samples| + max |branch 2|) / 2 + l13 * max |samples|``
     over a row, in exact arithmetic (chainrun.meters.truepeak says how rounding is allowed for).
+
+    ``centre`` (float32, 8 x 32) and ``tail``, for the prescreen: ``centre[k, j]`` is the weight of
+    branch 2's instant ``j`` of a row on the row's sample ``j + 15 + k`` (the 8 samples nearest to
+    it, ``s - 3 .. s + 4``), rounded to float32, and ``tail`` the largest L1 norm of the other
+    weights of any instant (about 0.51): every value of branch 2 is, in exact arithmetic, the
+    instant's sum over ``centre`` plus at most ``tail`` times the row's sample peak, within the
+    weights' rounding (at most 2**-24 of their L1 norm, 2.2, times that peak; the prescreen allows
+    for it and for its float32 sums, chainrun.meters.truepeak).
     """
 
     e2: np.ndarray
@@ -112,6 +120,8 @@ class _Screen:
     e13: np.ndarray
     o13: np.ndarray
     l13: float
+    centre: np.ndarray
+    tail: float
 
 
 def _screen(e: np.ndarray, o: np.ndarray) -> _Screen:
@@ -127,10 +137,13 @@ def _screen(e: np.ndarray, o: np.ndarray) -> _Screen:
         w[h] = e64[h, pair]
         return w
 
-    worst = 0.0
+    worst, centre, tail = 0.0, np.empty((8, row)), 0.0
     for j in range(row):
         b1, b3 = taps(j, 1.0), taps(row - 1 - j, -1.0)
         b2 = taps(row + j, 1.0) if j < row // 2 else taps(row + row - 1 - j, -1.0)
+        near = slice(j + _TP_TAPS // 2 - 4, j + _TP_TAPS // 2 + 4)     # samples s - 3 .. s + 4 (s: j + 18)
+        centre[:, j] = b2[near]
+        tail = max(tail, float(np.abs(b2).sum() - np.abs(b2[near]).sum()))
         at_s, at_next = np.zeros(span), np.zeros(span)
         at_s[j + _TP_TAPS // 2 - 1] = 1.0             # the sample at s: tap 18 of instant j
         at_next[j + _TP_TAPS // 2] = 1.0              # the sample at s + 1
@@ -139,7 +152,9 @@ def _screen(e: np.ndarray, o: np.ndarray) -> _Screen:
     parts = [np.ascontiguousarray(a[:, cols]) for a in (e, o) for cols in (slice(row, None), slice(0, row))]
     for a in parts:
         a.setflags(write=False)
-    return _Screen(parts[0], parts[2], parts[1], parts[3], worst * (1.0 + 1e-9))
+    centre = centre.astype(np.float32)
+    centre.setflags(write=False)
+    return _Screen(parts[0], parts[2], parts[1], parts[3], worst * (1.0 + 1e-9), centre, tail * (1.0 + 1e-9))
 
 
 def _column_pairs(factor: int) -> tuple[np.ndarray, np.ndarray]:

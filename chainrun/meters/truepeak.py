@@ -6,11 +6,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..dsp.fold import absmax_runs, absmax_sum, fold_rows, screen_rows
+from ..dsp.fold import absmax_runs, absmax_sum, fold_rows, prescreen_rows, screen_picked
 from .interpolator import (_SCREEN_EPS, _TP_CALL_OUT, _TP_CLAMP, _TP_DTYPE, _TP_GROUP, _TP_HALF, _TP_ROW, _TP_ROWS_PER_CALL,
                            _TP_TAPS, _oversampling, _weights)
 
 __all__ = ["TruePeakMeter", "TruePeakReading"]
+
+# The prescreen's allowance, times the row's sample peak X, for its own arithmetic: its weights rounded to
+# float32 (at most 2**-24 of their L1 norm, 2.2: 1.3e-7) and its sums of 8 float32 products (at most
+# 8 * 2**-24 / (1 - 8 * 2**-24) of the sum of their magnitudes, 2.2 X: 1.1e-6), with a margin.
+_PRESCREEN_EPS = 2.0e-6
 
 def _products(s: np.ndarray, d: np.ndarray, e: np.ndarray, o: np.ndarray, a: np.ndarray, b: np.ndarray,
               products: list[int]) -> None:
@@ -114,21 +119,25 @@ class TruePeakMeter:
     makes quiet passages cheap.  Finite samples beyond +-1e30 are clamped to
     +-1e30 for the interpolation only (single precision cannot hold them).
 
-    At 4x the rows of a product are screened as well: branch 2 (the
-    half-sample instants, a third of the multiply-adds) is computed for every
-    row, and branches 1 and 3 only for the rows where they could pass the
-    level reached so far.  Branch 1 at ``s + 1/4`` is the mean of the sample at
-    ``s`` and branch 2 at ``s + 1/2`` plus a filter of the row's samples whose
-    L1 norm is at most 0.39 (branch 3 likewise, with the sample at ``s + 1``),
-    so over a row ``|branch 1 or 3| <= (X + P2) / 2 + 0.39 X`` with ``X`` the
-    row's sample peak and ``P2`` its branch-2 peak (chainrun/meters/
-    interpolator.py computes the constant from the weights in use; the
-    rounding of computed values is allowed for).  On noise, 1-3 % of the rows
-    are computed in full.  This is exact too: the skipped values cannot pass
-    values already in the reading.  The level it compares with depends only
-    on the stream (the interpolated peak of earlier products, this product's
-    samples and branch-2 values), so which rows are computed does not depend
-    on the blocks either.
+    At 4x the rows of a product are screened as well, so that a row is
+    computed only as far as it could pass the level reached so far.  Branch 1
+    at ``s + 1/4`` is the mean of the sample at ``s`` and branch 2 at
+    ``s + 1/2`` plus a filter of the row's samples whose L1 norm is at most
+    0.39 (branch 3 likewise, with the sample at ``s + 1``), so over a row
+    ``|branch 1 or 3| <= (X + P2) / 2 + 0.39 X`` with ``X`` the row's sample
+    peak and ``P2`` its branch-2 peak.  And every branch-2 value is its 8
+    nearest taps' sum plus at most 0.51 X (the other taps' L1 norm), so a
+    prescreen that takes only those 8 taps, in single precision, bounds ``P2``
+    for every row at a quarter of the multiply-adds of branch 2.  Branch 2 is
+    computed only for the rows where that bound could pass the level (about
+    6 % of the rows of noise), and branches 1 and 3 only where the bound with
+    the computed ``P2`` could (under 1 %).  chainrun/meters/interpolator.py
+    computes the constants from the weights in use; the rounding of computed
+    values and of the prescreen's own sums is allowed for.  This is exact
+    too: the values left out cannot pass values already in the reading.  The
+    level it compares with depends only on the stream (the interpolated peak
+    of earlier products, this product's samples and computed branch-2 values),
+    so which rows are computed does not depend on the blocks either.
 
     State between blocks is at most channels * (16384 + 37) samples, whatever
     the length of the stream.
@@ -164,12 +173,16 @@ class TruePeakMeter:
             self._d = np.empty((rows, _TP_HALF), dtype=_TP_DTYPE)
             self._a = np.empty((rows, pairs), dtype=_TP_DTYPE)          # s @ e and d @ o
             self._b = np.empty((rows, pairs), dtype=_TP_DTYPE)
-            if self._fw.screen is not None:                              # branch 2 alone (_screened)
-                self._a2 = np.empty((rows, self._fw.screen.e2.shape[1]), dtype=_TP_DTYPE)
+            if self._fw.screen is not None:                              # the prescreen's candidates (_screened)
+                rpc = _TP_ROWS_PER_CALL
+                self._a2 = np.empty((rpc, self._fw.screen.e2.shape[1]), dtype=_TP_DTYPE)   # their branch 2
                 self._b2 = np.empty_like(self._a2)
-                self._kept = np.empty(_TP_ROWS_PER_CALL, dtype=np.int64)    # rows the screen keeps
-        self.rows_screened = 0      # rows whose branch 2 was computed by the screen, and of those,
-        self.rows_computed = 0      # the rows whose branches 1 and 3 were computed too
+                self._xs = np.empty(rpc)                                    # their samples' peaks
+                self._picked = np.empty(rpc, dtype=np.int64)                # which rows they are
+                self._kept = np.empty(rpc, dtype=np.int64)                  # those the screen keeps
+        self.rows_screened = 0      # rows the screen looked at; of those, the rows whose branch 2 was
+        self.rows_picked = 0        # computed, and of those, the rows whose branches 1 and 3 were
+        self.rows_computed = 0      # computed too
 
     def update(self, block: np.ndarray, extremes: tuple[np.ndarray, np.ndarray] | None = None) -> None:
         """Meter one block (channels x frames, float64, C-contiguous); see :meth:`MeterBank.update`."""
@@ -260,33 +273,47 @@ class TruePeakMeter:
             into[c] = max(float(into[c]), self._rows_peak(z, zbad, c, start, n_rows, todo, None))
 
     def _screened(self, z: np.ndarray, c: int, start: int, n_rows: int, todo: list[int], into: np.ndarray) -> None:
-        """Products ``todo`` of the rows from instant ``start`` on (finite samples, 4x): branch 2 of every
-        row, branches 1 and 3 only of the rows the screen cannot clear.
+        """Products ``todo`` of the rows from instant ``start`` on (finite samples, 4x), screened: a row is
+        computed only as far as it could pass the level.
 
-        Of a row, ``X`` is the peak of its samples (of the three runs of 32 under its 69) and ``P2``
-        the peak of its branch-2 values as computed; every branch-1 or -3 value of the row, as the
-        full products would compute it, is at most ``(X (1 + eps) + P2) / 2 + (l13 + 1.5 eps) X``
-        (:class:`~chainrun.meters.interpolator._Screen`; ``eps`` = _SCREEN_EPS covers the rounding
-        of the computed values, 1.15e-5 of ``X`` each).  A row whose bound does not pass the level
-        (the interpolated peak so far, and this product's own branch-2 values and samples, which
-        all count in the reading) cannot raise the reading and is not computed further. The level
-        depends only on the stream, not on its blocks, and so does which rows are computed.
+        Of a row, ``X`` is the peak of its samples (of the three runs of 32 under its 69).  The
+        prescreen (:func:`~chainrun.dsp.fold.prescreen_rows`) takes, for each instant of branch 2,
+        the sum over the 8 samples nearest to it (float32), and ``P2b`` = the largest magnitude of
+        those plus ``(tail + eps) X`` (:class:`~chainrun.meters.interpolator._Screen`: the other
+        taps' L1 norm, about 0.51; ``eps`` = _SCREEN_EPS covers the rounding of a computed value,
+        1.15e-5 of ``X``, and _PRESCREEN_EPS that of the prescreen's float32 weights and sums) is at
+        least every branch-2 value the products would compute for the row.  Every branch-1 or -3 value is at most
+        ``(X (1 + eps) + P2) / 2 + (l13 + 1.5 eps) X`` with ``P2`` the row's computed branch-2
+        peak, so at most that bound with ``P2b``.  A row where neither ``P2b`` nor that bound passes
+        the level cannot raise the reading and is left there.  Branch 2 of the others (the
+        candidates, about 2 % of the rows of noise) is computed, and their branches 1 and 3 only
+        where the bound with their own ``P2`` passes the level
+        (:func:`~chainrun.dsp.fold.screen_picked`).
+
+        The level of a product is the interpolated peak so far, the peak of the product's samples
+        and of its candidates' branch-2 values; all of them count in the reading (a row left at
+        the prescreen has its branch-2 values below the level), so the reading is that of every row
+        computed.  The level depends only on the stream, not on its blocks, and so does which rows
+        are computed.
         """
         sc, rpc = self._fw.screen, _TP_ROWS_PER_CALL
-        s, d = self._s[:n_rows], self._d[:n_rows]
-        fold_rows(z[c], start, _TP_ROW, s, d)
-        a, b = self._a2[:n_rows], self._b2[:n_rows]
-        _products(s, d, sc.e2, sc.o2, a, b, todo)
-        kept = self._kept
-        one_eps, l13_eps = 1.0 + _SCREEN_EPS, sc.l13 + 1.5 * _SCREEN_EPS
+        s, d, xs, picked, kept = self._s, self._d, self._xs, self._picked, self._kept
+        one_eps, l13_eps, one_tiny = 1.0 + _SCREEN_EPS, sc.l13 + 1.5 * _SCREEN_EPS, 1.0 + 1e-9
+        tail = sc.tail + _SCREEN_EPS + _PRESCREEN_EPS
         for k in todo:
-            r0, r1 = k * rpc, (k + 1) * rpc
-            peak, n = screen_rows(a[r0:r1], b[r0:r1], z[c], start + r0 * _TP_ROW, one_eps, l13_eps, 1.0 + 1e-9,
-                                  float(into[c]), kept)
+            level, n = prescreen_rows(z[c], start + k * rpc * _TP_ROW, rpc, sc.centre, tail, one_eps, l13_eps,
+                                      one_tiny, float(into[c]), s, d, xs, picked)
             self.rows_screened += rpc
-            if n:
-                self.rows_computed += n
-                rows = kept[:n] + r0
+            if not n:
+                continue
+            self.rows_picked += n
+            a, b = self._a2[:n], self._b2[:n]
+            np.matmul(s[:n], sc.e2, out=a)
+            np.matmul(d[:n], sc.o2, out=b)
+            peak, m = screen_picked(a, b, xs[:n], one_eps, l13_eps, one_tiny, level, kept)
+            if m:
+                self.rows_computed += m
+                rows = kept[:m]
                 peak = max(peak, absmax_sum(s[rows] @ sc.e13, d[rows] @ sc.o13))
             into[c] = max(float(into[c]), peak)
 

@@ -15,8 +15,8 @@ from scipy import signal
 
 import chainrun.dsp.compiled as kernel
 from chainrun.dsp import fold
-from chainrun.meters.interpolator import _TP_ROWS_PER_CALL, _TP_SPAN, _interpolation_branches, _weights
-from chainrun.meters.truepeak import TruePeakMeter
+from chainrun.meters.interpolator import _SCREEN_EPS, _TP_ROWS_PER_CALL, _TP_SPAN, _interpolation_branches, _weights
+from chainrun.meters.truepeak import _PRESCREEN_EPS, TruePeakMeter
 
 built = pytest.mark.skipif(not kernel.AVAILABLE and not kernel.REASON.startswith("stale"),
                            reason=f"compiled loops not in use: {kernel.REASON}")
@@ -146,23 +146,89 @@ def test_the_screens_constant_holds_for_the_weights_the_products_use():
     assert max(g1.max(), g3.max()) > 0.5 * sc.l13 * peak.min()  # and not loose by orders of magnitude
 
 
+def _prescreen_args(rng, rows, start, level):
+    sc = _weights(4).screen
+    z = (rng.standard_normal(start + 32 * rows + 37 + int(rng.integers(0, 9))) * 0.3).astype(np.float32)
+    bufs = (np.full((rows, 35), np.nan, np.float32), np.full((rows, 34), np.nan, np.float32),
+            np.full(rows, np.nan), np.full(rows, -1, np.int64))
+    return z, (sc.centre, sc.tail + _SCREEN_EPS + _PRESCREEN_EPS, 1 + _SCREEN_EPS, sc.l13 + 1.5 * _SCREEN_EPS,
+               1 + 1e-9, level), bufs
+
+
 @built
-def test_compiled_screen_gives_numpys_rows():
-    kept_total, rows_total = 0, 0
+def test_compiled_prescreen_and_pick_give_numpys_results():
+    # numpy (reference library): the same level, candidates, folded rows and peaks, bit for bit
+    picked_total, rows_total = 0, 0
     for seed in range(8):
         rng = np.random.default_rng(seed)
-        rows = int(rng.integers(0, 600)) if seed else 0
-        a2 = (rng.standard_normal((rows, 16)) * 0.3).astype(np.float32)
-        b2 = (rng.standard_normal((rows, 16)) * 0.3).astype(np.float32)
-        start = int(rng.integers(0, 50))
-        z = (rng.standard_normal(start + 32 * rows + 37 + int(rng.integers(0, 9))) * 0.3).astype(np.float32)
-        level, l13 = float(rng.uniform(0, 2.5)), float(rng.uniform(0.3, 1.5))
-        got, want = np.full(max(rows, 1), -1, np.int64), np.full(max(rows, 1), -1, np.int64)
-        g = kernel.screen_rows(a2, b2, z, start, 1 + 2e-5, l13, 1 + 1e-9, level, got)
-        w = fold._screen_rows_numpy(a2, b2, z, start, 1 + 2e-5, l13, 1 + 1e-9, level, want)
-        assert g == w and got.tobytes() == want.tobytes()       # numpy (reference library): same results
-        kept_total, rows_total = kept_total + g[1], rows_total + rows
-    assert 0 < kept_total < rows_total                          # the draws keep some rows, not all
+        rows, start = (int(rng.integers(1, 600)) if seed else 0), int(rng.integers(0, 50))
+        z, consts, got = _prescreen_args(rng, rows, start, float(rng.uniform(0, 2.5)))
+        want = tuple(b.copy() for b in got)
+        g = kernel.prescreen_rows(z, start, rows, consts[0], *consts[1:], *got)
+        w = fold._prescreen_rows_numpy(z, start, rows, consts[0], *consts[1:], *want)
+        assert g == w and all(a[:g[1]].tobytes() == b[:g[1]].tobytes() for a, b in zip(got, want))
+        n = g[1]
+        a2 = (rng.standard_normal((n, 16)) * 0.3).astype(np.float32)
+        b2 = (rng.standard_normal((n, 16)) * 0.3).astype(np.float32)
+        kept_c, kept_n = np.full(max(n, 1), -1, np.int64), np.full(max(n, 1), -1, np.int64)
+        pc = kernel.screen_picked(a2, b2, got[2][:n], *consts[2:5], g[0], kept_c)
+        pn = fold._screen_picked_numpy(a2, b2, got[2][:n], *consts[2:5], g[0], kept_n)
+        assert pc == pn and kept_c.tobytes() == kept_n.tobytes()
+        picked_total, rows_total = picked_total + n, rows_total + rows
+    assert 0 < picked_total < rows_total                        # the draws pick some rows, not all
+
+
+def _branch2_taps(fw) -> np.ndarray:
+    """(32, 69): the float64 values of the weights branch 2's instant j of a row puts on its samples."""
+    e, o, h = fw.e.astype(np.float64), fw.o.astype(np.float64), _TP_SPAN // 2
+    taps = np.empty((32, _TP_SPAN))
+    for j in range(32):
+        pair, sign = (32 + j, 1.0) if j < 16 else (63 - j, -1.0)
+        taps[j, :h] = e[:h, pair] + sign * o[:, pair]
+        taps[j, _TP_SPAN - 1:h:-1] = e[:h, pair] - sign * o[:, pair]
+        taps[j, h] = e[h, pair]
+    return taps
+
+
+@pytest.mark.parametrize("kind", ["worst", "noise", "alternating", "quarter", "near-nyquist", "steps"])
+def test_the_prescreens_bound_holds_for_the_branch_2_values_the_products_compute(kind):
+    # The prescreen's P2b against branch 2 as the meter computes it (the folded float32 products):
+    # P2b >= every computed branch-2 value of the row. Analytic: the taps split into the 8 nearest
+    # and the rest, whose L1 norm times the row's peak bounds their sum, plus the rounding allowances.
+    # With the branch-1/3 term switched off (l13 0, no margin), a row is picked exactly when P2b passes
+    # the level, so a level just under the row's computed branch-2 peak must pick it. (The branch-1/3
+    # bound given P2 is the screen's, tested above.) "worst": each row's samples are the signs of one
+    # instant's weights, where the bound is reached to rounding (the test fails with the tail's norm
+    # cut by a fifth); the others are adversarial signals (full-scale alternation, fs/4, 0.449 fs,
+    # steps) and noise.
+    fw, rng = _weights(4), np.random.default_rng(17)
+    n, taps = 256, _branch2_taps(fw)
+    j = np.arange(n * 32 + 37)
+    long = {"noise": lambda: rng.standard_normal(j.size),
+            "alternating": lambda: np.where(j % 2, 1.0, -1.0) * (1 + 0.01 * rng.standard_normal(j.size)),
+            "quarter": lambda: np.sin(2 * np.pi * 0.25 * j + rng.uniform(0, 2 * np.pi)),
+            "near-nyquist": lambda: np.sin(2 * np.pi * 0.449 * j + 0.3),
+            "steps": lambda: np.repeat(rng.choice([-1.0, 1.0], j.size // 5 + 1), 5)[:j.size]}
+    z_all = long[kind]().astype(np.float32) if kind in long else None
+    _, consts, bufs = _prescreen_args(rng, 1, 0, 0.0)
+    s, d = np.empty((1, 35), np.float32), np.empty((1, 34), np.float32)
+    tested = 0
+    for r in range(n):
+        if z_all is None:
+            sign = np.where(taps[r % 32] < 0, -1.0, 1.0)
+            z = (sign * rng.uniform(0.1, 2.0)).astype(np.float32)
+        else:
+            z = np.ascontiguousarray(z_all[32 * r:32 * r + _TP_SPAN])
+        fold._fold_rows_numpy(z, 0, 32, s, d)
+        computed = float((np.abs(s @ fw.screen.e2) + np.abs(d @ fw.screen.o2)).max())
+        level = computed * (1 - 1e-7)
+        if level <= float(np.abs(z).max()):
+            continue                                            # the samples reach it: nothing to show
+        _, picked = fold.prescreen_rows(z, 0, 1, consts[0], consts[1], 1.0, 0.0, 1.0, level, *bufs)
+        assert picked == 1, (kind, r)
+        tested += 1
+    if kind in ("worst", "noise"):
+        assert tested > n // 10
 
 
 def _tp_both_ways(x, monkeypatch, block=65536):
