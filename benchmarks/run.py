@@ -274,6 +274,21 @@ def median_rounds(steps: dict[str, list[str]], rounds: int) -> Medians:
     return Medians(runs)
 
 
+def cpu_times() -> tuple[float, float]:
+    """(all CPU time, steal time) of the machine so far, in seconds (Linux /proc/stat; zeros elsewhere).
+
+    Steal time is time a virtual machine's CPUs were ready to run but the host ran something else;
+    a process's CPU time can include some of it, so a run with much of it reads slower.
+    """
+    try:
+        with open("/proc/stat") as fh:
+            fields = [int(v) for v in fh.readline().split()[1:]]
+        hz = os.sysconf("SC_CLK_TCK")
+        return sum(fields[:8]) / hz, (fields[7] if len(fields) > 7 else 0) / hz
+    except (OSError, ValueError, IndexError):
+        return 0.0, 0.0
+
+
 def machine() -> str:
     cpu = platform.processor() or platform.machine()
     try:
@@ -379,6 +394,7 @@ def main(argv: list[str] | None = None) -> int:
              "D": "D filter floor (C plus sosfilt, nothing else)",
              "I": "I import floor (numpy, soundfile, scipy.signal; no audio)",
              "I0": "I0 numpy and soundfile only (no audio)"}
+    before = cpu_times()
     m = median_rounds({
         "A": chainrun_cmd(recipe, [main_file], out("a"), "--workers", "1"),
         "A2": chainrun_cmd(recipe, [main_file], out("a2"), "--workers", "2"),
@@ -394,6 +410,10 @@ def main(argv: list[str] | None = None) -> int:
         "C short": [sys.executable, floor, short, out("c-short.wav")],
         "D short": [sys.executable, filter_floor, short, out("d-short.wav"), sos_path],
     }, rounds)
+    after = cpu_times()
+    total, steal = after[0] - before[0], after[1] - before[1]
+    lines += [f"Steal time during these rounds (the host running something else while this machine's CPUs were "
+              f"ready): {steal:.2f} s of {total:.1f} s of CPU time ({100 * steal / total if total else 0:.1f} %).", ""]
     lines += [f"## Stereo 48 kHz PCM_24, {main_s:g} s of noise-like content, six biquads; medians of {rounds} rounds",
               "", "| step | median time | CPU time | times real time | peak RSS |", "| --- | ---: | ---: | ---: | ---: |"]
     for k in ("A", "A2", "B", "C", "D", "I", "I0"):
