@@ -750,15 +750,17 @@ done:
 /* The true-peak meter's prescreen of the rows of one product (chainrun/meters/truepeak.py, _screened;
  * chainrun/dsp/fold.py holds the numpy form, which gives the same results).  z: float32 samples,
  * the product's R rows of 69 from `start` on (R*32 + 37 of them).  Per row r, X = the peak |z| of
- * runs r, r+1 and r+2 of 32 samples (its 69 samples lie in them), and for each of its 32 instants j the value
- * of the 8 taps of branch 2 nearest to it, c_j = sum over k of centre[k][j] * z[32r + j + 15 + k]
- * (float32 products and sums, k in order, from 0); P2b = max |c_j| + tail * X bounds every branch-2 value
- * the products would compute (`tail`: the other taps' L1 norm plus the allowances for rounding).
- * The level is the larger of `level` and every run peak of the product.  A row is a candidate when
- * P2b * one_tiny or (0.5 * (X * one_eps + P2b) + l13_eps * X) * one_tiny (screen_picked's bound of
- * branches 1 and 3, with P2b for P2) passes the level; its folded samples go to s and d (as
- * fold_rows), its X to xs and its index to rows, the candidates packed in order.  Returns (level,
- * number of candidates).  Double operations in this order, each rounded once. */
+ * runs r, r+1 and r+2 of 32 samples (its 69 samples lie in them), and for each of its 32 instants
+ * j the value of the 8 taps of branch 2 nearest to it,
+ *     c_j = sum over k of centre[k][j] * z[32r + j + 15 + k]
+ * (float32 products and sums, k in order, from 0); P2b = max |c_j| + tail * X bounds every
+ * branch-2 value the products would compute (`tail`: the other taps' L1 norm plus the allowances
+ * for rounding).  The level is the larger of `level` and every run peak of the product.  A row is
+ * a candidate when P2b * one_tiny or (0.5 * (X * one_eps + P2b) + l13_eps * X) * one_tiny
+ * (screen_picked's bound of branches 1 and 3, with P2b for P2) passes the level; its folded
+ * samples go to s and d (as fold_rows), its X to xs and its index to rows, the candidates packed
+ * in order.  Returns (level, number of candidates).  Float32 and double operations in this order,
+ * each rounded once. */
 #define PRESCREEN_TAPS 8
 typedef float lanes16f_t __attribute__((vector_size(64)));
 
@@ -851,8 +853,9 @@ prescreen_rows(PyObject *self, PyObject *args)
         || c.ndim != 2 || c.shape[0] != PRESCREEN_TAPS || c.shape[1] != 32 || s.ndim != 2 || d.ndim != 2
         || s.shape[1] != 35 || d.shape[1] != 34 || s.shape[0] < n_rows || d.shape[0] < n_rows
         || xs.shape[0] < n_rows || rows.shape[0] < n_rows) {
-        PyErr_SetString(PyExc_ValueError, "prescreen_rows: z float32 holding start + 32R + 37 samples, centre float32 (8, 32), "
-                                          "s (>= R, 35), d (>= R, 34), xs (>= R,), rows (>= R,)");
+        PyErr_SetString(PyExc_ValueError, "prescreen_rows: z float32 holding start + 32R + 37 samples, "
+                                          "centre float32 (8, 32), s (>= R, 35), d (>= R, 34), xs (>= R,), "
+                                          "rows (>= R,)");
         goto done;
     }
     {

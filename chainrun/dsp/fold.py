@@ -118,15 +118,16 @@ def prescreen_rows(z: np.ndarray, start: int, n_rows: int, centre: np.ndarray, t
                    rows: np.ndarray) -> tuple[float, int]:
     """The true-peak meter's prescreen of one product's ``n_rows`` rows (69 samples each, from ``start`` on).
 
-    Per row, ``X`` the peak |z| of runs ``r``, ``r + 1`` and ``r + 2`` of 32 samples (its 69 samples lie
-    in them), and for each of its 32 instants the value of the 8
-    branch-2 taps nearest to it (``centre``, float32 (8, 32): tap ``k`` of instant ``j`` weighs
-    sample ``j + 15 + k`` of the row), in float32, the taps in order; ``P2b`` = the largest magnitude of those plus
-    ``tail * X`` bounds every branch-2 value of the row. The level is the larger of ``level`` and
-    every run peak of the product. A row is a candidate when ``P2b * one_tiny`` or the screen's
-    bound of branches 1 and 3 with ``P2b`` for ``P2`` passes it; the candidates' folded samples go
-    to ``s`` and ``d``, their ``X`` to ``xs`` and their indices to ``rows``, packed in order.
-    Returns (the level, how many candidates). The same double operations in C and numpy.
+    Per row ``r``, ``X`` is the peak |z| of runs ``r``, ``r + 1`` and ``r + 2`` of 32 samples (its
+    69 samples lie in them). For each of its 32 instants, the prescreen sums the 8 branch-2 taps
+    nearest to it (``centre``, float32 (8, 32): tap ``k`` of instant ``j`` weighs sample
+    ``j + 15 + k`` of the row) in float32, the taps in order; ``P2b``, the largest magnitude of
+    those plus ``tail * X``, bounds every branch-2 value of the row. The level is the larger of
+    ``level`` and every run peak of the product. A row is a candidate when ``P2b * one_tiny`` or
+    :func:`screen_picked`'s bound of branches 1 and 3 with ``P2b`` for ``P2`` passes it; the
+    candidates' folded samples go to ``s`` and ``d``, their ``X`` to ``xs`` and their indices to
+    ``rows``, packed in order. Returns (the level, how many candidates). The same float32 and
+    double operations in C and numpy.
     """
     if compiled.prescreen_rows is not None:
         return compiled.prescreen_rows(z, start, n_rows, centre, tail, one_eps, l13_eps, one_tiny, level,

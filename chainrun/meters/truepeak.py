@@ -268,11 +268,11 @@ class TruePeakMeter:
         start, n_rows = k0 * _TP_CALL_OUT, (k1 - k0) * _TP_ROWS_PER_CALL
         if self._fw.screen is not None and self.SCREEN and (
                 zbad is None or not zbad[c, start:start + n_rows * _TP_ROW + _TP_TAPS - 1].any()):
-            self._screened(z, c, start, n_rows, todo, into)
+            self._screened(z, c, start, todo, into)
         else:
             into[c] = max(float(into[c]), self._rows_peak(z, zbad, c, start, n_rows, todo, None))
 
-    def _screened(self, z: np.ndarray, c: int, start: int, n_rows: int, todo: list[int], into: np.ndarray) -> None:
+    def _screened(self, z: np.ndarray, c: int, start: int, todo: list[int], into: np.ndarray) -> None:
         """Products ``todo`` of the rows from instant ``start`` on (finite samples, 4x), screened: a row is
         computed only as far as it could pass the level.
 
@@ -281,13 +281,13 @@ class TruePeakMeter:
         the sum over the 8 samples nearest to it (float32), and ``P2b`` = the largest magnitude of
         those plus ``(tail + eps) X`` (:class:`~chainrun.meters.interpolator._Screen`: the other
         taps' L1 norm, about 0.51; ``eps`` = _SCREEN_EPS covers the rounding of a computed value,
-        1.15e-5 of ``X``, and _PRESCREEN_EPS that of the prescreen's float32 weights and sums) is at
-        least every branch-2 value the products would compute for the row.  Every branch-1 or -3 value is at most
-        ``(X (1 + eps) + P2) / 2 + (l13 + 1.5 eps) X`` with ``P2`` the row's computed branch-2
-        peak, so at most that bound with ``P2b``.  A row where neither ``P2b`` nor that bound passes
-        the level cannot raise the reading and is left there.  Branch 2 of the others (the
-        candidates, about 2 % of the rows of noise) is computed, and their branches 1 and 3 only
-        where the bound with their own ``P2`` passes the level
+        1.15e-5 of ``X``, and _PRESCREEN_EPS that of the prescreen's float32 weights and sums) is
+        at least every branch-2 value the products would compute for the row.  Every branch-1 or
+        -3 value is at most ``(X (1 + eps) + P2) / 2 + (l13 + 1.5 eps) X`` with ``P2`` the row's
+        computed branch-2 peak, so at most that bound with ``P2b``.  A row where neither ``P2b``
+        nor that bound passes the level cannot raise the reading and is left there.  Branch 2 of
+        the others (the candidates, about 6 % of the rows of noise) is computed, and their
+        branches 1 and 3 only where the bound with their own ``P2`` passes the level
         (:func:`~chainrun.dsp.fold.screen_picked`).
 
         The level of a product is the interpolated peak so far, the peak of the product's samples
