@@ -634,8 +634,10 @@ absmax_sum_loop(const float *restrict as, const float *restrict bs, Py_ssize_t n
     return m;
 }
 
-VECTOR_LOOP static uint32_t
-absmax_loop(const float *restrict zs, Py_ssize_t n)
+/* The bits of max |z| over n float32 values (the bit patterns of non-negative floats order as they do);
+ * inlined into the vector loops that need it. */
+static inline __attribute__((always_inline)) uint32_t
+absmax_bits(const float *restrict zs, Py_ssize_t n)
 {
     uint32_t m = 0;
     for (Py_ssize_t i = 0; i < n; i++) {
@@ -645,6 +647,20 @@ absmax_loop(const float *restrict zs, Py_ssize_t n)
         m = u > m ? u : m;
     }
     return m;
+}
+
+/* The peaks of the runs of `run` of n samples (the last run short, runs past the samples 0.0) into
+ * runs[0 .. n_runs - 1]; returns the larger of `level` and all of them. */
+VECTOR_LOOP static double
+runs_loop(const float *zs, Py_ssize_t n, Py_ssize_t run, double *runs, Py_ssize_t n_runs, double level)
+{
+    for (Py_ssize_t k = 0; k < n_runs; k++) {
+        Py_ssize_t r0 = run * k, r1 = r0 + run < n ? r0 + run : n;
+        runs[k] = r1 > r0 ? tp_from_bits(absmax_bits(zs + r0, r1 - r0)) : 0.0;
+        if (runs[k] > level)
+            level = runs[k];
+    }
+    return level;
 }
 
 static int
@@ -735,8 +751,7 @@ absmax_runs(PyObject *self, PyObject *args)
         double *os = out.buf;
         Py_ssize_t n = z.len / 4;
         Py_BEGIN_ALLOW_THREADS
-        for (Py_ssize_t r0 = 0, k = 0; r0 < n; r0 += run, k++)
-            os[k] = tp_from_bits(absmax_loop(zs + r0, (r0 + run < n ? r0 + run : n) - r0));
+        runs_loop(zs, n, run, os, (n + run - 1) / run, 0.0);
         Py_END_ALLOW_THREADS
     }
     result = Py_None;
@@ -780,36 +795,9 @@ prescreen_peak(const float *restrict x, const float *restrict centre)
     float t[32];
     memcpy(t, &a0, sizeof a0);
     memcpy(t + 16, &a1, sizeof a1);
-    uint32_t m = 0;
-    for (int j = 0; j < 32; j++) {
-        uint32_t u;
-        memcpy(&u, &t[j], sizeof u);
-        u &= 0x7fffffffu;                                       /* |c_j|: no NaN here (finite samples) */
-        m = u > m ? u : m;
-    }
-    return tp_from_bits(m);
+    return tp_from_bits(absmax_bits(t, 32));
 }
 
-/* The peaks of the runs of 32 of n samples (the last run short, runs past the samples 0.0) into runs[0 ..
- * n_runs - 1]; returns the larger of `level` and all of them. */
-VECTOR_LOOP static double
-runs_loop(const float *zs, Py_ssize_t n, double *runs, Py_ssize_t n_runs, double level)
-{
-    for (Py_ssize_t k = 0; k < n_runs; k++) {
-        Py_ssize_t r0 = 32 * k, r1 = r0 + 32 < n ? r0 + 32 : n;
-        uint32_t m = 0;
-        for (Py_ssize_t i = r0; i < r1; i++) {
-            uint32_t u;
-            float t = fabsf(zs[i]);
-            memcpy(&u, &t, sizeof u);
-            m = u > m ? u : m;
-        }
-        runs[k] = tp_from_bits(m);
-        if (runs[k] > level)
-            level = runs[k];
-    }
-    return level;
-}
 
 /* The prescreen's loop over the rows (see prescreen_rows below); returns the number of candidates. */
 VECTOR_LOOP static Py_ssize_t
@@ -871,7 +859,7 @@ prescreen_rows(PyObject *self, PyObject *args)
             goto done;
         }
         Py_BEGIN_ALLOW_THREADS
-        level = runs_loop(zs, n_z, runs, n_runs, level);
+        level = runs_loop(zs, n_z, 32, runs, n_runs, level);
         n = prescreen_loop(zs, n_rows, runs, cs, tail, one_eps, l13_eps, one_tiny, level, ss, ds, xo, out);
         Py_END_ALLOW_THREADS
         PyMem_RawFree(runs);
