@@ -183,9 +183,9 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
     times 2**-31 that is exactly ``code / 2**23``, libsndfile's normalised reading.
     The result is written into ``out[:, :frames]`` (shape channels x at least
     frames) and returned; ``scratch`` (int32, at least ``frames`` long) saves an
-    allocation. With ``extremes`` (float64, 2 x channels) and ``frames >= 1``, each row's max and
-    min go into ``extremes[0]`` and ``extremes[1]``, the values ``row_extremes`` gives (the compiled
-    loop takes them from the codes as it unpacks). The compiled loop
+    allocation. With ``extremes`` (float64, C-contiguous, 2 x channels) and ``frames >= 1``, each
+    row's max and min go into ``extremes[0]`` and ``extremes[1]``, the values ``row_extremes``
+    gives (the compiled loop takes them from the codes as it unpacks). The compiled loop
     (``chainrun.dsp.compiled.unpack24_rows``) does the same when it is built.
     """
     if raw.size < frames * channels * 3 + 1:
@@ -194,11 +194,7 @@ def unpack24(raw: np.ndarray, frames: int, channels: int, out: np.ndarray,
     if (unpack is not None and raw.dtype == np.uint8 and raw.ndim == 1 and raw.flags.c_contiguous
             and out.dtype == np.float64 and out.ndim == 2 and out.flags.c_contiguous
             and channels >= 1 and out.shape[0] == channels and out.shape[1] >= frames >= 0):
-        ok_ext = (extremes is not None and frames >= 1 and extremes.dtype == np.float64
-                  and extremes.shape == (2, channels) and extremes.flags.c_contiguous)
-        unpack(raw, frames, channels, out, extremes if ok_ext else None)   # the same values (_cascade.c)
-        if extremes is not None and frames >= 1 and not ok_ext:
-            extremes[0], extremes[1] = row_extremes(out[:, :frames])
+        unpack(raw, frames, channels, out, extremes if frames else None)  # the same values (_cascade.c)
         return out[:, :frames]
     if frames == 0:                                          # no samples: a strided view would not fit the buffer
         return out[:, :0]
